@@ -1,0 +1,41 @@
+"""geoexp: plan and analyse randomized field trials over street segments and parcels.
+
+The public objects, in the order the job uses them:
+
+- :class:`geoexp.units.UnitSet` — a validated, projected layer of units;
+- :class:`geoexp.graph.ExposureGraph` — pairs of units within a distance;
+- :class:`geoexp.design.DesignSpec` and :class:`geoexp.design.Design` — the
+  design and its sampler;
+- :class:`geoexp.exposure.ExposureMapping` and
+  :func:`geoexp.exposure.exposure_probabilities` — conditions and their
+  probabilities;
+- :mod:`geoexp.trialfile` — the trial's GeoPackage.
+
+geoexp supports, but does not replace, ethics review, legal advice, community
+consultation and the judgement of the agencies involved; local law governs.
+"""
+
+from importlib import import_module
+from typing import Any
+
+__version__ = "0.1.0"
+
+_PUBLIC = {
+    "UnitSet": "geoexp.units",
+    "ExposureGraph": "geoexp.graph",
+    "DesignSpec": "geoexp.design",
+    "Design": "geoexp.design",
+    "ExposureMapping": "geoexp.exposure",
+    "exposure_probabilities": "geoexp.exposure",
+    "TrialFile": "geoexp.trialfile",
+    "load_sample_region": "geoexp.sampleregion",
+}
+
+__all__ = [*_PUBLIC, "__version__"]
+
+
+def __getattr__(name: str) -> Any:
+    # Lazy, so that `import geoexp` stays fast and the command line starts quickly.
+    if name in _PUBLIC:
+        return getattr(import_module(_PUBLIC[name]), name)
+    raise AttributeError(f"module 'geoexp' has no attribute {name!r}")

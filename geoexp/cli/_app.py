@@ -1,0 +1,131 @@
+from __future__ import annotations
+
+import sys
+from pathlib import Path
+from typing import Annotated
+
+import typer
+from rich.console import Console
+
+from geoexp.errors import GeoexpError
+
+app = typer.Typer(
+    name="geoexp",
+    help=(
+        "Plan and analyse randomized field trials over street segments and parcels, "
+        "with spillover between nearby places. geoexp supports, but does not replace, ethics "
+        "review, legal advice, community consultation and the judgement of the agencies "
+        "involved; local law governs."
+    ),
+    no_args_is_help=True,
+    add_completion=False,
+    pretty_exceptions_enable=False,
+)
+console = Console(stderr=False, highlight=False)
+errors = Console(stderr=True, highlight=False)
+
+
+def main() -> None:
+    """Entry point: run the app and turn geoexp's errors into a message and exit code 2."""
+    try:
+        app()
+    except GeoexpError as err:
+        errors.print(f"[bold red]error:[/] {err}")
+        sys.exit(2)
+
+
+SpecArg = Annotated[Path, typer.Argument(help="Design spec (TOML).", exists=False)]
+TrialOpt = Annotated[Path, typer.Option("--trial", "-t", help="Trial file (GeoPackage).")]
+
+
+@app.command("draw")
+def draw_command(
+    spec: SpecArg,
+    trial: TrialOpt,
+    replace: Annotated[
+        bool,
+        typer.Option("--replace", help="Replace a drawn (locked) assignment; the old one is kept."),
+    ] = False,
+    reason: Annotated[
+        str, typer.Option(help="Why a locked assignment is replaced (recorded).")
+    ] = "",
+    draws: Annotated[
+        int | None, typer.Option(help="Monte Carlo draws (default: the spec's).")
+    ] = None,
+    csv: Annotated[Path | None, typer.Option(help="Also write the field list as CSV here.")] = None,
+) -> None:
+    """Draw a design's assignment from its spec and seed into a locked trial file."""
+    from geoexp.design import Design, DesignSpec
+    from geoexp.trialfile import export_assignment_csv, write_trial
+
+    design = Design.from_spec(DesignSpec.from_toml(spec))
+    assignment = design.draw()
+    probs = design.probabilities(draws)
+    tf = write_trial(trial, design, assignment, probs, replace=replace, reason=reason)
+    console.print(str(assignment))
+    console.print(f"Trial file written and locked: {tf.path}")
+    if csv is not None:
+        export_assignment_csv(tf, csv)
+        console.print(f"Field list: {csv}")
+
+
+@app.command("check")
+def check_command(
+    spec: SpecArg,
+    draws: Annotated[
+        int | None, typer.Option(help="Monte Carlo draws (default: the spec's).")
+    ] = None,
+    balance: Annotated[
+        list[str] | None,
+        typer.Option("--balance", help="Covariate column to check balance on (repeat)."),
+    ] = None,
+    markdown: Annotated[
+        Path | None, typer.Option(help="Also write the check as Markdown here.")
+    ] = None,
+) -> None:
+    """Check a design before it reaches the street: conditions, probabilities, positivity, balance."""
+    from geoexp.design import Design, DesignSpec, check_design
+
+    design = Design.from_spec(DesignSpec.from_toml(spec))
+    result = check_design(
+        design, n_draws=draws, assignment=design.draw(), balance_columns=balance or None
+    )
+    console.print(str(result))
+    if markdown is not None:
+        markdown.write_text(result.to_markdown(), encoding="utf-8")
+
+
+@app.command("export")
+def export_command(
+    trial: Annotated[Path, typer.Argument(help="Trial file (GeoPackage).")],
+    csv: Annotated[Path, typer.Option(help="CSV file to write.")],
+) -> None:
+    """Write a trial's assignment as a CSV list for field teams."""
+    from geoexp.trialfile import export_assignment_csv
+
+    out = export_assignment_csv(trial, csv)
+    console.print(f"{len(out)} units written to {csv}")
+
+
+@app.command("sample-region")
+def sample_region_command(
+    out: Annotated[Path, typer.Option(help="GeoPackage to write.")] = Path("quillmere.gpkg"),
+    seed: Annotated[int, typer.Option(help="Seed of the generator.")] = 20261202,
+) -> None:
+    """Write the invented sample city (street segments, parcels, districts, incidents)."""
+    from geoexp.sampleregion import make_city, write_sample_region
+
+    region = make_city(seed)
+    write_sample_region(region, out)
+    console.print(f"Sample region {region.name!r} written to {out}")
+
+
+@app.command("demo")
+def demo_command(
+    out: Annotated[Path, typer.Option(help="Folder for the demo's outputs.")] = Path("demo_trial"),
+    draws: Annotated[int, typer.Option(help="Monte Carlo draws.")] = 2000,
+) -> None:
+    """Run the whole job on the built-in sample region: design, check, draw, field list."""
+    from geoexp.quickstart import run_demo
+
+    run_demo(out, n_draws=draws, echo=console.print)

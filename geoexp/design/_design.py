@@ -1,0 +1,255 @@
+"""A design: a spec resolved against its units, with its graph, mapping and sampler."""
+
+from __future__ import annotations
+
+import datetime as dt
+from dataclasses import dataclass
+from typing import Literal
+
+import numpy as np
+import pandas as pd
+from geoexp.design._samplers import (
+    BlockedSampler,
+    CompleteSampler,
+    Rerandomized,
+    SaturationSampler,
+    SeparatedSampler,
+)
+
+from geoexp._rng import RngLike, child_sequence
+from geoexp.design._assignment import Assignment
+from geoexp.design._floor import PureControlFloor
+from geoexp.design._spec import DesignSpec
+from geoexp.errors import DesignError, InfeasibleDesignError
+from geoexp.exposure import (
+    ExposureMapping,
+    ExposureProbabilities,
+    assign_conditions,
+    exposure_probabilities,
+)
+from geoexp.graph import ExposureGraph
+from geoexp.units import UnitSet
+
+
+@dataclass(frozen=True, eq=False)
+class Design:
+    """A design spec resolved against its units: eligibility, exposure graph and sampler.
+
+    The sampler is a definite random procedure that can be drawn again and
+    again. The assignment drawn for the trial and every Monte Carlo draw
+    (exposure probabilities, power, randomization tests) come from the same
+    sampler, seeded from the spec's seed: the first child stream of
+    ``SeedSequence(seed)`` draws the assignment, the second the Monte Carlo.
+
+    Build it with :meth:`from_spec`.
+    """
+
+    spec: DesignSpec
+    units: UnitSet
+    eligible: np.ndarray
+    graph: ExposureGraph
+    mapping: ExposureMapping
+    sampler: object
+    notes: tuple[str, ...] = ()
+
+    @classmethod
+    def from_spec(
+        cls,
+        spec: DesignSpec,
+        *,
+        units: UnitSet | None = None,
+        graph: ExposureGraph | None = None,
+    ) -> Design:
+        """Resolve a spec: read the units, select the eligible ones, build the graph and sampler.
+
+        ``units`` and ``graph`` may be passed to reuse ones already built (they
+        must be the spec's layer and wide enough for its bands and gap).
+        """
+        notes: list[str] = []
+        if units is None:
+            u = spec.units
+            units = UnitSet.from_file(spec.resolve(u.path), u.id_column, layer=u.layer, crs=u.crs)
+        notes.append(units.crs_report)
+        eligible_units = _eligible_units(spec, units)
+        notes.extend(n for n in eligible_units.notes if n not in units.notes)
+        eligible = np.asarray(units.ids.isin(eligible_units.ids))
+        if not eligible.any():
+            raise InfeasibleDesignError(
+                f"no unit of {units.source!r} is eligible after the rules in [eligible]"
+            )
+        mapping = ExposureMapping(tuple(spec.exposure.bands_m), spec.exposure.metric)
+        gap = spec.assignment.gap_m or 0.0
+        reach = max(mapping.reach, gap)
+        if graph is None:
+            graph = ExposureGraph.from_units(
+                units,
+                reach,
+                metric=spec.exposure.metric,
+                snap_tolerance=spec.exposure.snap_tolerance_m,
+            )
+        elif graph.max_distance + 1e-9 < reach or not graph.ids.equals(units.ids):
+            raise DesignError(
+                f"the graph passed in covers {graph.max_distance:g} m over {graph.n} units; the "
+                f"design needs {reach:g} m over the {units.n} units of its layer"
+            )
+        sampler = _build_sampler(spec, units, eligible, graph, mapping)
+        notes.append(sampler.describe())
+        return cls(spec, units, eligible, graph, mapping, sampler, tuple(notes))
+
+    @property
+    def seed_streams(self) -> tuple[np.random.SeedSequence, np.random.SeedSequence]:
+        """(assignment stream, Monte Carlo stream), both children of the spec's seed."""
+        root = np.random.SeedSequence(self.spec.seed)
+        return child_sequence(root, 0), child_sequence(root, 1)
+
+    @property
+    def eligible_ids(self) -> pd.Index:
+        """Ids of the units that may be treated."""
+        return self.units.ids[self.eligible]
+
+    def draw(self) -> Assignment:
+        """Draw the trial's assignment from the spec's seed (same spec and seed, same result)."""
+        treated_pos = np.asarray(self.sampler.draw(self.seed_streams[0]))
+        treated = np.zeros(self.units.n, dtype=bool)
+        treated[treated_pos] = True
+        return Assignment(
+            ids=self.units.ids,
+            treated=treated,
+            conditions=assign_conditions(self.graph, self.mapping, treated_pos),
+            eligible=self.eligible.copy(),
+            mapping=self.mapping,
+            spec_hash=self.spec.hash,
+            seed=self.spec.seed,
+            drawn_at=dt.datetime.now(dt.UTC).replace(microsecond=0).isoformat(),
+        )
+
+    def probabilities(
+        self,
+        n_draws: int | None = None,
+        rng: RngLike = None,
+        *,
+        covariates: pd.DataFrame | None = None,
+        engine: Literal["auto", "numba", "numpy"] = "auto",
+    ) -> ExposureProbabilities:
+        """Exposure probabilities from the design's own sampler (default: the spec's draws and seed)."""
+        return exposure_probabilities(
+            self.sampler,
+            self.graph,
+            self.mapping,
+            n_draws or self.spec.draws,
+            self.seed_streams[1] if rng is None else rng,
+            covariates=covariates,
+            engine=engine,
+        )
+
+    def check(self, n_draws: int | None = None, assignment: Assignment | None = None):
+        """Diagnose the design before it reaches the street; see :func:`check_design`."""
+        from geoexp.design._check import check_design
+
+        return check_design(self, n_draws=n_draws, assignment=assignment)
+
+
+def _eligible_units(spec: DesignSpec, units: UnitSet) -> UnitSet:
+    e = spec.eligible
+    out = units
+    if e.where:
+        out = out.select(e.where)
+    for zone in e.exclude:
+        out = out.exclude(spec.resolve(zone), how=e.exclude_how)
+    if e.top_column:
+        out = out.top(e.top_column, k=e.top_k, share=e.top_share)
+    return out
+
+
+def _labels(units: UnitSet, column: str, eligible: np.ndarray, what: str) -> np.ndarray:
+    if column not in units.frame.columns:
+        raise DesignError(
+            f"{what} column {column!r} is not in {units.source!r}; its columns are "
+            f"{[c for c in units.frame.columns if c != 'geometry']}"
+        )
+    values = units.frame[column].to_numpy()[eligible]
+    missing = pd.isna(values)
+    if missing.any():
+        bad = units.ids[eligible][missing]
+        raise DesignError(
+            f"{what} column {column!r} of {units.source!r} is empty for {int(missing.sum())} "
+            f"eligible units, e.g. {list(bad[:10])}"
+        )
+    return values.astype(str)
+
+
+def _round_half_up(x: np.ndarray | float) -> np.ndarray:
+    return np.floor(np.asarray(x, dtype=float) + 0.5).astype(int)
+
+
+def _quotas(spec: DesignSpec, blocks: np.ndarray) -> dict[str, int]:
+    a = spec.assignment
+    labels, sizes = np.unique(blocks, return_counts=True)
+    if a.block_quotas:
+        unknown = sorted(set(map(str, a.block_quotas)) - set(labels))
+        if unknown:
+            raise DesignError(
+                f"[assignment.block_quotas] names blocks {unknown} that have no eligible units; "
+                f"blocks with eligible units: {list(labels)}"
+            )
+        return {str(k): int(a.block_quotas.get(k, 0)) for k in labels}
+    if a.block_treated is not None:
+        return {k: int(a.block_treated) for k in labels}
+    # round half up, so a share of 0.5 of 3 units treats 2 (stated in the check report)
+    return dict(zip(labels, _round_half_up(a.block_share * sizes).tolist(), strict=True))
+
+
+def _gap_csr(graph: ExposureGraph, gap: float) -> tuple[np.ndarray, np.ndarray]:
+    """CSR of the pairs strictly closer than ``gap`` (a pair exactly at the gap is allowed)."""
+    keep = graph.distances < gap
+    rows = np.repeat(np.arange(graph.n), np.diff(graph.indptr))
+    counts = np.bincount(rows[keep], minlength=graph.n)
+    indptr = np.concatenate(([0], np.cumsum(counts))).astype(np.int64)
+    return indptr, graph.indices[keep]
+
+
+def _build_sampler(spec, units, eligible, graph, mapping):
+    a = spec.assignment
+    n = units.n
+    elig_pos = np.flatnonzero(eligible)
+    n_e = elig_pos.size
+    blocks = None
+    if a.method == "complete":
+        m = int(a.treated) if a.treated is not None else int(_round_half_up(a.share * n_e))
+        quotas = None
+    elif a.method == "blocked":
+        blocks = _labels(units, a.block_column, eligible, "block")
+        quotas = _quotas(spec, blocks)
+        m = sum(quotas.values())
+    if a.method == "saturation":
+        clusters = _labels(units, a.cluster_column, eligible, "cluster")
+        sampler = SaturationSampler(
+            n, elig_pos, clusters, tuple(a.saturations), tuple(a.cluster_counts)
+        )
+    elif a.gap_m is not None:
+        gap_indptr, gap_indices = _gap_csr(graph, a.gap_m)
+        sampler = SeparatedSampler(
+            n,
+            elig_pos,
+            n_treated=m if quotas is None else None,
+            gap_graph=(gap_indptr, gap_indices),
+            blocks=blocks,
+            quotas=quotas,
+            gap=a.gap_m,
+        )
+    elif a.method == "blocked":
+        sampler = BlockedSampler(n, elig_pos, blocks, quotas)
+    else:
+        sampler = CompleteSampler(n, elig_pos, m)
+    if spec.rerandomize is not None:
+        cols = list(spec.rerandomize.covariates)
+        missing = [c for c in cols if c not in units.frame.columns]
+        if missing:
+            raise DesignError(
+                f"[rerandomize] covariates {missing} are not columns of {units.source!r}"
+            )
+        x = units.frame[cols].to_numpy(dtype=float)[eligible]
+        sampler = Rerandomized(sampler, x, spec.rerandomize.acceptance, covariate_names=tuple(cols))
+    if a.min_pure_controls:
+        sampler = PureControlFloor(sampler, graph, mapping, eligible, int(a.min_pure_controls))
+    return sampler

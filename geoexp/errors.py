@@ -1,0 +1,60 @@
+"""Exceptions raised by geoexp.
+
+Every error a user can cause by their input is a subclass of
+:class:`GeoexpError`, and every input error is also a :class:`ValueError`, so
+callers can catch either. Messages name the file, the column and (up to ten)
+offending rows, so that the user can fix the input without reading a traceback.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Iterable
+
+__all__ = [
+    "GeoexpError",
+    "InputError",
+    "CRSError",
+    "GeometryError",
+    "DesignError",
+    "InfeasibleDesignError",
+    "LockedTrialError",
+    "describe_rows",
+]
+
+
+class GeoexpError(Exception):
+    """Base class of every error geoexp raises on purpose."""
+
+
+class InputError(GeoexpError, ValueError):
+    """The user's input (a file, a column, a value) is not what was expected."""
+
+
+class CRSError(InputError):
+    """A layer has no CRS, an unsuitable CRS, or CRSs that disagree."""
+
+
+class GeometryError(InputError):
+    """Geometries are missing, empty, of mixed kinds or cannot be repaired."""
+
+
+class DesignError(InputError):
+    """A design spec is malformed."""
+
+
+class InfeasibleDesignError(DesignError):
+    """A design spec is well formed but cannot be satisfied by these units."""
+
+
+class LockedTrialError(GeoexpError):
+    """A trial's assignment is locked and would be overwritten."""
+
+
+def describe_rows(rows: Iterable[object], limit: int = 10) -> str:
+    """Return ``"a, b, c (and 7 more)"`` for at most ``limit`` offending rows."""
+    rows = list(rows)
+    shown = ", ".join(repr(r) if isinstance(r, str) else str(r) for r in rows[:limit])
+    rest = len(rows) - limit
+    return shown + (f" (and {rest} more)" if rest > 0 else "")
+
+

@@ -1,0 +1,30 @@
+"""Exposure conditions and their probabilities under a design.
+
+An exposure mapping gives each unit one condition under an assignment:
+treated, spillover band k (the nearest treated unit lies in band k), or pure
+control. The design's own sampler is drawn many times to estimate every unit's
+probability of every condition, with Monte Carlo errors, and the joint
+probabilities that the variance estimators of the analysis need (Aronow &
+Samii 2017).
+"""
+
+from geoexp.exposure._joint import ConditionIndicators, condition_indicators
+from geoexp.exposure._mapping import ExposureMapping
+from geoexp.exposure._probabilities import (
+    ContrastPositivity,
+    ExposureProbabilities,
+    PositivityReport,
+    assign_conditions,
+    exposure_probabilities,
+)
+
+__all__ = [
+    "ConditionIndicators",
+    "ContrastPositivity",
+    "ExposureMapping",
+    "ExposureProbabilities",
+    "PositivityReport",
+    "assign_conditions",
+    "condition_indicators",
+    "exposure_probabilities",
+]

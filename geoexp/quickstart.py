@@ -1,0 +1,114 @@
+"""The whole job on the invented sample city, as the README's quick start runs it."""
+
+from __future__ import annotations
+
+from collections.abc import Callable
+from pathlib import Path
+
+import geopandas as gpd
+import shapely
+
+from geoexp.design import Design, DesignSpec, check_design
+from geoexp.sampleregion import load_sample_region
+from geoexp.trialfile import export_assignment_csv, write_trial
+
+CAUTION = (
+    "geoexp supports, but does not replace, ethics review, legal advice, community "
+    "consultation and the judgement of the agencies involved. Local law governs what a "
+    "trial may do. A trial that changes policing or other services affects people: "
+    "decide with them, not only about them."
+)
+
+
+def demo_spec(
+    region_path: str | Path, out: str | Path, *, exclusion: str | None = None
+) -> DesignSpec:
+    """Return the demo design: 40 of the top 150 hot-spot segments, kept 150 m apart, bands 150/300 m."""
+    data = {
+        "name": "Quillmere hot-spot foot patrols (demo)",
+        "seed": 20261202,
+        "draws": 2000,
+        "units": {
+            "path": str(Path(region_path).resolve()),
+            "layer": "segments",
+            "id_column": "segment_id",
+        },
+        "eligible": {"top_column": "incidents_y1", "top_k": 150},
+        "assignment": {
+            "method": "complete",
+            "treated": 40,
+            "gap_m": 150.0,
+            "min_pure_controls": 20,
+        },
+        "exposure": {"bands_m": [150.0, 300.0], "metric": "euclidean"},
+        "field": {"district_column": "district", "description_column": "description"},
+    }
+    if exclusion:
+        data["eligible"]["exclude"] = [exclusion]
+    return DesignSpec.from_dict(data, base_dir=str(Path(out).resolve()), source="demo spec")
+
+
+def run_demo(out: str | Path, *, n_draws: int = 2000, echo: Callable[[str], None] = print) -> dict:
+    """Plan a trial on the sample city: spec, exclusion zone, check, draw, trial file, field list.
+
+    Writes into ``out``: ``design.toml``, ``exclusion_zone.geojson`` (a drawn
+    zone around the city's stadium block), ``trial.gpkg`` (locked; a rerun of
+    the demo replaces it and keeps the old draw as superseded),
+    ``design_check.md`` and ``field_list.csv``. Returns the paths.
+    """
+    out = Path(out)
+    out.mkdir(parents=True, exist_ok=True)
+    region = load_sample_region()
+    region_path = region.path
+    if region_path is None:
+        from geoexp.sampleregion import write_sample_region
+
+        region_path = out / "quillmere.gpkg"
+        write_sample_region(region, region_path)
+    echo(
+        f"Sample region: {region.name} ({len(region.segments)} street segments) from {region_path}"
+    )
+
+    # An exclusion zone as a planner would draw it on the web map (WGS 84 lon/lat).
+    districts = region.districts.to_crs(4326)
+    centre = shapely.centroid(districts.geometry.iloc[0])
+    zone = gpd.GeoDataFrame(
+        {"reason": ["stadium block: event policing already in place"]},
+        geometry=[shapely.buffer(centre, 0.002)],
+        crs=4326,
+    )
+    zone_path = out / "exclusion_zone.geojson"
+    zone.to_file(zone_path, driver="GeoJSON", engine="pyogrio")
+
+    spec = demo_spec(region_path, out, exclusion=zone_path.name)
+    spec = spec.replace(draws=n_draws)
+    spec_path = out / "design.toml"
+    spec.to_toml(spec_path)
+    echo(f"Design spec: {spec_path} (hash {spec.short_hash})")
+
+    design = Design.from_spec(spec)
+    for note in design.notes:
+        echo(f"  {note}")
+    assignment = design.draw()
+    check = check_design(design, assignment=assignment)
+    echo(str(check))
+    check_path = out / "design_check.md"
+    check_path.write_text(check.to_markdown() + "\n\n" + CAUTION + "\n", encoding="utf-8")
+
+    trial_path = out / "trial.gpkg"
+    trial = write_trial(
+        trial_path, design, assignment, check.probabilities, replace=True, reason="demo rerun"
+    )
+    csv_path = out / "field_list.csv"
+    export_assignment_csv(trial, csv_path)
+    echo(str(assignment))
+    echo(f"Trial file (locked): {trial_path}")
+    echo(f"Field list: {csv_path}")
+    echo(CAUTION)
+    return {
+        "spec": spec_path,
+        "trial": trial_path,
+        "check": check_path,
+        "field_list": csv_path,
+        "exclusion": zone_path,
+    }

@@ -1,0 +1,224 @@
+"""Exposure mapping, Monte Carlo probabilities and joint probabilities."""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import pytest
+from scipy.spatial.distance import cdist
+from scipy.stats import hypergeom
+
+from geoexp.design import CompleteSampler, Draws
+from geoexp.errors import InputError
+from geoexp.exposure import (
+    ExposureMapping,
+    assign_conditions,
+    condition_indicators,
+    exposure_probabilities,
+)
+from geoexp.exposure._kernels import HAVE_NUMBA, scatter_counts
+from geoexp.graph import ExposureGraph
+
+
+def star_graph(n: int, band1: int, band2: int) -> ExposureGraph:
+    """Unit 0 has ``band1`` neighbours at 100 m and ``band2`` at 200 m; no other pairs."""
+    j = np.arange(1, 1 + band1 + band2)
+    d = np.where(j <= band1, 100.0, 200.0)
+    return ExposureGraph.from_pairs(
+        np.arange(n), np.zeros_like(j), j, d, max_distance=300.0, metric="euclidean"
+    )
+
+
+def point_graph(points: np.ndarray, max_distance: float) -> ExposureGraph:
+    dist = cdist(points, points)
+    i, j = np.nonzero(np.triu(dist <= max_distance, k=1))
+    return ExposureGraph.from_pairs(
+        np.arange(len(points)), i, j, dist[i, j], max_distance=max_distance
+    )
+
+
+def test_complete_randomization_matches_hypergeometric():
+    # CHECKS.md section 1 [A]/[L]: with m of n treated, the number of treated units among a
+    # control unit's g band neighbours is hypergeometric(M = n - 1, n = g, N = m).
+    n, m, g1, g2 = 10, 3, 2, 3
+    graph = star_graph(n, g1, g2)
+    mapping = ExposureMapping((150.0, 300.0))
+    r = 40_000
+    probs = exposure_probabilities(CompleteSampler(n, None, m), graph, mapping, r, rng=7)
+    p, se = probs.probabilities[0], probs.mc_error[0]
+    none_in_1 = hypergeom(M=n - 1, n=g1, N=m).pmf(0)  # scipy.stats.hypergeom
+    none_in_12 = hypergeom(M=n - 1, n=g1 + g2, N=m).pmf(0)
+    expected = np.array(
+        [m / n, (1 - m / n) * (1 - none_in_1), (1 - m / n) * (none_in_1 - none_in_12),
+         (1 - m / n) * none_in_12]
+    )
+    assert np.all(np.abs(p - expected) <= 4 * np.maximum(se, 1e-12))
+    # the worked example of CHECKS.md section 1 (n=10, m=3, g=2): control with a treated
+    # neighbour 49/120, control with none 7/24 -- analytic, binomial coefficients
+    one_band = exposure_probabilities(
+        CompleteSampler(n, None, m), star_graph(n, 2, 0), ExposureMapping((150.0,)), r, rng=8
+    )
+    q, qse = one_band.probabilities[0], one_band.mc_error[0]
+    assert abs(q[1] - 49 / 120) <= 4 * qse[1]
+    assert abs(q[2] - 7 / 24) <= 4 * qse[2]
+
+
+def test_probability_identities():
+    rng = np.random.default_rng(3)
+    points = rng.uniform(0, 1000, size=(60, 2))
+    graph = point_graph(points, 300.0)
+    m = 7
+    probs = exposure_probabilities(
+        CompleteSampler(60, None, m), graph, ExposureMapping((100.0, 300.0)), 3000, rng=1
+    )
+    p = probs.probabilities
+    # [A] each unit has exactly one condition per draw, so its probabilities sum to one
+    np.testing.assert_allclose(p.sum(axis=1), 1.0)
+    # [A] a fixed-m design treats exactly m units per draw: sum_i pi_i(treated) = m
+    assert p[:, 0].sum() == pytest.approx(m)
+    # [A] complete randomization treats every unit with probability m / n
+    assert np.all(np.abs(p[:, 0] - m / 60) <= 4 * probs.mc_error[:, 0] + 1e-12)
+
+
+def test_assign_conditions_matches_brute_force_nearest_distance():
+    rng = np.random.default_rng(11)
+    points = rng.uniform(0, 2000, size=(200, 2))
+    graph = point_graph(points, 400.0)
+    mapping = ExposureMapping((150.0, 400.0))
+    treated = rng.choice(200, 15, replace=False)
+    got = assign_conditions(graph, mapping, treated)
+    # independent computation with scipy.spatial.distance.cdist
+    d = cdist(points, points[treated]).min(axis=1)
+    expected = np.where(d <= 150.0, 1, np.where(d <= 400.0, 2, 3))
+    expected[treated] = 0
+    np.testing.assert_array_equal(got, expected)
+
+
+def test_bands_are_closed_on_the_right():
+    graph = ExposureGraph.from_pairs(
+        np.arange(3), [0, 0], [1, 2], [150.0, 150.0000001], max_distance=300.0
+    )
+    cond = assign_conditions(graph, ExposureMapping((150.0, 300.0)), np.array([0]))
+    assert cond.tolist() == [0, 1, 2]
+
+
+def random_draws(rng, n_draws, n_units, m) -> Draws:
+    rows = np.stack([rng.choice(n_units, m, replace=False) for _ in range(n_draws)])
+    return Draws.from_rows(np.sort(rows, axis=1), n_units)
+
+
+@pytest.mark.skipif(not HAVE_NUMBA, reason="numba engine needs numba")
+def test_numba_and_numpy_engines_agree_exactly():
+    rng = np.random.default_rng(5)
+    points = rng.uniform(0, 3000, size=(400, 2))
+    graph = point_graph(points, 350.0)
+    draws = random_draws(rng, 300, 400, 20)
+    edges = np.array([100.0, 250.0, 350.0])
+    cov = rng.normal(size=(400, 2))
+    out = {}
+    for engine in ("numba", "numpy"):
+        out[engine] = scatter_counts(
+            draws.indptr, draws.indices, graph.indptr, graph.indices, graph.distances, edges,
+            400, cov, engine=engine,
+        )
+    np.testing.assert_array_equal(out["numba"][0], out["numpy"][0])
+    np.testing.assert_array_equal(out["numba"][1], out["numpy"][1])
+    np.testing.assert_allclose(out["numba"][2], out["numpy"][2], rtol=1e-12, atol=1e-9)
+
+
+def test_counts_equal_a_draw_by_draw_loop():
+    # Independent tally: the conditions of every draw from assign_conditions, counted in a loop.
+    rng = np.random.default_rng(9)
+    points = rng.uniform(0, 1500, size=(120, 2))
+    graph = point_graph(points, 300.0)
+    mapping = ExposureMapping((120.0, 300.0))
+    sampler = CompleteSampler(120, None, 9)
+    probs = exposure_probabilities(sampler, graph, mapping, 500, rng=21)
+    draws = sampler.draw_many(500, np.random.SeedSequence(probs.seed))
+    tally = np.zeros((120, 4), dtype=int)
+    for r in range(draws.n_draws):
+        cond = assign_conditions(graph, mapping, draws.treated(r))
+        tally[np.arange(120), cond] += 1
+    np.testing.assert_array_equal(probs.counts, tally)
+
+
+def test_joint_probabilities_from_indicators():
+    rng = np.random.default_rng(2)
+    points = rng.uniform(0, 800, size=(40, 2))
+    graph = point_graph(points, 300.0)
+    mapping = ExposureMapping((150.0, 300.0))
+    sampler = CompleteSampler(40, None, 5)
+    r = 1000
+    probs = exposure_probabilities(sampler, graph, mapping, r, rng=4)
+    target = rng.integers(0, 4, size=40)
+    ind = condition_indicators(sampler, graph, mapping, target, r, rng=4)
+    # the same seed gives the same draws: marginals agree exactly with the counts
+    np.testing.assert_allclose(ind.marginal(), probs.probabilities[np.arange(40), target])
+    # brute force: joint frequencies from a draw-by-draw loop over the same draws
+    draws = sampler.draw_many(r, np.random.SeedSequence(probs.seed))
+    hits = np.stack(
+        [assign_conditions(graph, mapping, draws.treated(k)) == target for k in range(r)]
+    ).astype(float)
+    np.testing.assert_allclose(ind.gram(), hits.T @ hits / r)
+    a, b = np.array([0, 3, 7]), np.array([5, 3, 39])
+    np.testing.assert_allclose(ind.joint(a, b), (hits[:, a] * hits[:, b]).mean(axis=0))
+
+
+def test_joint_treated_pairs_under_complete_randomization():
+    # [A] P(i and j treated) = m (m - 1) / (n (n - 1)) under complete randomization
+    n, m, r = 30, 6, 20_000
+    graph = ExposureGraph.from_pairs(np.arange(n), [], [], [], max_distance=100.0)
+    mapping = ExposureMapping((50.0,))
+    ind = condition_indicators(CompleteSampler(n, None, m), graph, mapping, np.zeros(n), r, rng=3)
+    g = ind.gram()
+    off = g[~np.eye(n, dtype=bool)]
+    exact = m * (m - 1) / (n * (n - 1))
+    se = np.sqrt(exact * (1 - exact) / r)
+    assert abs(off.mean() - exact) < 4 * se
+    np.testing.assert_allclose(np.diag(g), ind.marginal())
+
+
+def test_positivity_lists_units_that_cannot_be_pure_controls():
+    # Unit 0 is the only eligible unit next to unit 1; treating 1 of {0, 2} ...
+    graph = ExposureGraph.from_pairs(np.arange(4), [0], [1], [10.0], max_distance=100.0)
+    sampler = CompleteSampler(4, np.array([0, 2]), 1)
+    probs = exposure_probabilities(sampler, graph, ExposureMapping((50.0,)), 400, rng=0)
+    report = probs.positivity()
+    band = report.contrasts[1]
+    # unit 1 is in the band whenever 0 is treated, pure control otherwise: both possible
+    assert 1 not in band.exposure_only
+    assert report.contrasts[0].n_units == 2  # units 0 and 2 can be treated or pure control
+    frame = probs.to_frame()
+    assert list(frame.columns[:3]) == ["p_treated", "p_spillover_1", "p_pure_control"]
+
+
+def test_mapping_validation():
+    with pytest.raises(InputError, match="increase"):
+        ExposureMapping((300.0, 150.0))
+    with pytest.raises(InputError, match="positive"):
+        ExposureMapping((0.0,))
+    m = ExposureMapping((150.0, 300.0))
+    assert m.labels == ("treated", "spillover 0-150 m", "spillover 150-300 m", "pure control")
+    assert m.code("pure_control") == 3
+
+
+def test_graph_too_narrow_is_refused():
+    graph = ExposureGraph.from_pairs(np.arange(3), [0], [1], [10.0], max_distance=100.0)
+    with pytest.raises(InputError, match="max_distance >= 300"):
+        exposure_probabilities(
+            CompleteSampler(3, None, 1), graph, ExposureMapping((150.0, 300.0)), 10
+        )
+
+
+def test_covariate_sums_by_condition():
+    rng = np.random.default_rng(1)
+    points = rng.uniform(0, 600, size=(50, 2))
+    graph = point_graph(points, 200.0)
+    mapping = ExposureMapping((200.0,))
+    cov = pd.DataFrame({"x": rng.normal(size=50)}, index=graph.ids)
+    probs = exposure_probabilities(
+        CompleteSampler(50, None, 4), graph, mapping, 200, rng=5, covariates=cov
+    )
+    # [A] every draw's condition sizes add up to n and its covariate sums to the total
+    np.testing.assert_array_equal(probs.condition_sizes.sum(axis=1), 50)
+    np.testing.assert_allclose(probs.covariate_sums.sum(axis=1)[:, 0], cov["x"].sum())
