@@ -21,7 +21,7 @@ app = typer.Typer(
     add_completion=False,
     pretty_exceptions_enable=False,
 )
-console = Console(stderr=False, highlight=False)
+console = Console(stderr=False, highlight=False, soft_wrap=True)
 errors = Console(stderr=True, highlight=False)
 
 

@@ -160,7 +160,8 @@ class Draws:
     @classmethod
     def from_rows(cls, positions: np.ndarray, n_units: int, extra=None) -> Draws:
         """Build Draws from an (R, m) array whose row r holds draw r's treated positions."""
-        positions = np.sort(np.asarray(positions), axis=1)
+        # int32 sorts faster and is the storage type anyway
+        positions = np.sort(np.asarray(positions, dtype=np.int32), axis=1)
         n_draws, m = positions.shape
         indptr = np.arange(n_draws + 1, dtype=np.int64) * m
         return cls(indptr, positions.reshape(-1), n_units, extra or {})

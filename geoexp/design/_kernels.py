@@ -25,6 +25,10 @@ Engine = Literal["auto", "numba", "numpy"]
 
 RUNNING, DONE, STUCK = 0, 1, 2
 
+# Module-level switch for the subset sampler's loop ("numpy" forces the pure
+# numpy twin everywhere, e.g. where numba is unavailable); draws are identical.
+SUBSET_ENGINE: Engine = "auto"
+
 # Extension blocks are never shorter than this, so a row that came up short
 # does not need many rounds to finish.
 _MIN_EXTENSION = 16
@@ -55,12 +59,25 @@ def stream_length(n: int, m: int) -> int:
     return int(math.ceil(mean + 4.0 * math.sqrt(var))) + 1
 
 
-def distinct_prefix(x: np.ndarray, m_row: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+def distinct_prefix(
+    x: np.ndarray, m_row: np.ndarray, n: int, engine: Literal["numba", "numpy"]
+) -> tuple[np.ndarray, np.ndarray]:
     """Mark, per row of ``x``, the first occurrences of its first ``m_row`` distinct values.
 
-    Returns ``(keep, found)``: ``keep`` is a boolean mask the shape of ``x``
-    and ``found[r] = min(m_row[r], number of distinct values in row r)``.
+    ``x`` holds values in range(n). Returns ``(keep, found)``: ``keep`` is a
+    boolean mask the shape of ``x`` and ``found[r] = min(m_row[r], number of
+    distinct values in row r)``. Both engines return identical arrays.
     """
+    if engine == "numba":
+        keep = np.zeros(x.shape, dtype=np.bool_)
+        found = np.zeros(x.shape[0], dtype=np.int64)
+        _jit(_distinct_prefix_loops)(x, np.ascontiguousarray(m_row, np.int64), n, keep, found)
+        return keep, found
+    return _distinct_prefix_numpy(x, m_row)
+
+
+def _distinct_prefix_numpy(x: np.ndarray, m_row: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Numpy twin of the distinct-prefix loop: one row-wise sort."""
     n_rows, length = x.shape
     if length == 0:
         return np.zeros(x.shape, dtype=bool), np.zeros(n_rows, dtype=np.int64)
@@ -87,61 +104,66 @@ def sample_subsets(
     extension: np.random.Generator,
     n: int,
     m_row: np.ndarray,
+    engine: Engine | None = None,
 ) -> tuple[np.ndarray, np.ndarray]:
     """Draw, for each row r, a uniformly random subset of size ``m_row[r]`` of range(n).
 
     Rows with ``m_row > n / 2`` choose their complement (the units left out)
-    and invert it. Returns flat ``(rows, values)`` sorted by row, values
-    ascending within a row.
+    and invert it. Returns flat ``(rows, values)`` grouped by row in row
+    order (values within a row in no set order). ``engine`` (default: the module switch
+    ``SUBSET_ENGINE``) picks the distinct-prefix loop; results are identical.
     """
+    engine = resolve_engine(SUBSET_ENGINE if engine is None else engine)
     m_row = np.asarray(m_row, dtype=np.int64)
     n_rows = m_row.size
     flip = 2 * m_row > n
     m_eff = np.where(flip, n - m_row, m_row)
     m_max = int(m_eff.max(initial=0))
+    reordered = False
     if m_max > 0:
         length = stream_length(n, m_max)
         x = main.integers(0, n, size=(n_rows, length), dtype=np.int32)
-        keep, found = distinct_prefix(x, m_eff)
-        short = np.flatnonzero(found < m_eff)
-        rows, cols = np.nonzero(keep)
-        chosen_rows, chosen_vals = [rows], [x[rows, cols]]
+        keep, found = distinct_prefix(x, m_eff, n, engine)
+        complete = found >= m_eff
+        # boolean-mask gathers are row-major, so rows come out grouped and in order
+        rows = np.repeat(np.arange(n_rows, dtype=np.int64), found)
+        vals = x[keep]
+        short = np.flatnonzero(~complete)
         if short.size:
             # Short rows keep their sequence and read on (never restart): a
             # restart would favour subsets that are quick to collect.
-            seq = x[short]
-            need = m_eff[short]
+            ok = complete[rows]
+            chosen_rows, chosen_vals = [rows[ok]], [vals[ok]]
+            seq, need = x[short], m_eff[short]
             extra_length = max(length // 4, _MIN_EXTENSION)
             while short.size:
                 more = extension.integers(0, n, size=(short.size, extra_length), dtype=np.int32)
                 seq = np.concatenate([seq, more], axis=1)
-                keep_s, found_s = distinct_prefix(seq, need)
+                keep_s, found_s = distinct_prefix(seq, need, n, engine)
                 done = found_s >= need
-                r, c = np.nonzero(keep_s[done])
-                chosen_rows.append(short[done][r])
-                chosen_vals.append(seq[done][r, c])
+                chosen_rows.append(np.repeat(short[done], found_s[done]))
+                chosen_vals.append(seq[done][keep_s[done]])
                 short, seq, need = short[~done], seq[~done], need[~done]
-            # rows from the first pass exclude the short rows (their keep rows
-            # hold fewer than m values and are superseded)
-            first_ok = (found >= m_eff)[chosen_rows[0]]
-            chosen_rows[0] = chosen_rows[0][first_ok]
-            chosen_vals[0] = chosen_vals[0][first_ok]
-        rows = np.concatenate(chosen_rows)
-        vals = np.concatenate(chosen_vals).astype(np.int64)
+            rows = np.concatenate(chosen_rows)
+            vals = np.concatenate(chosen_vals)
+            reordered = True
     else:
         rows = np.zeros(0, dtype=np.int64)
-        vals = np.zeros(0, dtype=np.int64)
+        vals = np.zeros(0, dtype=np.int32)
     flipped = np.flatnonzero(flip)
     if flipped.size:
         inside = np.zeros((n_rows, n), dtype=bool)
         inside[flipped] = True
         sel = flip[rows]
-        inside[rows[sel], vals[sel]] = False
+        inside.reshape(-1)[rows[sel] * n + vals[sel]] = False
         rows_f, vals_f = np.nonzero(inside)
         rows = np.concatenate([rows[~sel], rows_f])
-        vals = np.concatenate([vals[~sel], vals_f])
-    order = np.argsort(rows * max(n, 1) + vals, kind="stable")
-    return rows[order], vals[order]
+        vals = np.concatenate([vals[~sel], vals_f.astype(np.int32)])
+        reordered = True
+    if reordered:
+        order = np.argsort(rows, kind="stable")
+        rows, vals = rows[order], vals[order]
+    return rows, vals
 
 
 # ---------------------------------------------------------------------------

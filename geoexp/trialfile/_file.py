@@ -255,8 +255,9 @@ def export_assignment_csv(
     """Write the assignment as CSV for field teams: id, district, street description, condition.
 
     Columns that the spec names (district, description, instructions) are taken
-    from the unit layer. Only eligible units and units in a spillover band are
-    listed (a field team has nothing to do with far-away pure controls).
+    from the unit layer. Only eligible units are listed, treated ones first: the
+    field team must know where to deliver the intervention and which eligible
+    places to leave as they are.
     """
     trial = trial if isinstance(trial, TrialFile) else TrialFile.open(trial)
     spec = trial.spec()
@@ -279,8 +280,7 @@ def export_assignment_csv(
             out[label] = units[col].reindex(out.index)
     out["condition"] = assign["condition_label"]
     out["treated"] = assign["treated"].astype(bool)
-    keep = assign["eligible"].astype(bool) | (assign["condition"] != "pure_control")
-    out = out[keep]
+    out = out[assign["eligible"].astype(bool)]
     out = out.sort_values(["treated", "condition"], ascending=[False, True], kind="stable")
     out.index.name = trial.id_column
     with atomic_path(path) as tmp:
