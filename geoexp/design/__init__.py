@@ -11,6 +11,11 @@ design are whatever its procedure implies, estimated by Monte Carlo from the
 same sampler.
 """
 
+from geoexp.design._assignment import Assignment
+from geoexp.design._check import DesignCheck, check_design
+from geoexp.design._design import Design
+from geoexp.design._draws import Draws
+from geoexp.design._floor import PureControlFloor
 from geoexp.design._samplers import (
     BlockedSampler,
     CompleteSampler,
@@ -18,12 +23,6 @@ from geoexp.design._samplers import (
     SaturationSampler,
     SeparatedSampler,
 )
-
-from geoexp.design._assignment import Assignment
-from geoexp.design._check import DesignCheck, check_design
-from geoexp.design._design import Design
-from geoexp.design._draws import Draws
-from geoexp.design._floor import PureControlFloor
 from geoexp.design._spec import DesignSpec
 
 __all__ = [

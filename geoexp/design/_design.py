@@ -8,6 +8,10 @@ from typing import Literal
 
 import numpy as np
 import pandas as pd
+
+from geoexp._rng import RngLike, child_sequence
+from geoexp.design._assignment import Assignment
+from geoexp.design._floor import PureControlFloor
 from geoexp.design._samplers import (
     BlockedSampler,
     CompleteSampler,
@@ -15,10 +19,6 @@ from geoexp.design._samplers import (
     SaturationSampler,
     SeparatedSampler,
 )
-
-from geoexp._rng import RngLike, child_sequence
-from geoexp.design._assignment import Assignment
-from geoexp.design._floor import PureControlFloor
 from geoexp.design._spec import DesignSpec
 from geoexp.errors import DesignError, InfeasibleDesignError
 from geoexp.exposure import (

@@ -76,6 +76,18 @@ class Draws:
         object.__setattr__(self, "n_units", n_units)
         object.__setattr__(self, "extra", extra)
 
+    @classmethod
+    def _owned(cls, indptr, indices, n_units, extra=None) -> Draws:
+        """Wrap freshly made, already valid arrays without copying or re-checking them."""
+        draws = object.__new__(cls)
+        object.__setattr__(draws, "indptr", _frozen(np.asarray(indptr, dtype=np.int64)))
+        object.__setattr__(draws, "indices", _frozen(np.asarray(indices, dtype=np.int32)))
+        object.__setattr__(draws, "n_units", int(n_units))
+        object.__setattr__(
+            draws, "extra", {k: _frozen(np.asarray(v)) for k, v in (extra or {}).items()}
+        )
+        return draws
+
     @property
     def n_draws(self) -> int:
         """Number of draws R."""
@@ -112,7 +124,7 @@ class Draws:
         # Position k of the output comes from indptr[row] + (k - start of its output row).
         source = np.repeat(self.indptr[rows] - indptr[:-1], lengths) + np.arange(indptr[-1])
         extra = {key: value[rows] for key, value in self.extra.items()}
-        return Draws(indptr, self.indices[source], self.n_units, extra)
+        return Draws._owned(indptr, self.indices[source], self.n_units, extra)
 
     def equals(self, other: Draws) -> bool:
         """Return True when ``other`` holds exactly the same draws and records."""
@@ -141,6 +153,8 @@ class Draws:
         parts = list(parts)
         if not parts:
             raise InputError("Draws.concat needs at least one part")
+        if len(parts) == 1:
+            return parts[0]  # immutable, so sharing is safe
         n_units = parts[0].n_units
         keys = parts[0].extra.keys()
         for part in parts[1:]:
@@ -151,11 +165,12 @@ class Draws:
                 )
         offsets = np.cumsum([0] + [p.indices.size for p in parts[:-1]])
         indptr = np.concatenate(
-            [np.zeros(1, np.int64)] + [p.indptr[1:] + off for p, off in zip(parts, offsets)]
+            [np.zeros(1, np.int64)]
+            + [p.indptr[1:] + off for p, off in zip(parts, offsets, strict=True)]
         )
         indices = np.concatenate([p.indices for p in parts])
         extra = {key: np.concatenate([p.extra[key] for p in parts]) for key in keys}
-        return cls(indptr, indices, n_units, extra)
+        return cls._owned(indptr, indices, n_units, extra)
 
     @classmethod
     def from_rows(cls, positions: np.ndarray, n_units: int, extra=None) -> Draws:
@@ -163,8 +178,13 @@ class Draws:
         # int32 sorts faster and is the storage type anyway
         positions = np.sort(np.asarray(positions, dtype=np.int32), axis=1)
         n_draws, m = positions.shape
+        if positions.size and (positions.min() < 0 or positions.max() >= n_units):
+            raise InputError(f"positions must lie in 0..{n_units - 1}")
+        extra = dict(extra or {})
+        if any(np.shape(v)[:1] != (n_draws,) for v in extra.values()):
+            raise InputError(f"every extra record needs one row per draw ({n_draws})")
         indptr = np.arange(n_draws + 1, dtype=np.int64) * m
-        return cls(indptr, positions.reshape(-1), n_units, extra or {})
+        return cls._owned(indptr, positions.reshape(-1), n_units, extra)
 
     def __repr__(self) -> str:
         extra = f", extra={sorted(self.extra)}" if self.extra else ""

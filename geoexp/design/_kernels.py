@@ -4,7 +4,8 @@ Two pieces live here:
 
 * ``sample_subsets``: uniformly random m-subsets for many draws at once, by
   taking the first m distinct values of an iid uniform integer sequence per
-  draw (pure numpy; the work is a row-wise sort).
+  draw. The distinct-prefix loop is a numba kernel with a numpy twin (a
+  row-wise sort) chosen by the module switch ``SUBSET_ENGINE``.
 * ``greedy_pack``: random sequential greedy packing for the "kept apart"
   design. Its step loop exists twice, a numba kernel looping over draws and
   steps and a numpy twin looping over steps only; both apply the same

@@ -140,14 +140,17 @@ def _quota_array(quotas: Mapping, labels: np.ndarray, sizes: np.ndarray) -> np.n
     for b, label in enumerate(labels.tolist()):
         q = quotas[label]
         if isinstance(q, bool) or not isinstance(q, (int, np.integer)) or q < 0:
-            raise DesignError(f"the quota of block {label!r} must be a whole number >= 0, got {q!r}")
+            raise DesignError(
+                f"the quota of block {label!r} must be a whole number >= 0, got {q!r}"
+            )
         quota[b] = int(q)
     over = np.flatnonzero(quota > sizes)
     if over.size:
+        names = labels.tolist()
         raise InfeasibleDesignError(
             "a block's quota is larger than the block: "
             + "; ".join(
-                f"block {labels[b]!r} has {sizes[b]} eligible units but quota {quota[b]}"
+                f"block {names[b]!r} has {sizes[b]} eligible units but quota {quota[b]}"
                 for b in over[:10]
             )
         )
@@ -350,7 +353,7 @@ class BlockedSampler(_Chunked):
         main, extension = _generators(seed, 2)
         parts = []
         # one pass per block, each vectorised across the chunk's draws
-        for members, quota in zip(self._members, self.block_quota.tolist()):
+        for members, quota in zip(self._members, self.block_quota.tolist(), strict=True):
             if quota:
                 local = _subset_matrix(main, extension, members.size, quota, n_draws)
                 parts.append(members[local])
@@ -593,16 +596,14 @@ class SeparatedSampler(_Chunked):
             f"greedy packing in random order reached it in {int(reached.sum())} of "
             f"{PILOT_DRAWS} pilot draws. The largest number of treated units it placed was "
             f"{largest}, typically (median) {int(median)}: choose at most {int(median)} treated "
-            "units, or a smaller gap"
-            + (f" than {self.gap:g} m" if self.gap is not None else "")
+            "units, or a smaller gap" + (f" than {self.gap:g} m" if self.gap is not None else "")
         )
         if self.problem.quota.size > 1:
             short = (state.counts < self.problem.quota) & ~reached[:, None]
             worst = np.argsort(-short.sum(axis=0), kind="stable")
             worst = worst[short.sum(axis=0)[worst] > 0]
-            message += (
-                ", or smaller quotas in the blocks left short most often: "
-                + describe_rows(self.block_labels[worst].tolist())
+            message += ", or smaller quotas in the blocks left short most often: " + describe_rows(
+                self.block_labels[worst].tolist()
             )
         raise InfeasibleDesignError(message)
 
@@ -771,12 +772,15 @@ class SaturationSampler(_Chunked):
         rows = key // self.n_units
         indptr = np.zeros(n_draws + 1, dtype=np.int64)
         np.cumsum(np.bincount(rows, minlength=n_draws), out=indptr[1:])
-        return Draws(indptr, key - rows * self.n_units, self.n_units, {"cluster_level": levels})
+        return Draws._owned(
+            indptr, key - rows * self.n_units, self.n_units, {"cluster_level": levels}
+        )
 
     def describe(self) -> str:
         """Return a plain sentence describing the procedure."""
         plan = ", ".join(
-            f"{c} at {s:.0%}" for s, c in zip(self.saturations, self.level_counts.tolist())
+            f"{c} at {s:.0%}"
+            for s, c in zip(self.saturations, self.level_counts.tolist(), strict=True)
         )
         return (
             f"Randomized saturation: {self.cluster_labels.size:,} clusters assigned to saturation "
@@ -943,7 +947,7 @@ class Rerandomized(_Chunked):
             if ok.size:
                 part = draws.take(ok)
                 kept.append(
-                    Draws(
+                    Draws._owned(
                         part.indptr,
                         part.indices,
                         part.n_units,

@@ -8,7 +8,12 @@ probabilities that the variance estimators of the analysis need (Aronow &
 Samii 2017).
 """
 
-from geoexp.exposure._joint import ConditionIndicators, condition_indicators
+from geoexp.exposure._joint import (
+    ConditionBits,
+    ConditionIndicators,
+    condition_bits,
+    condition_indicators,
+)
 from geoexp.exposure._mapping import ExposureMapping
 from geoexp.exposure._probabilities import (
     ContrastPositivity,
@@ -19,6 +24,8 @@ from geoexp.exposure._probabilities import (
 )
 
 __all__ = [
+    "ConditionBits",
+    "condition_bits",
     "ConditionIndicators",
     "ContrastPositivity",
     "ExposureMapping",

@@ -161,3 +161,109 @@ def condition_indicators(
         bits=bits,
         n_draws=n_draws,
     )
+
+
+@dataclass(frozen=True, eq=False)
+class ConditionBits:
+    """Bit-packed indicators of every condition for a set of units over R draws.
+
+    ``bits[c, i]`` holds one bit per draw: unit ``i`` (a row of the held units)
+    was in condition ``c`` in that draw. Memory: n_conditions * n_held * R / 8
+    bytes. Joint probabilities of any pair of units and conditions are popcounts.
+    """
+
+    ids: pd.Index
+    positions: np.ndarray
+    bits: np.ndarray
+    n_draws: int
+
+    def probabilities(self) -> np.ndarray:
+        """Marginal probabilities (n_held, n_conditions)."""
+        return (np.bitwise_count(self.bits).sum(axis=2) / self.n_draws).T
+
+    def joint_pairs(self, k: int, first: np.ndarray, l: int, second: np.ndarray) -> np.ndarray:
+        """pi_ij(k, l) for pairs of held rows (``first[p]``, ``second[p]``)."""
+        first = np.asarray(first, dtype=np.int64)
+        second = np.asarray(second, dtype=np.int64)
+        out = np.empty(first.size, dtype=np.float64)
+        a_bits, b_bits = self.bits[k], self.bits[l]
+        for s in range(0, first.size, _PAIRS_PER_BLOCK):
+            a = a_bits[first[s : s + _PAIRS_PER_BLOCK]]
+            b = b_bits[second[s : s + _PAIRS_PER_BLOCK]]
+            out[s : s + a.shape[0]] = np.bitwise_count(a & b).sum(axis=1)
+        return out / self.n_draws
+
+    def joint_block(self, k: int, rows: np.ndarray, l: int, cols: np.ndarray) -> np.ndarray:
+        """Dense pi_ij(k, l) for every held row in ``rows`` against every one in ``cols``.
+
+        Computed as products of unpacked bit blocks in float32, which count
+        exactly up to 2**24 draws.
+        """
+        a_bits = self.bits[k][np.asarray(rows, dtype=np.int64)]
+        b_bits = self.bits[l][np.asarray(cols, dtype=np.int64)]
+        out = np.zeros((a_bits.shape[0], b_bits.shape[0]), dtype=np.float32)
+        step = 16  # words per block: 1,024 draws
+        for w in range(0, self.bits.shape[2], step):
+            a = _unpack(a_bits[:, w : w + step])
+            b = _unpack(b_bits[:, w : w + step])
+            out += a @ b.T
+        return out.astype(np.float64) / self.n_draws
+
+
+def _unpack(words: np.ndarray) -> np.ndarray:
+    n = words.shape[0]
+    return np.unpackbits(
+        np.ascontiguousarray(words).view(np.uint8).reshape(n, -1), axis=1, bitorder="little"
+    ).astype(np.float32)
+
+
+def condition_bits(
+    sampler: DrawSource,
+    graph: ExposureGraph,
+    mapping: ExposureMapping,
+    n_draws: int = 10_000,
+    rng: RngLike = None,
+    *,
+    units: np.ndarray | None = None,
+) -> ConditionBits:
+    """Bit-packed indicators of every exposure condition for the held units, draw by draw.
+
+    One pass over the draws of the design's own sampler; use the same ``rng``
+    and ``n_draws`` as :func:`exposure_probabilities` to get the same draws.
+    """
+    positions = np.arange(graph.n) if units is None else np.asarray(units, dtype=np.int64)
+    g_indptr, g_indices, g_dist = reach_csr(graph, mapping)
+    edges = np.asarray(mapping.band_edges, dtype=np.float64)
+    pc = mapping.pure_control
+    n_cond = mapping.n_conditions
+    n_words = -(-n_draws // _WORD)
+    bits = np.zeros((n_cond, positions.size, n_words), dtype=np.uint64)
+    column = np.full(graph.n, -1, dtype=np.int64)
+    column[positions] = np.arange(positions.size)
+    codes = np.arange(n_cond, dtype=np.int8)[:, None, None]
+    draw0 = 0
+    for chunk in sampler.iter_chunks(n_draws, as_seed_sequence(rng)):
+        n_chunk = chunk.indptr.size - 1
+        r = 0
+        while r < n_chunk:
+            g = draw0 + r
+            size = min(_WORD - g % _WORD, n_chunk - r)
+            sub_ptr = chunk.indptr[r : r + size + 1] - chunk.indptr[r]
+            sub_idx = chunk.indices[chunk.indptr[r] : chunk.indptr[r + size]].astype(np.int64)
+            cond = np.full((size, positions.size), pc, dtype=np.int8)
+            draw, unit, code = touched_conditions_numpy(
+                sub_ptr, sub_idx, g_indptr, g_indices, g_dist, edges, graph.n
+            )
+            held = column[unit] >= 0
+            cond[draw[held], column[unit[held]]] = code[held]
+            tdraw = np.repeat(np.arange(size), np.diff(sub_ptr))
+            theld = column[sub_idx] >= 0
+            cond[tdraw[theld], column[sub_idx[theld]]] = 0
+            hit = (cond[None, :, :] == codes).astype(np.uint64)  # (C, size, n_held)
+            shifts = (np.arange(size, dtype=np.uint64) + np.uint64(g % _WORD))[None, :, None]
+            bits[:, :, g // _WORD] |= np.bitwise_or.reduce(hit << shifts, axis=1)
+            r += size
+        draw0 += n_chunk
+    if draw0 != n_draws:
+        raise RuntimeError(f"the sampler produced {draw0} draws, {n_draws} were asked for")
+    return ConditionBits(ids=graph.ids[positions], positions=positions, bits=bits, n_draws=n_draws)

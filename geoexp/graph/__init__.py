@@ -233,8 +233,10 @@ class ExposureGraph:
                     "the network metric needs street segments (lines); "
                     f"{bad.size} units are not lines: {describe_rows(ids[np.sort(bad)].tolist())}"
                 ) from None
-        first, second = order[first], order[second]
-        indptr, indices, distances = _io.pairs_to_csr(n, first, second, dist)
+        order = order.astype(np.int32)
+        pairs = [order[first], order[second], dist]
+        del first, second, dist
+        indptr, indices, distances = _io.pairs_to_csr(n, pairs)
         return cls(ids, indptr, indices, distances, float(max_distance), metric, crs_text)
 
     @classmethod
@@ -297,7 +299,7 @@ class ExposureGraph:
         rows = np.flatnonzero(count[where] > 1)
         if rows.size:
             raise InputError(f"pairs given more than once at rows {describe_rows(rows.tolist())}")
-        indptr, indices, distances = _io.pairs_to_csr(n, first, second, distance)
+        indptr, indices, distances = _io.pairs_to_csr(n, [first, second, distance])
         crs_text = None if crs is None else pyproj.CRS.from_user_input(crs).to_string()
         return cls(ids, indptr, indices, distances, float(max_distance), metric, crs_text)
 

@@ -70,10 +70,13 @@ def euclidean_pairs(
         parts = [_measure_chunk(*t, context) for t in tasks]
     if not parts:
         return empty
-    first = np.concatenate([p[0] for p in parts])
-    second = np.concatenate([p[1] for p in parts])
-    dist = np.concatenate([p[2] for p in parts])
-    return first, second, dist
+    # Concatenate one column at a time, dropping each column's chunks as it goes,
+    # so that the chunks and the result are never both held in full.
+    out = []
+    for k in range(3):
+        out.append(np.concatenate([p[k] for p in parts]))
+        parts = [p[:k] + (None,) + p[k + 1 :] for p in parts]
+    return tuple(out)
 
 
 def _size_buckets(radius: np.ndarray) -> list[np.ndarray]:
@@ -119,4 +122,5 @@ def _measure_chunk(tree, src, dst, same, reach, context):
     dist = shapely.distance(geoms[i], geoms[j])
     dist *= scale
     keep = dist <= max_distance
-    return i[keep], j[keep], dist[keep]
+    # int32 positions halve the memory of the pairs (fewer than 2**31 units).
+    return i[keep].astype(np.int32), j[keep].astype(np.int32), dist[keep]

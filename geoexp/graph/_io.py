@@ -16,17 +16,21 @@ from geoexp.errors import InputError
 FORMAT_VERSION = 1
 
 
-def pairs_to_csr(
-    n: int, first: np.ndarray, second: np.ndarray, distance: np.ndarray
-) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+def pairs_to_csr(n: int, pairs: list[np.ndarray]) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Symmetric CSR arrays (indptr int64, indices int32, distances float64) from undirected pairs.
 
-    The pairs must be distinct and have ``first != second``; callers check that.
+    ``pairs`` is a list ``[first, second, distance]`` that is emptied here, so
+    the caller's copies are released as soon as they are no longer needed (the
+    pairs are the largest arrays in play). The pairs must be distinct and have
+    ``first != second``; callers check that.
     """
+    first, second, distance = pairs
+    pairs.clear()
     rows = np.concatenate([first, second]).astype(np.int32, copy=False)
     cols = np.concatenate([second, first]).astype(np.int32, copy=False)
+    del first, second
     data = np.concatenate([distance, distance]).astype(np.float64, copy=False)
-    del first, second, distance
+    del distance
     # COO -> CSR is a counting sort in C, linear in the number of pairs; it keeps
     # explicit zeros, which are real distances here (touching units).
     mat = sp.csr_array(sp.coo_array((data, (rows, cols)), shape=(n, n)))

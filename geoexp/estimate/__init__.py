@@ -1,0 +1,19 @@
+"""Estimates of direct and spillover effects, and displacement indices.
+
+Horvitz–Thompson and Hajek estimators of exposure contrasts with the
+conservative variance of Aronow & Samii (2017); the difference in means with
+Neyman's variance for designs without interference; the weighted displacement
+quotient of Bowers & Johnson (2003).
+"""
+
+from geoexp.estimate._displacement import DisplacementIndex, weighted_displacement_quotient
+from geoexp.estimate._horvitz import ContrastEstimate, estimate_contrast
+from geoexp.estimate._neyman import difference_in_means
+
+__all__ = [
+    "ContrastEstimate",
+    "DisplacementIndex",
+    "difference_in_means",
+    "estimate_contrast",
+    "weighted_displacement_quotient",
+]

@@ -1,0 +1,187 @@
+"""Horvitz–Thompson / Hajek contrasts, their variance, Neyman's variance, displacement indices."""
+
+from __future__ import annotations
+
+import itertools
+
+import numpy as np
+import pytest
+import statsmodels.api as sm
+
+from geoexp.estimate import (
+    difference_in_means,
+    estimate_contrast,
+    weighted_displacement_quotient,
+)
+from geoexp.estimate import _horvitz
+from geoexp.exposure import ConditionBits
+
+LABELS = ("treated, none", "treated, neighbour", "control, neighbour", "control, none")
+
+
+def path_enumeration():
+    """CHECKS.md section 1: a path of 6 units, m = 2, all 15 assignments, four conditions."""
+    n = 6
+    b = np.array([5, 8, 3, 6, 9, 4.0])
+    assigns = list(itertools.combinations(range(n), 2))
+    conds = np.zeros((len(assigns), n), dtype=int)
+    for r, a in enumerate(assigns):
+        z = np.zeros(n, dtype=int)
+        z[list(a)] = 1
+        nb = np.zeros(n, dtype=int)
+        nb[1:] += z[:-1]
+        nb[:-1] += z[1:]
+        conds[r] = np.where(z == 1, np.where(nb > 0, 1, 0), np.where(nb > 0, 2, 3))
+    po = np.stack([b - 3, b - 2, b + 1, b]).T
+    return conds, po
+
+
+def bits_of(conds: np.ndarray, n_cond: int) -> ConditionBits:
+    r, n = conds.shape
+    words = -(-r // 64)
+    bits = np.zeros((n_cond, n, words), dtype=np.uint64)
+    for c in range(n_cond):
+        hit = (conds == c).T  # (n, r)
+        padded = np.zeros((n, words * 64), dtype=bool)
+        padded[:, :r] = hit
+        bits[c] = np.packbits(padded, axis=1, bitorder="little").view(np.uint64)
+    return ConditionBits(ids=None, positions=np.arange(n), bits=bits, n_draws=r)
+
+
+def textbook_variance(k, l, y, d, pi, joint):
+    """Aronow & Samii (2017) conservative variance, written out pair by pair (CHECKS.md 1)."""
+    n = y.size
+
+    def v(c):
+        one = (d == c).astype(float)
+        p = pi[:, c]
+        out = np.sum(one * (1 - p) * (y / p) ** 2)
+        for i, j in itertools.permutations(range(n), 2):
+            pij = joint(c, c)[i, j]
+            if pij > 0:
+                out += one[i] * one[j] * (pij - p[i] * p[j]) / pij * y[i] * y[j] / (p[i] * p[j])
+            else:
+                out += one[i] * y[i] ** 2 / (2 * p[i]) + one[j] * y[j] ** 2 / (2 * p[j])
+        return out
+
+    ok, ol = (d == k).astype(float), (d == l).astype(float)
+    cov = 0.0
+    for i, j in itertools.product(range(n), repeat=2):
+        pij = joint(k, l)[i, j]
+        if pij > 0:
+            cov += ok[i] * ol[j] * (pij - pi[i, k] * pi[j, l]) / pij * y[i] * y[j] / (
+                pi[i, k] * pi[j, l]
+            )
+        else:
+            cov -= ok[i] * y[i] ** 2 / (2 * pi[i, k]) + ol[j] * y[j] ** 2 / (2 * pi[j, l])
+    return (v(k) + v(l) - 2 * cov) / n**2
+
+
+@pytest.mark.parametrize(("k", "truth", "true_var"), [(0, -3.0, 42.0648), (2, 1.0, 43.1449)])
+def test_horvitz_thompson_is_unbiased_by_exact_enumeration(k, truth, true_var):
+    # CHECKS.md section 1 [A]: exact enumeration of all 15 assignments
+    conds, po = path_enumeration()
+    bits = bits_of(conds, 4)
+    pi = bits.probabilities()
+    indicator = np.stack([(conds == c) for c in range(4)]).astype(float)
+
+    def joint(a, b):
+        return indicator[a].T @ indicator[b] / conds.shape[0]
+
+    ests, variances, textbook = [], [], []
+    for d in conds:
+        y = po[np.arange(6), d]
+        e = estimate_contrast(y, d, pi, k, 3, bits, labels=LABELS, estimator="horvitz-thompson")
+        ests.append(e.estimate)
+        variances.append(e.std_error**2)
+        textbook.append(textbook_variance(k, 3, y, d, pi, joint))
+    # [A] the HT contrast is unbiased: its mean over all assignments is the true contrast
+    assert np.mean(ests) == pytest.approx(truth, abs=1e-12)
+    assert np.var(ests) == pytest.approx(true_var, abs=1e-3)
+    # the estimator equals the pair-by-pair formula in every assignment ...
+    np.testing.assert_allclose(variances, textbook, rtol=1e-10)
+    # ... and is conservative: its mean is at least the true variance
+    assert np.mean(variances) >= np.var(ests)
+
+
+def test_near_pairs_give_the_dense_answer_when_all_pairs_are_near(monkeypatch):
+    conds, po = path_enumeration()
+    bits = bits_of(conds, 4)
+    pi = bits.probabilities()
+    d = conds[4]
+    y = po[np.arange(6), d]
+    dense = estimate_contrast(y, d, pi, 2, 3, bits, labels=LABELS, estimator="horvitz-thompson")
+    a, b = np.array([(i, j) for i in range(6) for j in range(6) if i != j]).T
+    monkeypatch.setattr(_horvitz, "DENSE_LIMIT", 0)
+    sparse = estimate_contrast(
+        y, d, pi, 2, 3, bits, labels=LABELS, estimator="horvitz-thompson", near=(a, b)
+    )
+    assert sparse.std_error == pytest.approx(dense.std_error, rel=1e-12)
+    assert sparse.joint != dense.joint
+
+
+def test_trivial_mapping_gives_the_difference_in_means():
+    # [A] condition = own assignment under complete randomization: pi = m/n for every unit,
+    # so both HT and Hajek contrasts equal the difference in means.
+    rng = np.random.default_rng(0)
+    n, m = 12, 5
+    assigns = list(itertools.combinations(range(n), m))
+    conds = np.ones((len(assigns), n), dtype=int)
+    for r, a in enumerate(assigns):
+        conds[r, list(a)] = 0
+    bits = bits_of(conds, 2)
+    pi = bits.probabilities()
+    y = rng.normal(10, 3, size=n)
+    d = conds[17]
+    dim = y[d == 0].mean() - y[d == 1].mean()
+    for estimator in ("horvitz-thompson", "hajek"):
+        e = estimate_contrast(y, d, pi, 0, 1, bits, labels=("t", "c"), estimator=estimator)
+        assert e.estimate == pytest.approx(dim)
+
+
+def test_neyman_standard_error_equals_hc2():
+    # CHECKS.md section 3 [L]: Neyman SE equals statsmodels OLS HC2 (Samii & Aronow 2012)
+    y_t, y_c = [3, 7, 2, 9, 4], [1, 0, 2, 5, 1, 3]
+    y = np.array(y_t + y_c, dtype=float)
+    z = np.array([1] * 5 + [0] * 6, dtype=bool)
+    e = difference_in_means(y, z)
+    hc2 = sm.OLS(y, sm.add_constant(z.astype(float))).fit(cov_type="HC2").bse[1]
+    assert e.estimate == pytest.approx(3.0)
+    assert e.std_error == pytest.approx(hc2, rel=1e-10)
+    assert e.std_error == pytest.approx(1.4944341, abs=1e-6)
+
+
+def test_positivity_exclusions_are_counted():
+    conds, po = path_enumeration()
+    bits = bits_of(conds, 4)
+    pi = bits.probabilities().copy()
+    pi[0, 3] = 0.0  # pretend unit 0 can never be a pure control
+    d = conds[3]
+    y = po[np.arange(6), d]
+    e = estimate_contrast(y, d, pi, 0, 3, bits, labels=LABELS)
+    assert e.n_units == 5 and e.n_excluded == 1
+
+
+@pytest.mark.parametrize(
+    ("counts", "wdq", "tne"),
+    [
+        # CHECKS.md section 6 [A]: computed from the formulas, not the paper's own example
+        ((100, 70, 80, 72, 1000, 1000), 0.266667, 38.0),
+        ((50, 40, 60, 75, 500, 520), -1.05, -0.6),
+    ],
+)
+def test_weighted_displacement_quotient(counts, wdq, tne):
+    index = weighted_displacement_quotient(*counts)
+    assert index.wdq == pytest.approx(wdq, abs=1e-6)
+    assert index.total_net_effect == pytest.approx(tne, abs=1e-9)
+    # [A] identity of Bowers & Johnson (2003): TNE = -C_a * SM * (1 + WDQ)
+    c_a = counts[5]
+    assert index.total_net_effect == pytest.approx(
+        -c_a * index.success_measure * (1 + index.wdq), rel=1e-12
+    )
+
+
+def test_displacement_readings():
+    assert "diffusion" in weighted_displacement_quotient(100, 70, 80, 72, 1000, 1000).reading
+    assert "outweighs" in weighted_displacement_quotient(50, 40, 60, 75, 500, 520).reading
+    assert "cannot be read" in weighted_displacement_quotient(50, 60, 60, 75, 500, 520).reading
