@@ -131,7 +131,12 @@ def test_same_spec_and_seed_give_the_same_assignment_in_another_process(tmp_path
 
 def test_blocked_design_treats_the_quota_in_every_block(region_path, units, graph):
     design = make(
-        region_path, units, graph, method="blocked", block_column="district", block_share=0.25,
+        region_path,
+        units,
+        graph,
+        method="blocked",
+        block_column="district",
+        block_share=0.25,
         treated=None,
     )
     blocks = units.frame["district"].to_numpy()

@@ -9,11 +9,11 @@ import pytest
 import statsmodels.api as sm
 
 from geoexp.estimate import (
+    _horvitz,
     difference_in_means,
     estimate_contrast,
     weighted_displacement_quotient,
 )
-from geoexp.estimate import _horvitz
 from geoexp.exposure import ConditionBits
 
 LABELS = ("treated, none", "treated, neighbour", "control, neighbour", "control, none")
@@ -69,8 +69,14 @@ def textbook_variance(k, l, y, d, pi, joint):
     for i, j in itertools.product(range(n), repeat=2):
         pij = joint(k, l)[i, j]
         if pij > 0:
-            cov += ok[i] * ol[j] * (pij - pi[i, k] * pi[j, l]) / pij * y[i] * y[j] / (
-                pi[i, k] * pi[j, l]
+            cov += (
+                ok[i]
+                * ol[j]
+                * (pij - pi[i, k] * pi[j, l])
+                / pij
+                * y[i]
+                * y[j]
+                / (pi[i, k] * pi[j, l])
             )
         else:
             cov -= ok[i] * y[i] ** 2 / (2 * pi[i, k]) + ol[j] * y[j] ** 2 / (2 * pi[j, l])

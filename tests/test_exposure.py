@@ -49,8 +49,12 @@ def test_complete_randomization_matches_hypergeometric():
     none_in_1 = hypergeom(M=n - 1, n=g1, N=m).pmf(0)  # scipy.stats.hypergeom
     none_in_12 = hypergeom(M=n - 1, n=g1 + g2, N=m).pmf(0)
     expected = np.array(
-        [m / n, (1 - m / n) * (1 - none_in_1), (1 - m / n) * (none_in_1 - none_in_12),
-         (1 - m / n) * none_in_12]
+        [
+            m / n,
+            (1 - m / n) * (1 - none_in_1),
+            (1 - m / n) * (none_in_1 - none_in_12),
+            (1 - m / n) * none_in_12,
+        ]
     )
     assert np.all(np.abs(p - expected) <= 4 * np.maximum(se, 1e-12))
     # the worked example of CHECKS.md section 1 (n=10, m=3, g=2): control with a treated
@@ -118,8 +122,15 @@ def test_numba_and_numpy_engines_agree_exactly():
     out = {}
     for engine in ("numba", "numpy"):
         out[engine] = scatter_counts(
-            draws.indptr, draws.indices, graph.indptr, graph.indices, graph.distances, edges,
-            400, cov, engine=engine,
+            draws.indptr,
+            draws.indices,
+            graph.indptr,
+            graph.indices,
+            graph.distances,
+            edges,
+            400,
+            cov,
+            engine=engine,
         )
     np.testing.assert_array_equal(out["numba"][0], out["numpy"][0])
     np.testing.assert_array_equal(out["numba"][1], out["numpy"][1])

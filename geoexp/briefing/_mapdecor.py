@@ -69,8 +69,8 @@ def scale_bar(
     ax.add_patch(
         Rectangle(
             (left - pad, bottom - pad),
-            length + 2 * pad + (x1 - x0) * 0.05,
-            height + 3.2 * pad + (y1 - y0) * 0.025,
+            length + 2 * pad + (x1 - x0) * 0.045,
+            height + 2.2 * pad + (y1 - y0) * 0.022,
             facecolor="white",
             edgecolor="black",
             linewidth=0.4,
@@ -123,7 +123,9 @@ def true_north_angle(crs, x: float, y: float) -> float:
     return math.degrees(math.atan2(-dx, dy))
 
 
-def north_arrow(ax: Axes, *, angle: float = 0.0, anchor: tuple[float, float] = (0.95, 0.86)) -> None:
+def north_arrow(
+    ax: Axes, *, angle: float = 0.0, anchor: tuple[float, float] = (0.95, 0.86)
+) -> None:
     """Draw a north arrow pointing ``angle`` degrees counter-clockwise from the map's top."""
     fig = ax.figure
     bbox = ax.get_position()
@@ -154,5 +156,10 @@ def north_arrow(ax: Axes, *, angle: float = 0.0, anchor: tuple[float, float] = (
         fontsize=10,
         fontweight="bold",
         zorder=22,
-        bbox={"boxstyle": "circle,pad=0.15", "facecolor": "white", "edgecolor": "none", "alpha": 0.9},
+        bbox={
+            "boxstyle": "circle,pad=0.15",
+            "facecolor": "white",
+            "edgecolor": "none",
+            "alpha": 0.9,
+        },
     )

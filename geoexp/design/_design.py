@@ -59,20 +59,29 @@ class Design:
         *,
         units: UnitSet | None = None,
         graph: ExposureGraph | None = None,
+        eligible: np.ndarray | None = None,
     ) -> Design:
         """Resolve a spec: read the units, select the eligible ones, build the graph and sampler.
 
         ``units`` and ``graph`` may be passed to reuse ones already built (they
-        must be the spec's layer and wide enough for its bands and gap).
+        must be the spec's layer and wide enough for its bands and gap);
+        ``eligible`` (a boolean mask over the units) replaces the spec's
+        eligibility rules, as when a design is rebuilt from its trial file.
         """
         notes: list[str] = []
         if units is None:
             u = spec.units
             units = UnitSet.from_file(spec.resolve(u.path), u.id_column, layer=u.layer, crs=u.crs)
         notes.append(units.crs_report)
-        eligible_units = _eligible_units(spec, units)
-        notes.extend(n for n in eligible_units.notes if n not in units.notes)
-        eligible = np.asarray(units.ids.isin(eligible_units.ids))
+        if eligible is None:
+            eligible_units = _eligible_units(spec, units)
+            notes.extend(n for n in eligible_units.notes if n not in units.notes)
+            eligible = np.asarray(units.ids.isin(eligible_units.ids))
+        else:
+            eligible = np.asarray(eligible, dtype=bool)
+            if eligible.shape != (units.n,):
+                raise DesignError(f"eligible must be a mask over the {units.n} units")
+            notes.append(f"{int(eligible.sum())} eligible units as recorded")
         if not eligible.any():
             raise InfeasibleDesignError(
                 f"no unit of {units.source!r} is eligible after the rules in [eligible]"
@@ -101,6 +110,52 @@ class Design:
         """(assignment stream, Monte Carlo stream), both children of the spec's seed."""
         root = np.random.SeedSequence(self.spec.seed)
         return child_sequence(root, 0), child_sequence(root, 1)
+
+    def stream(self, purpose: int) -> np.random.SeedSequence:
+        """Child stream ``purpose`` of the spec's seed (0 assignment, 1 Monte Carlo, 2+ tests)."""
+        return child_sequence(np.random.SeedSequence(self.spec.seed), purpose)
+
+    @classmethod
+    def from_trial(cls, trial) -> tuple[Design, Assignment]:
+        """Rebuild a trial's design from its trial file, with its stored assignment.
+
+        The units, their eligibility and the spec come from the file itself, so
+        the analysis does not depend on the original layer still being around.
+        The spec's seed is drawn again and must give the stored assignment;
+        if it does not, the file was altered or the environment differs, and
+        the analysis refuses rather than use probabilities of another design.
+        """
+        from geoexp.trialfile import TrialFile
+
+        tf = trial if isinstance(trial, TrialFile) else TrialFile.open(trial)
+        if not tf.is_locked:
+            raise DesignError(f"trial file {str(tf.path)!r} holds no drawn assignment yet")
+        frame = tf.units()
+        eligible = frame["eligible"].astype(bool).to_numpy()
+        units = UnitSet.from_frame(
+            frame.drop(columns=["eligible"]), None, source=f"{tf.path} (units layer)"
+        )
+        design = cls.from_spec(tf.spec(), units=units, eligible=eligible)
+        stored = tf.assignment().reindex(units.ids)
+        treated = stored["treated"].astype(bool).to_numpy()
+        again = design.draw()
+        if not np.array_equal(again.treated, treated):
+            raise DesignError(
+                f"the assignment stored in {str(tf.path)!r} is not the one its spec and seed "
+                f"draw ({int((again.treated != treated).sum())} units differ). The file may have "
+                "been edited by hand; geoexp will not analyse it with another design's probabilities."
+            )
+        assignment = Assignment(
+            ids=units.ids,
+            treated=treated,
+            conditions=again.conditions,
+            eligible=eligible,
+            mapping=design.mapping,
+            spec_hash=design.spec.hash,
+            seed=design.spec.seed,
+            drawn_at=tf.meta.get("drawn_at", ""),
+        )
+        return design, assignment
 
     @property
     def eligible_ids(self) -> pd.Index:

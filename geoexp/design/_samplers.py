@@ -6,11 +6,12 @@ whatever that procedure implies; geoexp estimates them by Monte Carlo from
 many draws of the very same sampler, and randomization tests redraw from it.
 
 Reproducibility: ``rng`` is normalised once to a ``numpy.random.SeedSequence``;
-chunk k of the draws uses the k-th child of ``SeedSequence.spawn``, so the
-result depends only on (seed, n_draws, chunk size). Default chunk sizes are
-fixed constants, so ``draw_many(R, seed)`` is the same on every machine.
-Passing the same ``SeedSequence`` object twice gives different draws (its
-spawn counter advances, as numpy intends); pass an int seed to repeat.
+chunk k of the draws uses the child of that sequence with key k (the child
+``SeedSequence.spawn`` would give first, derived without advancing the
+parent's spawn counter), so the result depends only on (seed, n_draws, chunk
+size), and passing the same SeedSequence twice repeats the draws. Default
+chunk sizes are fixed constants, so ``draw_many(R, seed)`` is the same on
+every machine.
 """
 
 from __future__ import annotations
@@ -26,7 +27,7 @@ import scipy.linalg
 import scipy.sparse
 import scipy.stats
 
-from geoexp._rng import RngLike, as_seed_sequence
+from geoexp._rng import RngLike, as_seed_sequence, child_sequence
 from geoexp.design._draws import Draws
 from geoexp.design._kernels import (
     DONE,
@@ -60,7 +61,7 @@ def _readonly(array: np.ndarray) -> np.ndarray:
 
 
 def _generators(seed: np.random.SeedSequence, k: int) -> list[np.random.Generator]:
-    return [np.random.default_rng(s) for s in seed.spawn(k)]
+    return [np.random.default_rng(child_sequence(seed, i)) for i in range(k)]
 
 
 def _positive_int(value: Any, what: str) -> int:
@@ -244,8 +245,8 @@ class _Chunked:
         return self._chunks(n_draws, seed, chunk)
 
     def _chunks(self, n_draws: int, seed: np.random.SeedSequence, chunk: int) -> Iterator[Draws]:
-        for start in range(0, n_draws, chunk):
-            yield self._draw_chunk(min(chunk, n_draws - start), seed.spawn(1)[0])
+        for index, start in enumerate(range(0, n_draws, chunk)):
+            yield self._draw_chunk(min(chunk, n_draws - start), child_sequence(seed, index))
 
 
 @dataclass(frozen=True, eq=False)
@@ -941,7 +942,7 @@ class Rerandomized(_Chunked):
         while got < n_draws:
             need = n_draws - got
             batch = min(cap, int(math.ceil(need / self.acceptance * 1.2)) + 16)
-            draws = self.base.draw_many(batch, seed.spawn(1)[0])
+            draws = self.base.draw_many(batch, child_sequence(seed, tried))
             distance = self.mahalanobis(draws)
             ok = np.flatnonzero(distance <= self.threshold)[:need]
             if ok.size:

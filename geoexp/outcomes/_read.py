@@ -131,7 +131,9 @@ def read_incidents(
     needed = [date_column, type_column, x, y, lon, lat]
     _require_columns(frame, [c for c in needed if c is not None], source)
 
-    shell = IncidentRows(frame, np.empty(0), np.empty(0), np.empty(0), np.empty(0), None, source, row_kind)
+    shell = IncidentRows(
+        frame, np.empty(0), np.empty(0), np.empty(0), np.empty(0), None, source, row_kind
+    )
     if x is not None:
         if crs is None:
             raise CRSError(

@@ -1,0 +1,21 @@
+"""Printable briefing packs for field teams.
+
+:func:`briefing_pack` writes a PDF (A4 or US Letter) with a cover carrying the
+cautions for field staff, an overview map of all districts, and for each
+district a map of its numbered treated places with the list that goes with it.
+:func:`plan_briefing` tells in advance which districts, numbers and pages the
+pack will have.
+"""
+
+from geoexp.briefing._pack import FIELD_NOTES, briefing_pack, plan_briefing
+from geoexp.briefing._plan import BriefingPlan, DistrictPages, PageLayout, page_layout
+
+__all__ = [
+    "FIELD_NOTES",
+    "BriefingPlan",
+    "DistrictPages",
+    "PageLayout",
+    "briefing_pack",
+    "page_layout",
+    "plan_briefing",
+]

@@ -1,0 +1,88 @@
+"""The ``map`` command: the interactive planning map, or a draw-only map before a design."""
+
+from __future__ import annotations
+
+from pathlib import Path
+from typing import Annotated
+
+import typer
+
+from geoexp.cli._app import app, console
+
+
+def _tiles(value: str) -> str | None:
+    return None if value.lower() in ("none", "plain") else value
+
+
+def _draw_only_map(spec_path: Path, districts: Path | None, tiles: str | None):
+    """Units of a spec with their eligibility so far, before any design is drawn."""
+    from geoexp.design import DesignSpec
+    from geoexp.maps import drawing_map
+    from geoexp.units import UnitSet
+
+    spec = DesignSpec.from_toml(spec_path)
+    u = spec.units
+    units = UnitSet.from_file(spec.resolve(u.path), u.id_column, layer=u.layer, crs=u.crs)
+    # The same eligibility steps, in the same order, as the design applies.
+    rules = spec.eligible
+    eligible = units
+    if rules.where:
+        eligible = eligible.select(rules.where)
+    for zone in rules.exclude:
+        eligible = eligible.exclude(spec.resolve(zone), how=rules.exclude_how)
+    if rules.top_column:
+        eligible = eligible.top(rules.top_column, k=rules.top_k, share=rules.top_share)
+    return drawing_map(
+        units,
+        eligible=eligible.ids,
+        districts=districts,
+        district_column=spec.field.district_column,
+        description_column=spec.field.description_column,
+        zones=[spec.resolve(z) for z in rules.exclude],
+        title=f"{spec.name}: exclusion zones",
+        tiles=tiles,
+    )
+
+
+@app.command("map")
+def map_command(
+    source: Annotated[
+        Path,
+        typer.Argument(help="Trial file (GeoPackage); with --draw-only, a design spec (TOML)."),
+    ],
+    out: Annotated[Path, typer.Option("--out", "-o", help="HTML file to write.")] = Path(
+        "planning_map.html"
+    ),
+    draw_only: Annotated[
+        bool,
+        typer.Option(
+            "--draw-only",
+            help="Map a spec's eligible units with only the drawing tool, before a design exists.",
+        ),
+    ] = False,
+    districts: Annotated[
+        Path | None, typer.Option(help="District polygons (any vector file with a CRS).")
+    ] = None,
+    tiles: Annotated[
+        str,
+        typer.Option(
+            help="Base map: 'auto' (OpenStreetMap; none for the sample city), 'none', or a "
+            "tile name or URL template."
+        ),
+    ] = "auto",
+) -> None:
+    """Make the interactive planning map: one HTML page that works offline (apart from tiles)."""
+    from geoexp.maps import planning_map, save_map
+
+    if draw_only:
+        m = _draw_only_map(source, districts, _tiles(tiles))
+    else:
+        m = planning_map(source, districts=districts, tiles=_tiles(tiles))
+    path = save_map(m, out)
+    size_kb = path.stat().st_size / 1024
+    console.print(f"Map written: {path} ({size_kb:,.0f} KB)")
+    console.print(
+        "Draw exclusion zones with the polygon or rectangle tool, press 'Save zones', and list "
+        "the file under [eligible] exclude in the design spec.",
+        markup=False,
+    )

@@ -1,0 +1,24 @@
+"""Randomization-based inference with the design's own sampler.
+
+One significance routine (:func:`significance`) serves every test: Fisher's
+test of the sharp null of no effect at all, the conditional test of no
+spillover on focal units (Athey, Eckles & Imbens 2018), and intervals for a
+constant additive effect by test inversion.
+"""
+
+from geoexp.inference._conditional import FixedFocalSampler, default_focal_units, spillover_test
+from geoexp.inference._draws import ContrastSpec
+from geoexp.inference._fisher import fisher_test
+from geoexp.inference._inversion import invert_constant_effect
+from geoexp.inference._significance import RandomizationTest, significance
+
+__all__ = [
+    "ContrastSpec",
+    "FixedFocalSampler",
+    "RandomizationTest",
+    "default_focal_units",
+    "fisher_test",
+    "invert_constant_effect",
+    "significance",
+    "spillover_test",
+]

@@ -1,0 +1,71 @@
+"""Fisher randomization test of the sharp null of no effect at all."""
+
+from __future__ import annotations
+
+from typing import TYPE_CHECKING
+
+import numpy as np
+
+from geoexp._rng import RngLike
+from geoexp.inference._draws import (
+    ContrastSpec,
+    draw_sums,
+    observed_sums,
+    population,
+    statistic_from_sums,
+    weight_columns,
+)
+from geoexp.inference._significance import Alternative, RandomizationTest, significance
+
+if TYPE_CHECKING:
+    from geoexp.design import Design
+
+
+def fisher_test(
+    design: Design,
+    observed: np.ndarray,
+    y: np.ndarray,
+    probabilities: np.ndarray,
+    contrast: ContrastSpec,
+    *,
+    n_draws: int = 2000,
+    rng: RngLike = None,
+    estimator: str = "hajek",
+    alternative: Alternative = "two-sided",
+    keep_null: bool = False,
+) -> RandomizationTest:
+    """Fisher's randomization test of the sharp null that treatment changes no unit's outcome.
+
+    Under the sharp null every unit's outcome is what was observed whatever the
+    assignment, so the distribution of the contrast statistic is that of the
+    design's own sampler applied to fixed outcomes (Fisher 1935). The draws
+    come from the design's sampler, so rerandomization rules, gaps and floors
+    are respected. Rejecting "no effect at all" is not evidence of spillover
+    in particular; see :func:`spillover_test`.
+    """
+    y = np.asarray(y, dtype=float)
+    cols = weight_columns(y, probabilities, contrast)
+    n = int(population(probabilities, contrast).sum())
+    t_obs = float(
+        statistic_from_sums(
+            observed_sums(cols, observed, contrast.k),
+            observed_sums(cols, observed, contrast.l),
+            estimator,
+            n,
+        )
+    )
+    rng = design.stream(2) if rng is None else rng
+    sums = draw_sums(design.sampler, design.graph, design.mapping, cols, n_draws, rng)
+    null = statistic_from_sums(sums[:, contrast.k, :], sums[:, contrast.l, :], estimator, n)
+    p, mc, undefined = significance(t_obs, null, alternative)
+    labels = design.mapping.labels
+    return RandomizationTest(
+        null=f"no effect at all ({labels[contrast.k]} vs {labels[contrast.l]} statistic)",
+        statistic=t_obs,
+        p_value=p,
+        mc_error=mc,
+        n_draws=n_draws,
+        alternative=alternative,
+        n_undefined=undefined,
+        null_draws=null if keep_null else None,
+    )

@@ -1,0 +1,697 @@
+"""Outcome tables: incident counts per unit for a pre-period and a post-period.
+
+Every incident either is counted once (in one period, on one unit) or is
+dropped for exactly one reason, checked in this order:
+
+1. ``missing coordinates`` -- no usable coordinates;
+2. ``missing date`` -- the date cell is empty;
+3. ``unparseable date`` -- the date cannot be read;
+4. ``outside periods`` -- the date is in neither period;
+5. ``outside tolerance`` -- no unit lies within the snapping tolerance.
+
+So counted plus dropped always equals the number of input rows. Periods are
+closed intervals of calendar dates, ``[start, end]``, both days included.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+import json
+import math
+import os
+import re
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Literal
+
+import numpy as np
+import pandas as pd
+import shapely
+
+from geoexp._atomic import atomic_path
+from geoexp.errors import InputError, describe_rows
+from geoexp.outcomes._read import DATE_MISSING, DATE_UNPARSEABLE, IncidentRows, read_incidents
+from geoexp.outcomes._snap import id_rank, snap
+from geoexp.trialfile import TrialFile
+from geoexp.units import UnitSet
+
+Period = tuple[object, object]
+DateFormat = Literal["iso", "dmy", "mdy"] | str
+
+# Reason codes, in the order they are checked; 0 means counted.
+REASONS = (
+    "missing coordinates",
+    "missing date",
+    "unparseable date",
+    "outside periods",
+    "outside tolerance",
+)
+_FIELDS = tuple(r.replace(" ", "_") for r in REASONS)
+UNTYPED = "untyped"
+_LAYER = "outcomes"
+_META_PREFIX = "outcomes_"
+
+
+# --------------------------------------------------------------------- periods
+
+
+def _as_date(value: object, what: str) -> dt.date:
+    if isinstance(value, dt.datetime):
+        return value.date()
+    if isinstance(value, dt.date):
+        return value
+    if isinstance(value, np.datetime64) and not np.isnat(value):
+        return pd.Timestamp(value).date()
+    if isinstance(value, str) and re.fullmatch(r"\s*\d{4}-\d{2}-\d{2}\s*", value):
+        try:
+            return dt.date.fromisoformat(value.strip())
+        except ValueError as err:
+            raise InputError(f"{what}: {value!r} is not a calendar date ({err})") from None
+    raise InputError(
+        f"{what}: {value!r} is not a date; give dates as 'YYYY-MM-DD' text or datetime.date"
+    )
+
+
+def parse_period(period: Period, name: str) -> tuple[dt.date, dt.date]:
+    """Check one ``(start, end)`` period and return it as two ``datetime.date``."""
+    if isinstance(period, str) or not hasattr(period, "__len__") or len(period) != 2:
+        raise InputError(
+            f"{name}= must be a (start, end) pair of dates, e.g. ('2024-01-01', '2024-12-31'); "
+            f"got {period!r}"
+        )
+    start = _as_date(period[0], f"the start of {name}=")
+    end = _as_date(period[1], f"the end of {name}=")
+    if end < start:
+        raise InputError(f"{name}= ends ({end}) before it starts ({start})")
+    return start, end
+
+
+def parse_periods(pre: Period, post: Period) -> tuple[tuple[dt.date, dt.date], ...]:
+    """Check both periods: each well formed, no day shared, the post-period after the pre."""
+    pre_d, post_d = parse_period(pre, "pre"), parse_period(post, "post")
+    if pre_d[0] <= post_d[1] and post_d[0] <= pre_d[1]:
+        shared_from, shared_to = max(pre_d[0], post_d[0]), min(pre_d[1], post_d[1])
+        raise InputError(
+            f"the periods overlap: pre {pre_d[0]} to {pre_d[1]} and post {post_d[0]} to "
+            f"{post_d[1]} share {shared_from} to {shared_to} (both ends are included); an "
+            "incident on those days would belong to both"
+        )
+    if post_d[0] < pre_d[0]:
+        raise InputError(
+            f"the post-period ({post_d[0]} to {post_d[1]}) comes before the pre-period "
+            f"({pre_d[0]} to {pre_d[1]}); did you swap pre= and post=?"
+        )
+    return pre_d, post_d
+
+
+def _days(period: tuple[dt.date, dt.date]) -> int:
+    return (period[1] - period[0]).days + 1
+
+
+# ----------------------------------------------------------------- drop report
+
+
+@dataclass(frozen=True)
+class DropReport:
+    """What happened to every incident: counted, or dropped and why.
+
+    Attributes
+    ----------
+    n_incidents : int
+        Rows read.
+    missing_coordinates, missing_date, unparseable_date, outside_periods, outside_tolerance : int
+        Incidents dropped for each reason (each incident for the first reason
+        that applies, in this order).
+    ties : int
+        Counted incidents whose nearest distance was shared by two or more
+        units; each went to the tied unit with the smallest id.
+    tolerance_m : float or None
+        Snapping tolerance in metres (None for a ready table of counts).
+    source : str
+        Where the incidents came from.
+    dropped_path : str or None
+        The CSV of dropped rows, if one was written.
+    """
+
+    n_incidents: int
+    missing_coordinates: int = 0
+    missing_date: int = 0
+    unparseable_date: int = 0
+    outside_periods: int = 0
+    outside_tolerance: int = 0
+    ties: int = 0
+    tolerance_m: float | None = None
+    source: str = ""
+    dropped_path: str | None = None
+
+    def counts(self) -> dict[str, int]:
+        """Dropped incidents by reason (plain-words keys, as in the side file)."""
+        return {r: int(getattr(self, f)) for r, f in zip(REASONS, _FIELDS, strict=True)}
+
+    @property
+    def n_dropped(self) -> int:
+        """Incidents dropped, all reasons together."""
+        return sum(self.counts().values())
+
+    @property
+    def n_counted(self) -> int:
+        """Incidents counted on a unit in one of the periods."""
+        return self.n_incidents - self.n_dropped
+
+    def to_frame(self) -> pd.DataFrame:
+        """One row per reason with the number of incidents dropped for it."""
+        frame = pd.DataFrame({"reason": list(REASONS), "incidents": list(self.counts().values())})
+        return frame.set_index("reason")
+
+    def __str__(self) -> str:
+        tol = "the tolerance" if self.tolerance_m is None else f"{self.tolerance_m:g} m"
+        words = {
+            "missing coordinates": "had no usable coordinates",
+            "missing date": "had no date",
+            "unparseable date": "had a date that could not be read",
+            "outside periods": "had a date outside both periods",
+            "outside tolerance": f"lay more than {tol} from every unit",
+        }
+        where = f" from '{self.source}'" if self.source else ""
+        text = (
+            f"Of {self.n_incidents:,} incidents{where}, {self.n_counted:,} were counted and "
+            f"{self.n_dropped:,} dropped"
+        )
+        parts = [f"{n:,} {words[r]} ({r})" for r, n in self.counts().items() if n]
+        text += (": " + "; ".join(parts) + ".") if parts else "."
+        if self.ties:
+            text += (
+                f" {self.ties:,} counted incidents were equally near two or more units and went "
+                "to the one with the smallest id."
+            )
+        if self.outside_tolerance and self.n_counted == 0:
+            text += (
+                " No incident was near any unit: check that the incidents' CRS (crs=, or "
+                "x/y against lon/lat) is right."
+            )
+        if self.dropped_path:
+            text += f" The dropped rows, with a 'reason' column, are in '{self.dropped_path}'."
+        return text
+
+
+# ---------------------------------------------------------------- the table
+
+
+def _type_column_names(types: tuple[str, ...]) -> dict[str, str]:
+    # Column-safe names: "theft from vehicle" -> "theft_from_vehicle".
+    names: dict[str, str] = {}
+    for label in types:
+        slug = re.sub(r"[^0-9a-z]+", "_", label.lower()).strip("_")
+        if not slug:
+            raise InputError(f"incident type {label!r} has no letters or digits to name a column")
+        clash = [k for k, v in names.items() if v == slug]
+        if clash:
+            raise InputError(
+                f"incident types {clash[0]!r} and {label!r} would share the column name "
+                f"{slug!r}; rename one of them"
+            )
+        names[label] = slug
+    return names
+
+
+@dataclass(frozen=True, eq=False)
+class OutcomeTable:
+    """Incident counts per unit for a pre-period and a post-period.
+
+    Build one with :func:`count_incidents`, :meth:`from_counts` or
+    :func:`load_outcomes`; the constructor itself does no checking.
+
+    Attributes
+    ----------
+    counts : pandas.DataFrame
+        Indexed by unit id over all units of the layer (zero counts
+        included); int64 columns ``pre`` and ``post``, and with incident
+        types ``pre__<type>`` and ``post__<type>`` (see :attr:`type_columns`).
+        Treat it as read-only.
+    pre, post : tuple of datetime.date
+        The periods ``(start, end)``, both days included.
+    tolerance_m : float or None
+        Snapping tolerance in metres (None for a ready table of counts).
+    drops : DropReport
+        What was dropped and why.
+    types : tuple of str
+        Incident types with their own columns, in column order.
+    source : str
+        Where the incidents or counts came from.
+    """
+
+    counts: pd.DataFrame
+    pre: tuple[dt.date, dt.date]
+    post: tuple[dt.date, dt.date]
+    tolerance_m: float | None
+    drops: DropReport
+    types: tuple[str, ...] = ()
+    source: str = ""
+
+    @classmethod
+    def from_counts(
+        cls,
+        frame: pd.DataFrame,
+        id_column: str | None,
+        *,
+        units: UnitSet | TrialFile,
+        pre: Period,
+        post: Period,
+        pre_column: str = "pre",
+        post_column: str = "post",
+        fill_missing: bool = False,
+        source: str = "<counts table>",
+    ) -> OutcomeTable:
+        """Take a ready table of counts per unit and period (e.g. from a records system).
+
+        Parameters
+        ----------
+        frame : pandas.DataFrame
+            One row per unit. Per-type counts may come as columns
+            ``<pre_column>__<type>`` and ``<post_column>__<type>`` (both needed).
+        id_column : str or None
+            Column of unit ids; ``None`` uses the frame's index.
+        units : UnitSet or TrialFile
+            The trial's units; every id must be one of theirs.
+        pre, post : (start, end)
+            The periods the counts cover, both days included.
+        pre_column, post_column : str
+            Count columns of the two periods.
+        fill_missing : bool
+            Units absent from the table get zero counts. By default their
+            absence is an error, because a forgotten unit is not a unit with
+            no incidents.
+        source : str
+            Name used in messages and reports.
+
+        Returns
+        -------
+        OutcomeTable
+
+        Raises
+        ------
+        geoexp.errors.InputError
+            Unknown, repeated or missing ids (named), missing columns, or
+            counts that are not whole numbers >= 0.
+        """
+        units = _as_units(units)
+        pre_d, post_d = parse_periods(pre, post)
+        table = frame if id_column is None else frame.set_index(id_column)
+        label = f"the counts '{source}'"
+        for col in (pre_column, post_column):
+            if col not in table.columns:
+                raise InputError(
+                    f"{label} have no column {col!r}; their columns are "
+                    f"{', '.join(repr(str(c)) for c in table.columns)}"
+                )
+        pre_types = [
+            c[len(pre_column) + 2 :] for c in table.columns if str(c).startswith(f"{pre_column}__")
+        ]
+        post_types = [
+            c[len(post_column) + 2 :]
+            for c in table.columns
+            if str(c).startswith(f"{post_column}__")
+        ]
+        if set(pre_types) != set(post_types):
+            odd = sorted(set(pre_types) ^ set(post_types))
+            raise InputError(f"{label}: types {describe_rows(odd)} have counts for only one period")
+        types = tuple(pre_types)
+        names = _type_column_names(types)
+
+        ids = table.index
+        repeated = ids[ids.duplicated()]
+        if len(repeated):
+            raise InputError(
+                f"{label} list ids more than once: {describe_rows(pd.unique(repeated))}"
+            )
+        unknown = ids[~ids.isin(units.ids)]
+        if len(unknown):
+            hint = ""
+            if ids.dtype.kind != units.ids.dtype.kind:
+                hint = f" (the table's ids are {ids.dtype}, the units' ids {units.ids.dtype})"
+            raise InputError(
+                f"{len(unknown):,} ids in {label} are not units of '{units.source}'{hint}: "
+                f"{describe_rows(list(unknown))}"
+            )
+        absent = units.ids[~units.ids.isin(ids)]
+        if len(absent) and not fill_missing:
+            raise InputError(
+                f"{len(absent):,} units of '{units.source}' are not in {label}: "
+                f"{describe_rows(list(absent))}; add them, or pass fill_missing=True to count "
+                "them as zero"
+            )
+
+        sources = {"pre": pre_column, "post": post_column}
+        for period, col in (("pre", pre_column), ("post", post_column)):
+            for t in types:
+                sources[f"{period}__{names[t]}"] = f"{col}__{t}"
+        data = {}
+        for name, col in sources.items():
+            values = pd.to_numeric(table[col], errors="coerce")
+            arr = values.to_numpy(dtype=np.float64, na_value=np.nan)
+            bad = ~np.isfinite(arr) | (arr < 0) | (np.floor(arr) != arr)
+            if bad.any():
+                raise InputError(
+                    f"column {col!r} of {label} must hold whole numbers >= 0; it does not for "
+                    f"ids {describe_rows(list(ids[bad]))}"
+                )
+            data[name] = pd.Series(arr.astype(np.int64), index=ids)
+        counts = pd.DataFrame(data).reindex(units.ids, fill_value=0)
+        counts.index.name = units.id_column
+        drops = DropReport(
+            n_incidents=int(counts["pre"].sum() + counts["post"].sum()), source=source
+        )
+        return cls(counts, pre_d, post_d, None, drops, types, source)
+
+    # ------------------------------------------------------------ properties
+    @property
+    def ids(self) -> pd.Index:
+        """Unit ids, in the units' order."""
+        return self.counts.index
+
+    @property
+    def days_pre(self) -> int:
+        """Length of the pre-period in days, both ends included."""
+        return _days(self.pre)
+
+    @property
+    def days_post(self) -> int:
+        """Length of the post-period in days, both ends included."""
+        return _days(self.post)
+
+    @property
+    def change(self) -> pd.Series:
+        """Post-period count minus pre-period count, per unit."""
+        return (self.counts["post"] - self.counts["pre"]).rename("change")
+
+    @property
+    def type_columns(self) -> dict[str, tuple[str, str]]:
+        """For each incident type, its (pre, post) column names."""
+        names = _type_column_names(self.types)
+        return {t: (f"pre__{names[t]}", f"post__{names[t]}") for t in self.types}
+
+    def to_frame(self) -> pd.DataFrame:
+        """A copy of the counts with a ``change`` column (post minus pre)."""
+        out = self.counts.copy()
+        out.insert(2, "change", self.change)
+        return out
+
+    def __str__(self) -> str:
+        lines = [
+            f"Incident counts for {len(self.counts):,} units:",
+            f"  pre  {self.pre[0]} to {self.pre[1]} ({self.days_pre} days): "
+            f"{int(self.counts['pre'].sum()):,} incidents",
+            f"  post {self.post[0]} to {self.post[1]} ({self.days_post} days): "
+            f"{int(self.counts['post'].sum()):,} incidents",
+        ]
+        if self.tolerance_m is not None:
+            lines.append(
+                f"  each incident snapped to the nearest unit within {self.tolerance_m:g} m"
+            )
+        if self.types:
+            lines.append(f"  by type: {', '.join(self.types)}")
+        lines.append("  " + str(self.drops))
+        return "\n".join(lines)
+
+
+# --------------------------------------------------------------- counting
+
+
+def _as_units(units: UnitSet | TrialFile) -> UnitSet:
+    if isinstance(units, UnitSet):
+        return units
+    if isinstance(units, TrialFile):
+        return UnitSet.from_frame(units.units(), None, source=str(units.path))
+    raise InputError(f"units must be a geoexp UnitSet or TrialFile, not {type(units).__name__}")
+
+
+def count_incidents(
+    units: UnitSet | TrialFile,
+    incidents: str | os.PathLike | pd.DataFrame,
+    *,
+    date_column: str,
+    tolerance_m: float,
+    pre: Period,
+    post: Period,
+    type_column: str | None = None,
+    by_type: bool = False,
+    x: str | None = None,
+    y: str | None = None,
+    lon: str | None = None,
+    lat: str | None = None,
+    crs: object = None,
+    date_format: DateFormat | None = None,
+    layer: str | None = None,
+    dropped_path: str | os.PathLike | None = None,
+) -> OutcomeTable:
+    """Count incidents per unit in a pre-period and a post-period.
+
+    Each incident is snapped to the nearest unit within ``tolerance_m`` metres
+    (ties go to the smallest unit id) and counted in the period its date falls
+    in. Incidents that cannot be counted are dropped for one named reason
+    (see the module notes) and reported.
+
+    Parameters
+    ----------
+    units : UnitSet or TrialFile
+        The trial's units; incidents are reprojected to their CRS, and the
+        tolerance is converted with their ``metres_per_unit`` (feet CRSs).
+    incidents : path, GeoDataFrame or DataFrame
+        A CSV (x/y or lon/lat columns), a point layer (GeoPackage, GeoJSON,
+        Shapefile) or a frame.
+    date_column : str
+        Column of incident dates.
+    tolerance_m : float
+        Snapping tolerance in metres (>= 0); 30 m is a common choice for
+        street segments (common practice).
+    pre, post : (start, end)
+        The periods as dates (``"YYYY-MM-DD"`` or ``datetime.date``), both
+        days included; they must not overlap, and post must follow pre.
+    type_column : str, optional
+        Column of incident types.
+    by_type : bool
+        Also count each type (columns ``pre__<type>``, ``post__<type>``;
+        incidents without a type count as ``untyped``).
+    x, y : str, optional
+        Projected coordinate columns, in ``crs``.
+    lon, lat : str, optional
+        Longitude/latitude columns in EPSG:4326.
+    crs : optional
+        CRS of ``x``/``y`` (required with them), or of a layer without one.
+    date_format : {"iso", "dmy", "mdy"} or str, optional
+        How dates written as text are read; default ISO 8601 only. Day/month
+        text without it raises an error rather than being guessed.
+    layer : str, optional
+        Layer of a multi-layer incidents file.
+    dropped_path : path, optional
+        Write the dropped rows here as CSV, with a ``reason`` column.
+
+    Returns
+    -------
+    OutcomeTable
+
+    Raises
+    ------
+    geoexp.errors.InputError
+        Bad periods, missing columns, day/month dates without
+        ``date_format``, a date column with no readable date.
+    geoexp.errors.CRSError
+        Coordinates without a CRS, or a CRS that contradicts the layer.
+    geoexp.errors.GeometryError
+        Incident geometry that is not points.
+    """
+    units = _as_units(units)
+    pre_d, post_d = parse_periods(pre, post)
+    if isinstance(tolerance_m, bool) or not (
+        isinstance(tolerance_m, (int, float, np.integer, np.floating))
+        and math.isfinite(tolerance_m)
+        and tolerance_m >= 0
+    ):
+        raise InputError(f"tolerance_m must be a number of metres >= 0, got {tolerance_m!r}")
+    if by_type and type_column is None:
+        raise InputError("by_type=True needs type_column=, the column of incident types")
+    rows = read_incidents(
+        incidents,
+        units.crs,
+        date_column=date_column,
+        type_column=type_column,
+        x=x,
+        y=y,
+        lon=lon,
+        lat=lat,
+        crs=crs,
+        date_format=date_format,
+        layer=layer,
+    )
+
+    reason = np.zeros(rows.n, dtype=np.int8)
+    located = np.isfinite(rows.x) & np.isfinite(rows.y)
+    in_pre = (rows.dates >= np.datetime64(pre_d[0])) & (rows.dates <= np.datetime64(pre_d[1]))
+    in_post = (rows.dates >= np.datetime64(post_d[0])) & (rows.dates <= np.datetime64(post_d[1]))
+    # Later reasons first, so that the earliest applicable reason wins.
+    reason[~(in_pre | in_post)] = 4
+    reason[rows.date_problem == DATE_UNPARSEABLE] = 3
+    reason[rows.date_problem == DATE_MISSING] = 2
+    reason[~located] = 1
+
+    candidates = np.flatnonzero(reason == 0)
+    geometry = np.asarray(units.geometry.array, dtype=object)
+    snapped = snap(
+        rows.x[candidates],
+        rows.y[candidates],
+        geometry,
+        id_rank(units.ids),
+        float(tolerance_m) / units.metres_per_unit,
+        tree=shapely.STRtree(geometry),
+    )
+    unit = np.full(rows.n, -1, dtype=np.int64)
+    unit[candidates] = snapped.unit
+    reason[candidates[snapped.unit < 0]] = 5
+    counted = reason == 0
+
+    n_units = units.n
+    data = {
+        "pre": np.bincount(unit[counted & in_pre], minlength=n_units),
+        "post": np.bincount(unit[counted & in_post], minlength=n_units),
+    }
+    types: tuple[str, ...] = ()
+    names: dict[str, str] = {}
+    if by_type:
+        labels = rows.types.copy()
+        labels[pd.isna(labels)] = UNTYPED
+        codes, uniques = pd.factorize(labels, sort=True)
+        types = tuple(str(u) for u in uniques)
+        if UNTYPED in types and (pd.Series(rows.types) == UNTYPED).any():
+            raise InputError(
+                f"column {type_column!r} of the incidents '{rows.source}' uses the type "
+                f"{UNTYPED!r}, which geoexp keeps for incidents without a type; rename it"
+            )
+        names = _type_column_names(types)
+        k = len(types)
+        for period, mask in (("pre", counted & in_pre), ("post", counted & in_post)):
+            grid = np.bincount(unit[mask] * k + codes[mask], minlength=n_units * k)
+            grid = grid.reshape(n_units, k)
+            for j, t in enumerate(types):
+                data[f"{period}__{names[t]}"] = grid[:, j]
+    counts = pd.DataFrame(
+        {name: np.asarray(v, dtype=np.int64) for name, v in data.items()}, index=units.ids
+    )
+    counts.index.name = units.id_column
+
+    per_reason = np.bincount(reason, minlength=len(REASONS) + 1)[1:]
+    written = None
+    if dropped_path is not None:
+        written = os.fspath(dropped_path)
+        _write_dropped(rows, reason, written)
+    drops = DropReport(
+        n_incidents=rows.n,
+        **{f: int(n) for f, n in zip(_FIELDS, per_reason, strict=True)},
+        ties=int(snapped.tied[snapped.unit >= 0].sum()),
+        tolerance_m=float(tolerance_m),
+        source=rows.source,
+        dropped_path=written,
+    )
+    return OutcomeTable(counts, pre_d, post_d, float(tolerance_m), drops, types, rows.source)
+
+
+def _write_dropped(rows: IncidentRows, reason: np.ndarray, path: str) -> None:
+    positions = np.flatnonzero(reason > 0)
+    out = pd.DataFrame(rows.frame.iloc[positions]).copy()
+    geometry = getattr(rows.frame, "geometry", None) if "geometry" in rows.frame else None
+    if geometry is not None:
+        out["geometry"] = shapely.to_wkt(
+            np.asarray(geometry.array, dtype=object)[positions], rounding_precision=-1
+        )
+    if "reason" in out.columns:
+        out = out.rename(columns={"reason": "input_reason"})
+    out.insert(0, "reason", np.array(REASONS, dtype=object)[reason[positions] - 1])
+    keep_index = rows.row_kind == "frame"
+    if keep_index and out.index.name is None:
+        out.index.name = "row"
+    if rows.row_kind == "csv":
+        out.insert(0, "line", np.asarray(rows.row_names(positions), dtype=np.int64))
+    elif rows.row_kind == "layer":
+        out.insert(0, "feature", positions)
+    with atomic_path(Path(path)) as tmp:
+        out.to_csv(tmp, index=keep_index, encoding="utf-8")
+
+
+# ------------------------------------------------------------ trial file
+
+
+def save_outcomes(trial: TrialFile | str | os.PathLike, table: OutcomeTable) -> TrialFile:
+    """Store an outcome table in the trial file: layer ``outcomes`` and ``outcomes_*`` meta keys.
+
+    Parameters
+    ----------
+    trial : TrialFile or path
+        The trial GeoPackage.
+    table : OutcomeTable
+        Counts for exactly the trial's units.
+
+    Returns
+    -------
+    TrialFile
+        The re-opened trial file. An earlier outcomes layer is replaced.
+    """
+    trial = trial if isinstance(trial, TrialFile) else TrialFile.open(trial)
+    unit_ids = trial.units().index
+    unknown = table.ids[~table.ids.isin(unit_ids)]
+    absent = unit_ids[~unit_ids.isin(table.ids)]
+    if len(unknown) or len(absent):
+        raise InputError(
+            f"the outcome table does not match the units of trial file '{trial.path}': "
+            f"{len(unknown):,} ids not in the trial ({describe_rows(list(unknown))}) and "
+            f"{len(absent):,} trial units without counts ({describe_rows(list(absent))})"
+        )
+    frame = table.counts.reindex(unit_ids)
+    frame.index.name = trial.id_column
+    d = table.drops
+    meta = {
+        "outcomes_pre": f"{table.pre[0]}/{table.pre[1]}",
+        "outcomes_post": f"{table.post[0]}/{table.post[1]}",
+        "outcomes_tolerance_m": "" if table.tolerance_m is None else repr(table.tolerance_m),
+        "outcomes_types": json.dumps(list(table.types)),
+        "outcomes_drops": json.dumps({**d.counts(), "n_incidents": d.n_incidents, "ties": d.ties}),
+        "outcomes_source": table.source,
+        "outcomes_dropped_path": d.dropped_path or "",
+        "outcomes_saved_at": dt.datetime.now(dt.UTC).replace(microsecond=0).isoformat(),
+    }
+    return trial.write_layers({_LAYER: frame}, meta=meta)
+
+
+def load_outcomes(trial: TrialFile | str | os.PathLike) -> OutcomeTable:
+    """Read the outcome table stored by :func:`save_outcomes`.
+
+    Parameters
+    ----------
+    trial : TrialFile or path
+        The trial GeoPackage.
+
+    Returns
+    -------
+    OutcomeTable
+    """
+    trial = trial if isinstance(trial, TrialFile) else TrialFile.open(trial)
+    if _LAYER not in trial.layers or "outcomes_pre" not in trial.meta:
+        raise InputError(
+            f"trial file '{trial.path}' holds no outcomes yet; count them and save them with "
+            "save_outcomes()"
+        )
+    meta = trial.meta
+    frame = pd.DataFrame(trial.read(_LAYER)).drop(columns="geometry", errors="ignore")
+    counts = frame.astype(np.int64)
+    pre = tuple(dt.date.fromisoformat(s) for s in meta["outcomes_pre"].split("/"))
+    post = tuple(dt.date.fromisoformat(s) for s in meta["outcomes_post"].split("/"))
+    tol = float(meta["outcomes_tolerance_m"]) if meta.get("outcomes_tolerance_m") else None
+    types = tuple(json.loads(meta["outcomes_types"]))
+    stored = json.loads(meta["outcomes_drops"])
+    drops = DropReport(
+        n_incidents=int(stored["n_incidents"]),
+        **{f: int(stored[r]) for r, f in zip(REASONS, _FIELDS, strict=True)},
+        ties=int(stored["ties"]),
+        tolerance_m=tol,
+        source=meta.get("outcomes_source", ""),
+        dropped_path=meta.get("outcomes_dropped_path") or None,
+    )
+    return OutcomeTable(counts, pre, post, tol, drops, types, meta.get("outcomes_source", ""))

@@ -1,0 +1,195 @@
+"""Randomization tests: the shared significance routine, Fisher, conditional spillover, inversion."""
+
+from __future__ import annotations
+
+import itertools
+from types import SimpleNamespace
+
+import numpy as np
+import pytest
+from scipy.spatial.distance import cdist
+from scipy.stats import chisquare, permutation_test
+
+from geoexp.design import CompleteSampler
+from geoexp.exposure import ExposureMapping, assign_conditions, exposure_probabilities
+from geoexp.graph import ExposureGraph
+from geoexp.inference import (
+    ContrastSpec,
+    FixedFocalSampler,
+    fisher_test,
+    invert_constant_effect,
+    significance,
+    spillover_test,
+)
+
+
+def lattice_design(side=14, spacing=100.0, n_eligible=60, m=15, bands=(150.0,), seed=0):
+    xy = np.array([(i * spacing, j * spacing) for i in range(side) for j in range(side)])
+    n = len(xy)
+    d = cdist(xy, xy)
+    i, j = np.nonzero(np.triu(d <= bands[-1], k=1))
+    graph = ExposureGraph.from_pairs(np.arange(n), i, j, d[i, j], max_distance=bands[-1])
+    eligible_pos = np.sort(np.random.default_rng(seed).choice(n, n_eligible, replace=False))
+    eligible = np.zeros(n, dtype=bool)
+    eligible[eligible_pos] = True
+    sampler = CompleteSampler(n, eligible_pos, m)
+    mapping = ExposureMapping(bands)
+    design = SimpleNamespace(
+        sampler=sampler,
+        graph=graph,
+        mapping=mapping,
+        eligible=eligible,
+        units=SimpleNamespace(n=n),
+        stream=lambda k: np.random.SeedSequence([99, k]),
+    )
+    return design
+
+
+def test_exact_two_sample_example():
+    # CHECKS.md section 2 [A]: Y = (5,6,7 | 1,2,3), first three treated, all 20 assignments
+    y = np.array([5, 6, 7, 1, 2, 3.0])
+    stats = []
+    for treated in itertools.combinations(range(6), 3):
+        z = np.zeros(6, dtype=bool)
+        z[list(treated)] = True
+        stats.append(y[z].mean() - y[~z].mean())
+    assert stats[0] == 4.0
+    assert significance(4.0, stats, "greater", exact=True)[0] == pytest.approx(0.05)
+    assert significance(4.0, stats, "two-sided", exact=True)[0] == pytest.approx(0.10)
+
+
+def test_sampled_p_value_is_never_below_one_over_r_plus_one():
+    p, mc, _ = significance(100.0, np.zeros(999), "two-sided")
+    assert p == pytest.approx(1 / 1000)
+    assert mc > 0
+    # NaN draws count as extreme (conservative)
+    assert significance(1.0, np.array([0.0, np.nan]), "greater")[0] == pytest.approx(2 / 3)
+
+
+def test_fisher_test_agrees_with_scipy_permutation_test():
+    # CHECKS.md section 2 [L]: no interference (no pairs), complete randomization: the
+    # design's p-value agrees with scipy.stats.permutation_test within Monte Carlo error.
+    n, m = 40, 15
+    graph = ExposureGraph.from_pairs(np.arange(n), [], [], [], max_distance=10.0)
+    mapping = ExposureMapping((5.0,))
+    design = SimpleNamespace(
+        sampler=CompleteSampler(n, None, m),
+        graph=graph,
+        mapping=mapping,
+        eligible=np.ones(n, dtype=bool),
+        units=SimpleNamespace(n=n),
+    )
+    rng = np.random.default_rng(4)
+    treated = np.sort(rng.choice(n, m, replace=False))
+    y = rng.normal(0, 1, n)
+    y[treated] += 0.6
+    cond = assign_conditions(graph, mapping, treated)
+    # [A] with no pairs every unit is treated with probability m/n, else a pure control
+    probs = np.tile([m / n, 0.0, 1 - m / n], (n, 1))
+    test = fisher_test(
+        design, cond, y, probs, ContrastSpec(0, 2, np.ones(n, dtype=bool)), n_draws=4000, rng=2
+    )
+    z = np.zeros(n, dtype=bool)
+    z[treated] = True
+    ref = permutation_test(
+        (y[z], y[~z]),
+        lambda a, b: a.mean() - b.mean(),
+        permutation_type="independent",
+        n_resamples=20_000,
+        alternative="two-sided",
+        random_state=3,
+    )
+    assert test.statistic == pytest.approx(y[z].mean() - y[~z].mean())
+    tolerance = 4 * np.hypot(test.mc_error, np.sqrt(ref.pvalue * (1 - ref.pvalue) / 20_000))
+    assert abs(test.p_value - ref.pvalue) <= tolerance
+
+
+def test_conditional_toy_example():
+    # CHECKS.md section 2 [A]: 8 units on a line, m = 4, focal units {0, 2, 4, 6}
+    z_obs = np.array([1, 0, 0, 1, 0, 1, 1, 0], dtype=bool)
+    focal = np.array([0, 2, 4, 6])
+    y_focal = np.array([4, 9, 8, 3.0])
+    sampler = FixedFocalSampler.from_complete(CompleteSampler(8, None, 4), focal, z_obs)
+    draws = sampler.base.draw_many(1, 0)  # the base completes the 2 treated among {1,3,5,7}
+    assert draws.treated(0).size == 2
+
+    def statistic(z):
+        nb = np.zeros(8)
+        nb[1:] += z[:-1]
+        nb[:-1] += z[1:]
+        return float((y_focal * nb[focal]).sum())
+
+    chunks = list(sampler.iter_chunks(3000, 5))
+    dense = np.concatenate([np.asarray(c.to_dense()) for c in chunks])
+    assert (dense[:, focal] == z_obs[focal]).all()
+    patterns, counts = np.unique(dense, axis=0, return_counts=True)
+    assert len(patterns) == 6  # C(4, 2) conditional assignments
+    assert chisquare(counts).pvalue > 0.001  # uniform over them (scipy.stats.chisquare)
+    t_values = sorted(statistic(p) for p in patterns)
+    assert t_values == [14, 16, 20, 24, 28, 30]
+    assert statistic(z_obs) == 28
+    assert significance(28, t_values, "greater", exact=True)[0] == pytest.approx(1 / 3)
+    sampled = [statistic(row) for row in dense]
+    p, mc, _ = significance(28, sampled, "greater")
+    assert abs(p - 1 / 3) <= 4 * mc
+
+
+def simulate_spillover_pvalues(effect, n_sims=240, n_draws=199):
+    design = lattice_design()
+    mapping = design.mapping
+    probs = exposure_probabilities(
+        design.sampler, design.graph, mapping, 4000, rng=11
+    ).probabilities
+    base = np.random.default_rng(12).gamma(2.0, 2.0, design.units.n)
+    pvalues = []
+    for s in range(n_sims):
+        treated = design.sampler.draw(1000 + s)
+        cond = assign_conditions(design.graph, mapping, treated)
+        y = base - 2.0 * (cond == 0) + effect * (cond == 1)
+        z = np.zeros(design.units.n, dtype=bool)
+        z[treated] = True
+        test = spillover_test(design, cond, z, y, probs, 1, n_draws=n_draws, rng=5000 + s)
+        pvalues.append(test.p_value)
+    return np.array(pvalues)
+
+
+def test_conditional_spillover_test_has_its_size_and_power():
+    # CHECKS.md section 2: under a true null of no spillover (a direct effect only), the
+    # rejection rate at 5% lies within 2 Monte Carlo standard errors of 5%.
+    p_null = simulate_spillover_pvalues(effect=0.0)
+    rate = (p_null <= 0.05).mean()
+    mc = np.sqrt(0.05 * 0.95 / p_null.size)
+    assert abs(rate - 0.05) <= 2 * mc
+    # planted spillover of +3 incidents next to treated units: rejected far more often
+    p_alt = simulate_spillover_pvalues(effect=3.0, n_sims=40)
+    assert (p_alt <= 0.05).mean() > 0.5
+
+
+def test_test_inversion_covers_a_constant_effect():
+    design = lattice_design(n_eligible=80, m=30)
+    mapping = design.mapping
+    probs = exposure_probabilities(design.sampler, design.graph, mapping, 3000, rng=1).probabilities
+    base = np.random.default_rng(2).normal(10, 2, design.units.n)
+    covered = 0
+    for s in range(30):
+        treated = design.sampler.draw(300 + s)
+        cond = assign_conditions(design.graph, mapping, treated)
+        y = base - 1.5 * (cond == 0) + 0.5 * (cond == 1)
+        spec = ContrastSpec(0, 2, design.eligible)
+        low, high = invert_constant_effect(
+            design,
+            cond,
+            y,
+            probs,
+            spec,
+            np.array([0.0, 0.5, 0.0]),
+            n_draws=400,
+            rng=700 + s,
+            center=-1.5,
+            scale=1.0,
+        )
+        assert low < high
+        covered += low <= -1.5 <= high
+    # 95% intervals: coverage of 30 intervals is at least 24 unless something is wrong
+    # (binomial(30, 0.95) puts less than 0.1% below 24; scipy.stats.binom)
+    assert covered >= 24
