@@ -6,18 +6,15 @@ from collections.abc import Callable
 from pathlib import Path
 
 import geopandas as gpd
+import pandas as pd
 import shapely
 
+from geoexp.analysis import analyse, save_results, write_report
+from geoexp.cautions import CAUTION
 from geoexp.design import Design, DesignSpec, check_design
-from geoexp.sampleregion import load_sample_region
-from geoexp.trialfile import export_assignment_csv, write_trial
-
-CAUTION = (
-    "geoexp supports, but does not replace, ethics review, legal advice, community "
-    "consultation and the judgement of the agencies involved. Local law governs what a "
-    "trial may do. A trial that changes policing or other services affects people: "
-    "decide with them, not only about them."
-)
+from geoexp.outcomes import count_incidents, save_outcomes
+from geoexp.sampleregion import DEMO_MULTIPLIERS, load_sample_region, simulate_trial_incidents
+from geoexp.trialfile import TrialFile, export_assignment_csv, write_trial
 
 
 def demo_spec(
@@ -49,12 +46,15 @@ def demo_spec(
 
 
 def run_demo(out: str | Path, *, n_draws: int = 2000, echo: Callable[[str], None] = print) -> dict:
-    """Plan a trial on the sample city: spec, exclusion zone, check, draw, trial file, field list.
+    """Run the whole job on the sample city, from planning to the analysis report.
 
     Writes into ``out``: ``design.toml``, ``exclusion_zone.geojson`` (a drawn
     zone around the city's stadium block), ``trial.gpkg`` (locked; a rerun of
     the demo replaces it and keeps the old draw as superseded),
-    ``design_check.md`` and ``field_list.csv``. Returns the paths.
+    ``design_check.md``, ``field_list.csv``, ``incidents.csv`` (the invented
+    incidents, the trial year simulated with a planted effect),
+    ``incidents_not_counted.csv`` and ``report.html`` with ``report.md``.
+    Returns the paths.
     """
     out = Path(out)
     out.mkdir(parents=True, exist_ok=True)
@@ -104,6 +104,49 @@ def run_demo(out: str | Path, *, n_draws: int = 2000, echo: Callable[[str], None
     echo(str(assignment))
     echo(f"Trial file (locked): {trial_path}")
     echo(f"Field list: {csv_path}")
+
+    # After the trial. The sample city has invented incidents for 2024 and 2025; the trial
+    # year 2026 is simulated with effects planted on purpose (DEMO_MULTIPLIERS), and the
+    # incidents are exported as an agency would: a CSV with longitude and latitude.
+    echo(
+        "Simulating the trial year 2026 (invented incidents with a planted effect: "
+        + ", ".join(f"{k} x{v}" for k, v in DEMO_MULTIPLIERS.items())
+        + ")"
+    )
+    simulated = simulate_trial_incidents(region, trial.assignment()["condition"])
+    incidents = pd.concat([region.incidents, simulated], ignore_index=True).to_crs(4326)
+    table = pd.DataFrame(
+        {
+            "incident_id": incidents["incident_id"],
+            "date": pd.to_datetime(incidents["date"]).dt.strftime("%Y-%m-%d"),
+            "incident_type": incidents["incident_type"],
+            "lon": incidents.geometry.x.round(7),
+            "lat": incidents.geometry.y.round(7),
+        }
+    )
+    incidents_path = out / "incidents.csv"
+    table.to_csv(incidents_path, index=False)
+    outcomes = count_incidents(
+        trial,
+        incidents_path,
+        date_column="date",
+        type_column="incident_type",
+        lon="lon",
+        lat="lat",
+        tolerance_m=30.0,
+        pre=("2025-01-01", "2025-12-31"),
+        post=("2026-01-01", "2026-12-31"),
+        dropped_path=out / "incidents_not_counted.csv",
+    )
+    echo(str(outcomes.drops))
+    save_outcomes(trial_path, outcomes)
+    analysis = analyse(trial_path, n_draws=n_draws)
+    save_results(trial_path, analysis)
+    report, report_md = write_report(
+        analysis, out / "report.html", trial=TrialFile.open(trial_path)
+    )
+    echo(str(analysis))
+    echo(f"Report: {report} (Markdown twin: {report_md})")
     echo(CAUTION)
     return {
         "spec": spec_path,
@@ -111,4 +154,7 @@ def run_demo(out: str | Path, *, n_draws: int = 2000, echo: Callable[[str], None
         "check": check_path,
         "field_list": csv_path,
         "exclusion": zone_path,
+        "incidents": incidents_path,
+        "report": report,
+        "report_md": report_md,
     }

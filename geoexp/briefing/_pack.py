@@ -31,13 +31,9 @@ from geoexp.briefing._plan import (
     page_layout,
 )
 from geoexp.errors import CRSError, InputError, describe_rows
+from geoexp.maps import condition_order, condition_style
 from geoexp.quickstart import CAUTION
 from geoexp.trialfile import TrialFile
-
-try:  # one palette for the project once the interactive maps define it
-    from geoexp.maps._palette import line_style  # type: ignore[import-not-found]
-except ImportError:
-    from geoexp.briefing._style import line_style
 
 FIELD_NOTES = (
     "Treat everyone you meet with respect. If asked, say who you are and what you are doing.",
@@ -51,6 +47,9 @@ FIELD_NOTES = (
     "numbered from north to south.",
 )
 
+# The shared palette's widths are screen pixels for the web map; at full width on paper the
+# street grid would swamp the page, so print scales every width (and with it every dash).
+_PRINT_WIDTH = 0.55
 _FONT = 7.5  # list text, points
 _OVERVIEW_NUMBERS_MAX = 150  # beyond this many treated places, numbers on the overview are clutter
 _CHAR_WIDTH = 0.56  # average DejaVu Sans glyph width in ems, for wrapping by character count
@@ -380,15 +379,24 @@ def _legend_handles(
     return handles
 
 
-def _condition_order(codes) -> list[str]:
-    def key(code: str) -> tuple[int, int]:
-        if code == "treated":
-            return (0, 0)
-        if code.startswith("spillover_"):
-            return (1, int(code.rsplit("_", 1)[1]))
-        return (2, 0)
+@dataclass(frozen=True)
+class _PrintStyle:
+    color: str
+    linewidth: float
+    linestyle: str | tuple[float, tuple[float, ...]]
+    zorder: float
 
-    return sorted(codes, key=key)
+
+def line_style(code: str) -> _PrintStyle:
+    """The project's style of a condition (:func:`geoexp.maps.condition_style`), sized for paper."""
+    look = condition_style(code)
+    if code == "treated":
+        zorder = 6.0
+    elif code.startswith("spillover_"):
+        zorder = 5.0 - 1.0 / (1 + int(code.rsplit("_", 1)[1]))
+    else:
+        zorder = 2.0
+    return _PrintStyle(look.colour, look.width * _PRINT_WIDTH, look.mpl_linestyle, zorder)
 
 
 class _Pages:
@@ -475,7 +483,7 @@ def _cover(pages: _Pages) -> Figure:
     y -= 0.24
     frame = data.frame
     counts = frame.groupby("condition").size()
-    for code in _condition_order(counts.index):
+    for code in condition_order(counts.index):
         fig.text(x + 0.1, y, data.condition_labels.get(code, code), transform=inch, fontsize=8.5)
         fig.text(x + 2.6, y, f"{counts[code]:,}", transform=inch, fontsize=8.5, ha="right")
         y -= 0.18
@@ -712,7 +720,13 @@ def _table_columns(lay: PageLayout, with_instructions: bool) -> list[tuple[str, 
 def _draw_table(
     fig: Figure, lay: PageLayout, top: float, rows: list[tuple[str, ...]], columns
 ) -> None:
-    """Draw a list with fixed-height rows; ``top`` is inches from the page bottom."""
+    """Draw a list with fixed-height rows; ``top`` is inches from the page bottom.
+
+    Rows have one height so that the page count follows from the number of rows
+    alone; text longer than two lines is cut short, and a note says where the
+    full text is.
+    """
+    cut_short = False
     inch = fig.dpi_scale_trans
     x0 = lay.margin
     width = lay.width - 2 * lay.margin
@@ -755,6 +769,7 @@ def _draw_table(
                 size = 8.5
             else:
                 text = _wrap(value, col_width - 0.1, 2)
+                cut_short = cut_short or text.endswith("…")
             fig.text(
                 x + 0.05,
                 y - lay.row_height / 2,
@@ -768,6 +783,16 @@ def _draw_table(
             x += col_width
         y -= lay.row_height
     fig.add_artist(Line2D([x0, x0 + width], [y, y], transform=inch, color="0.2", linewidth=0.6))
+    if cut_short:
+        fig.text(
+            x0,
+            y - 0.1,
+            "… text cut short here; the full text is in the field list (geoexp export).",
+            transform=inch,
+            fontsize=6.5,
+            va="top",
+            style="italic",
+        )
 
 
 def _district_pages(
@@ -820,8 +845,8 @@ def _district_pages(
     own = view["district"].to_numpy() == district.name
     # Places of other districts stay on the map for orientation, faded, so that a team
     # does not take another district's treated place for one of its own.
-    _draw_units(ax, view[~own], _condition_order(view["condition"].unique()), alpha=0.3)
-    _draw_units(ax, view[own], _condition_order(view["condition"].unique()))
+    _draw_units(ax, view[~own], condition_order(view["condition"].unique()), alpha=0.3)
+    _draw_units(ax, view[own], condition_order(view["condition"].unique()))
     ax.add_collection(
         LineCollection(
             _segments(outlines.values),
@@ -851,7 +876,7 @@ def _district_pages(
     scale_bar(ax, metres_per_unit=data.metres_per_unit)
     cx, cy = (extent[0] + extent[2]) / 2, (extent[1] + extent[3]) / 2
     north_arrow(ax, angle=true_north_angle(frame.crs, cx, cy))
-    codes = _condition_order(view["condition"].unique())
+    codes = condition_order(view["condition"].unique())
     fig.legend(
         handles=_legend_handles(frame, data.condition_labels, codes),
         loc="upper left",

@@ -243,7 +243,8 @@ def estimate_contrast(
         raise InputError("the outcome has missing values; every unit needs one")
     pk, pl = probabilities[:, k], probabilities[:, l]
     eligible = (pk > 0) & (pl > 0)
-    relevant = (pk > 0) | (pl > 0)
+    # units that can be exposed but never be in the reference condition: positivity losses
+    lost = (pk > 0) & (pl <= 0)
     pop = np.flatnonzero(eligible)
     rows = pop if bit_rows is None else np.asarray(bit_rows)[pop]
     n = pop.size
@@ -288,7 +289,7 @@ def estimate_contrast(
         n_units=int(n),
         n_exposure=int(in_k.sum()),
         n_reference=int(in_l.sum()),
-        n_excluded=int((relevant & ~eligible).sum()),
+        n_excluded=int(lost.sum()),
         level=level,
         joint=joint,
     )

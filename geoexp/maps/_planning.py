@@ -368,7 +368,7 @@ _PAGE_TEMPLATE = """
   Object.keys(datasets).forEach(function (k) {
     if (datasets[k].compact) { datasets[k].data = expand(datasets[k].compact); delete datasets[k].compact; }
   });
-  var handle = {map: map, layers: {}, expected: {}, drawn: null, legend: null};
+  var handle = {map: map, layers: {}, groups: {}, expected: {}, drawn: null, legend: null};
   cfg.layers.forEach(function (lay) {
     var ds = datasets[lay.data], filter = null, style;
     if (lay.kind === "condition") {
@@ -397,6 +397,7 @@ _PAGE_TEMPLATE = """
     }
     gj.addTo(groups[lay.group]);
     handle.layers[lay.key] = gj;
+    handle.groups[lay.key] = groups[lay.group];
     handle.expected[lay.key] = lay.expected;
   });
 

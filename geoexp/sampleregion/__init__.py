@@ -14,8 +14,11 @@ from geoexp.sampleregion._city import (
     write_sample_region,
 )
 from geoexp.sampleregion._grid import synthetic_grid
+from geoexp.sampleregion._trial import DEMO_MULTIPLIERS, simulate_trial_incidents
 
 __all__ = [
+    "DEMO_MULTIPLIERS",
+    "simulate_trial_incidents",
     "SampleRegion",
     "load_sample_region",
     "make_city",

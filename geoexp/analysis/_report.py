@@ -1,0 +1,231 @@
+"""The analysis report: HTML with plots embedded, and a Markdown twin."""
+
+from __future__ import annotations
+
+import base64
+import html
+import io
+from collections.abc import Callable
+from pathlib import Path
+from typing import TYPE_CHECKING
+
+import matplotlib
+
+matplotlib.use("Agg", force=False)
+import matplotlib.pyplot as plt  # noqa: E402
+import numpy as np  # noqa: E402
+import pandas as pd  # noqa: E402
+
+from geoexp._atomic import atomic_path  # noqa: E402
+from geoexp.cautions import CAUTION  # noqa: E402
+
+if TYPE_CHECKING:
+    from geoexp.analysis._run import Analysis
+    from geoexp.trialfile import TrialFile
+
+
+
+def distance_decay_plot(analysis: Analysis, ax=None):
+    """Spillover estimate with its interval for each distance band (and the direct effect).
+
+    Returns the matplotlib Axes.
+    """
+    if ax is None:
+        _, ax = plt.subplots(figsize=(6.4, 3.6))
+    edges = (0.0, *analysis.band_edges)
+    mids = [(a + b) / 2 for a, b in zip(edges[:-1], edges[1:], strict=True)]
+    spill = analysis.effects[1:]
+    est = np.array([e.estimate for e in spill])
+    lo = np.array([e.ci_low for e in spill])
+    hi = np.array([e.ci_high for e in spill])
+    ax.axhline(0, color="0.4", lw=1, ls="--")
+    ax.errorbar(
+        mids,
+        est,
+        yerr=[est - lo, hi - est],
+        fmt="o-",
+        color="#0072B2",
+        capsize=4,
+        label="spillover vs pure control",
+    )
+    for a, b in zip(edges[:-1], edges[1:], strict=True):
+        ax.axvspan(a, b, color="0.93" if (a // 1) % 2 == 0 else "0.97", zorder=0)
+    d = analysis.effects[0]
+    ax.errorbar(
+        [0],
+        [d.estimate],
+        yerr=[[d.estimate - d.ci_low], [d.ci_high - d.estimate]],
+        fmt="s",
+        color="#D55E00",
+        capsize=4,
+        label="treated vs pure control",
+    )
+    ax.set_xlabel("distance to the nearest treated unit (m)")
+    ax.set_ylabel("effect (incidents per unit)")
+    ax.set_title("Effect by distance from treated units")
+    ax.legend(loc="best", fontsize=8)
+    return ax
+
+
+def _png(fig) -> bytes:
+    buf = io.BytesIO()
+    fig.savefig(buf, format="png", dpi=130, bbox_inches="tight")
+    plt.close(fig)
+    return buf.getvalue()
+
+
+def _table(frame: pd.DataFrame) -> str:
+    return frame.to_html(float_format=lambda v: f"{v:.3f}", border=0, classes="t", na_rep="—")
+
+
+def _md_table(frame: pd.DataFrame) -> str:
+    cols = [frame.index.name or ""] + list(frame.columns)
+    lines = ["| " + " | ".join(map(str, cols)) + " |", "|" + "---|" * len(cols)]
+    for idx, row in frame.iterrows():
+        cells = [str(idx)] + [f"{v:.3f}" if isinstance(v, float) else str(v) for v in row]
+        lines.append("| " + " | ".join(cells) + " |")
+    return "\n".join(lines)
+
+
+def _summary(analysis: Analysis) -> pd.DataFrame:
+    rows = []
+    for i, e in enumerate(analysis.effects):
+        s = analysis.spillover_tests[i]
+        rows.append(
+            {
+                "contrast": e.contrast,
+                "estimate": e.estimate,
+                "std_error": e.std_error,
+                "ci": f"{e.ci_low:+.2f} to {e.ci_high:+.2f}",
+                "ci_by_test_inversion": f"{analysis.intervals[i][0]:+.2f} to {analysis.intervals[i][1]:+.2f}",
+                "p_no_effect": analysis.fisher[i].p_value,
+                "p_no_spillover": s.p_value if s else np.nan,
+                "units_in_estimand": e.n_units,
+                "exposed": e.n_exposure,
+                "reference": e.n_reference,
+                "excluded": e.n_excluded,
+                "finding": analysis.verdicts[i].finding,
+            }
+        )
+    return pd.DataFrame(rows).set_index("contrast")
+
+
+def write_report(
+    analysis: Analysis,
+    path: str | Path,
+    *,
+    trial: TrialFile | None = None,
+    extra_figures: dict[str, Callable] | None = None,
+) -> tuple[Path, Path]:
+    """Write the report as HTML (plots embedded) and a Markdown twin beside it.
+
+    ``extra_figures`` maps a title to a function ``f(ax)`` that draws on an Axes
+    (for example a static result map). Returns (html_path, markdown_path).
+    """
+    path = Path(path)
+    md_path = path.with_suffix(".md")
+    figures: dict[str, bytes] = {}
+    fig, ax = plt.subplots(figsize=(6.4, 3.6))
+    distance_decay_plot(analysis, ax=ax)
+    figures["Effect by distance"] = _png(fig)
+    for title, draw in (extra_figures or {}).items():
+        fig, ax = plt.subplots(figsize=(7, 7))
+        draw(ax)
+        figures[title] = _png(fig)
+    summary = _summary(analysis)
+    wdq = (
+        pd.concat([d.to_frame() for d in analysis.displacement])
+        if analysis.displacement
+        else pd.DataFrame()
+    )
+    meta = trial.meta if trial is not None else {}
+    design_rows = {
+        "trial": analysis.name,
+        "design hash": analysis.spec_hash,
+        "seed": meta.get("seed", ""),
+        "assignment drawn": meta.get("drawn_at", ""),
+        "outcome": analysis.outcome_words,
+        "estimator": f"{analysis.estimator} (Horvitz–Thompson twin in the results layer)",
+        "probability draws": str(analysis.n_draws_probabilities),
+        "test draws": str(analysis.n_draws_tests),
+        "distances": "metres",
+    }
+    css = (
+        "body{font-family:sans-serif;max-width:60em;margin:2em auto;line-height:1.45;color:#222}"
+        "table.t{border-collapse:collapse;font-size:.9em}table.t td,table.t th{padding:.25em .6em;"
+        "border-bottom:1px solid #ccc;text-align:right}.caution{border-left:4px solid #D55E00;"
+        "padding:.5em 1em;background:#fff7f0}img{max-width:100%}"
+    )
+    parts = [
+        "<!DOCTYPE html><html lang='en'><head><meta charset='utf-8'>",
+        f"<title>{html.escape(analysis.name)} — results</title><style>{css}</style></head><body>",
+        f"<h1>{html.escape(analysis.name)}: results</h1>",
+        f"<p class='caution'>{html.escape(CAUTION)}</p>",
+        "<h2>Findings</h2><ul>",
+        *(f"<li>{html.escape(v.sentence)}</li>" for v in analysis.verdicts),
+        "</ul><p>Effects are in incidents per unit; a reduction is negative, and more incidents "
+        "next to treated units (displacement) is positive. Rejecting “no effect at all” is not "
+        "evidence of spillover; the spillover verdicts rest on the conditional test of no "
+        "spillover.</p>",
+        "<h2>Design</h2>",
+        _table(pd.DataFrame({"value": design_rows})),
+        "<h2>Estimates</h2>",
+        _table(summary),
+        "<h2>Displacement or diffusion: weighted displacement quotient</h2>",
+        "<p>Bowers &amp; Johnson (2003): treated units as target area, each band as buffer, "
+        "pure controls as control area.</p>",
+        _table(wdq) if len(wdq) else "<p>Not computable.</p>",
+    ]
+    for title, png in figures.items():
+        b64 = base64.b64encode(png).decode("ascii")
+        parts.append(
+            f"<h2>{html.escape(title)}</h2><img alt='{html.escape(title)}' "
+            f"src='data:image/png;base64,{b64}'>"
+        )
+    parts += [
+        "<h2>What was excluded and why</h2><ul>",
+        *(f"<li>{html.escape(n)}</li>" for n in analysis.notes),
+        "<li>Each contrast covers only the units that could be in both of its conditions "
+        "under the design (positivity); counts are in the estimates table.</li></ul>",
+        "<h2>Methods</h2><p>Horvitz–Thompson and Hajek estimators of exposure contrasts with the "
+        "conservative variance of Aronow &amp; Samii (2017), using exposure and joint "
+        "probabilities from draws of the design's own sampler; Fisher randomization tests of "
+        "no effect at all; conditional randomization tests of no spillover on focal units that "
+        "are never treated (Athey, Eckles &amp; Imbens 2018); intervals for a constant "
+        "additive effect by test inversion; the weighted displacement quotient of Bowers "
+        "&amp; Johnson (2003).</p>",
+        "</body></html>",
+    ]
+    with atomic_path(path) as tmp:
+        tmp.write_text("\n".join(parts), encoding="utf-8")
+    md = [
+        f"# {analysis.name}: results",
+        "",
+        f"> {CAUTION}",
+        "",
+        "## Findings",
+        "",
+        *(f"- {v.sentence}" for v in analysis.verdicts),
+        "",
+        "## Design",
+        "",
+        *(f"- {k}: {v}" for k, v in design_rows.items()),
+        "",
+        "## Estimates",
+        "",
+        _md_table(summary),
+        "",
+        "## Weighted displacement quotient (Bowers & Johnson 2003)",
+        "",
+        _md_table(wdq) if len(wdq) else "Not computable.",
+        "",
+    ]
+    for i, (title, png) in enumerate(figures.items()):
+        img = md_path.with_name(f"{md_path.stem}_figure{i + 1}.png")
+        with atomic_path(img) as tmp:
+            tmp.write_bytes(png)
+        md += [f"## {title}", "", f"![{title}]({img.name})", ""]
+    md += ["## What was excluded and why", "", *(f"- {n}" for n in analysis.notes), ""]
+    with atomic_path(md_path) as tmp:
+        tmp.write_text("\n".join(md), encoding="utf-8")
+    return path, md_path
