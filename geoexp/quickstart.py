@@ -10,8 +10,10 @@ import pandas as pd
 import shapely
 
 from geoexp.analysis import analyse, save_results, write_report
+from geoexp.briefing import briefing_pack
 from geoexp.cautions import CAUTION
 from geoexp.design import Design, DesignSpec, check_design
+from geoexp.maps import planning_map, save_map
 from geoexp.outcomes import count_incidents, save_outcomes
 from geoexp.sampleregion import DEMO_MULTIPLIERS, load_sample_region, simulate_trial_incidents
 from geoexp.trialfile import TrialFile, export_assignment_csv, write_trial
@@ -51,7 +53,8 @@ def run_demo(out: str | Path, *, n_draws: int = 2000, echo: Callable[[str], None
     Writes into ``out``: ``design.toml``, ``exclusion_zone.geojson`` (a drawn
     zone around the city's stadium block), ``trial.gpkg`` (locked; a rerun of
     the demo replaces it and keeps the old draw as superseded),
-    ``design_check.md``, ``field_list.csv``, ``incidents.csv`` (the invented
+    ``design_check.md``, ``field_list.csv``, ``planning_map.html``,
+    ``briefing_a4.pdf``, ``incidents.csv`` (the invented
     incidents, the trial year simulated with a planted effect),
     ``incidents_not_counted.csv`` and ``report.html`` with ``report.md``.
     Returns the paths.
@@ -104,6 +107,10 @@ def run_demo(out: str | Path, *, n_draws: int = 2000, echo: Callable[[str], None
     echo(str(assignment))
     echo(f"Trial file (locked): {trial_path}")
     echo(f"Field list: {csv_path}")
+    map_path = save_map(planning_map(trial), out / "planning_map.html")
+    echo(f"Planning map (works offline): {map_path}")
+    pack_path = briefing_pack(trial, out / "briefing_a4.pdf", paper="a4")
+    echo(f"Briefing pack for field teams: {pack_path}")
 
     # After the trial. The sample city has invented incidents for 2024 and 2025; the trial
     # year 2026 is simulated with effects planted on purpose (DEMO_MULTIPLIERS), and the
@@ -154,6 +161,8 @@ def run_demo(out: str | Path, *, n_draws: int = 2000, echo: Callable[[str], None
         "check": check_path,
         "field_list": csv_path,
         "exclusion": zone_path,
+        "planning_map": map_path,
+        "briefing": pack_path,
         "incidents": incidents_path,
         "report": report,
         "report_md": report_md,

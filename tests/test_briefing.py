@@ -178,6 +178,12 @@ def test_one_district_with_instructions_continues_its_list(one_district_trial, t
     assert set(groups["All units"]) <= pdf_tokens(path)
     assert "Instructions" in pdf_tokens(path, 3)
     assert {"Walk", "shift;"} <= pdf_tokens(path, n)  # the instructions reach the last page
+    # Every listed id sits on the page, above the footer band of the layout (PDF points from the top).
+    boxes = run(poppler("pdftotext"), "-bbox", str(path), "-")
+    words = re.findall(r'yMin="([\d.]+)" xMax="[\d.]+" yMax="([\d.]+)">([^<]+)</word>', boxes)
+    placed = {word: float(y_max) for _, y_max, word in words if word in set(groups["All units"])}
+    assert set(placed) == set(groups["All units"])
+    assert all(0 < y < 72 * (lay.height - lay.margin - lay.footer) for y in placed.values())
 
 
 def test_chosen_districts_and_errors(demo_trial, tmp_path):

@@ -191,3 +191,18 @@ def test_displacement_readings():
     assert "diffusion" in weighted_displacement_quotient(100, 70, 80, 72, 1000, 1000).reading
     assert "outweighs" in weighted_displacement_quotient(50, 40, 60, 75, 500, 520).reading
     assert "cannot be read" in weighted_displacement_quotient(50, 60, 60, 75, 500, 520).reading
+
+
+def test_saturation_total_is_direct_plus_spillover():
+    # CHECKS.md section 5 [A]: total = direct + spillover holds exactly for the estimates
+    from geoexp.estimate import saturation_effects
+
+    rng = np.random.default_rng(8)
+    level = rng.integers(0, 3, 300)
+    treated = (rng.uniform(size=300) < np.array([0.0, 0.3, 0.6])[level]) & (level > 0)
+    y = rng.poisson(4, 300).astype(float)
+    table = saturation_effects(y, treated, level, np.array([0.0, 0.3, 0.6]))
+    np.testing.assert_allclose(table["total"], table["direct"] + table["spillover"], rtol=1e-12)
+    # and each is a plain difference of group means
+    s = level == 1
+    assert table.loc[0.3, "direct"] == pytest.approx(y[s & treated].mean() - y[s & ~treated].mean())

@@ -216,7 +216,7 @@ def test_probabilities_and_tooltip_fields_embedded(page, trial):
 
 
 def test_legend_and_caution_in_page(page, trial):
-    from geoexp.quickstart import CAUTION
+    from geoexp.cautions import CAUTION
 
     html, _ = page
     legend = json.loads(re.search(r"div.innerHTML = (\".*?\");\n", html).group(1))
@@ -411,3 +411,22 @@ def test_map_command(demo, tmp_path):
     assert expected["eligible"] == spec["eligible"]["top_k"]
     assert expected["zones:1"] == 1  # the demo's stadium zone is shown for reference
     assert not any(k.startswith("condition:") for k in expected)
+
+
+def test_real_city_gets_tiles_and_district_outlines(region):
+    # The same streets labelled as lying elsewhere (UTM 33N): no longer the sample city.
+    segments = region.segments.set_index("segment_id").set_crs("EPSG:32633", allow_override=True)
+    html, _ = map_html(drawing_map(segments))
+    assert "tile.openstreetmap.org" in html
+    expected = {lay["key"]: lay["expected"] for lay in _config(html)["layers"]}
+    assert expected["districts"] == segments["district"].nunique()
+    assert "outlines drawn around their units" in html
+
+
+def test_explicit_districts(region, trial):
+    districts = region.districts.iloc[:3]
+    html, _ = map_html(planning_map(trial, districts=districts))
+    expected = {lay["key"]: lay["expected"] for lay in _config(html)["layers"]}
+    assert expected["districts"] == 3
+    with pytest.raises(InputError, match="polygons"):
+        planning_map(trial, districts=region.segments.head())

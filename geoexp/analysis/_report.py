@@ -74,15 +74,19 @@ def _png(fig) -> bytes:
     return buf.getvalue()
 
 
+def _number(v: float) -> str:
+    return f"{v:,.0f}" if float(v).is_integer() else f"{v:.3f}"
+
+
 def _table(frame: pd.DataFrame) -> str:
-    return frame.to_html(float_format=lambda v: f"{v:.3f}", border=0, classes="t", na_rep="—")
+    return frame.to_html(float_format=_number, border=0, classes="t", na_rep="—")
 
 
 def _md_table(frame: pd.DataFrame) -> str:
     cols = [frame.index.name or ""] + list(frame.columns)
     lines = ["| " + " | ".join(map(str, cols)) + " |", "|" + "---|" * len(cols)]
     for idx, row in frame.iterrows():
-        cells = [str(idx)] + [f"{v:.3f}" if isinstance(v, float) else str(v) for v in row]
+        cells = [str(idx)] + [_number(v) if isinstance(v, float) else str(v) for v in row]
         lines.append("| " + " | ".join(cells) + " |")
     return "\n".join(lines)
 
@@ -153,7 +157,7 @@ def write_report(
     css = (
         "body{font-family:sans-serif;max-width:60em;margin:2em auto;line-height:1.45;color:#222}"
         "table.t{border-collapse:collapse;font-size:.9em}table.t td,table.t th{padding:.25em .6em;"
-        "border-bottom:1px solid #ccc;text-align:right}.caution{border-left:4px solid #D55E00;"
+        "border-bottom:1px solid #ccc;text-align:right}table.t{display:block;overflow-x:auto}.caution{border-left:4px solid #D55E00;"
         "padding:.5em 1em;background:#fff7f0}img{max-width:100%}"
     )
     parts = [

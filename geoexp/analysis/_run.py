@@ -255,9 +255,9 @@ def analyse(
             )
         base = _reference_level(post, observed, probs, k, pc)
         verdict = (
-            direct_verdict(e, f, alpha, unit, base)
+            direct_verdict(e, f, alpha, unit, base, ci if intervals else None)
             if k == 0
-            else spillover_verdict(e, s, alpha, unit, base)
+            else spillover_verdict(e, s, alpha, unit, base, ci if intervals else None)
         )
         effects.append(e)
         effects_ht.append(e_ht)

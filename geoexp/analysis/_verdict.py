@@ -25,12 +25,33 @@ class Verdict:
     sentence: str
 
 
+def _numbers(
+    effect: ContrastEstimate,
+    pct: float,
+    unit: str,
+    inverted: tuple[float, float] | None,
+    test: RandomizationTest | None,
+    how: str,
+) -> str:
+    level = int(round(100 * effect.level))
+    parts = [
+        f"estimate {effect.estimate:+.2f} {unit} per unit ({pct:+.0f}% of the pure-control mean)",
+        f"{level}% interval {effect.ci_low:+.2f} to {effect.ci_high:+.2f} (conservative variance)",
+    ]
+    if inverted is not None and np.all(np.isfinite(inverted)):
+        parts.append(f"{inverted[0]:+.2f} to {inverted[1]:+.2f} by inverting randomization tests")
+    if test is not None:
+        parts.append(f"{format_p(test.p_value, test.n_draws)} ({how})")
+    return "; ".join(parts) + "."
+
+
 def spillover_verdict(
     effect: ContrastEstimate,
     test: RandomizationTest | None,
     alpha: float,
     unit: str,
     reference_level: float,
+    inverted: tuple[float, float] | None = None,
 ) -> Verdict:
     """Displacement (more incidents next door), diffusion of benefits (fewer), or neither.
 
@@ -42,34 +63,23 @@ def spillover_verdict(
     pct = _percent(effect.estimate, reference_level)
     if test is not None:
         significant = test.p_value <= alpha
-        p, how = test.p_value, "conditional randomization test on focal units"
+        p, how = test.p_value, "conditional randomization test of no spillover, focal units"
     else:
         significant = effect.ci_low > 0 or effect.ci_high < 0
         p, how = float("nan"), "interval (no focal units for an exact test)"
     band = effect.exposure
     if significant and effect.estimate > 0:
         finding = "displacement"
-        words = (
-            f"Displacement in the {band} band: about {effect.estimate:+.2f} {unit} per unit "
-            f"({pct:+.0f}% of the pure-control mean) compared with pure controls, interval "
-            f"{effect.ci_low:+.2f} to {effect.ci_high:+.2f}."
-        )
+        lead = f"Displacement into the {band} band: more incidents than at pure controls"
     elif significant and effect.estimate < 0:
         finding = "diffusion of benefits"
-        words = (
-            f"Diffusion of benefits into the {band} band: about {effect.estimate:+.2f} {unit} per "
-            f"unit ({pct:+.0f}% of the pure-control mean) compared with pure controls, interval "
-            f"{effect.ci_low:+.2f} to {effect.ci_high:+.2f}."
-        )
+        lead = f"Diffusion of benefits into the {band} band: fewer incidents than at pure controls"
     else:
         finding = "no detectable spillover"
-        words = (
-            f"No detectable spillover in the {band} band: the estimate is {effect.estimate:+.2f} "
-            f"{unit} per unit ({pct:+.0f}%), with an interval from {effect.ci_low:+.2f} to "
-            f"{effect.ci_high:+.2f} that includes no change; this is not proof that there is none."
+        lead = (
+            f"No detectable spillover in the {band} band (which is not proof that there is none)"
         )
-    if test is not None:
-        words += f" (p = {p:.3f}, {how})"
+    words = f"{lead}: {_numbers(effect, pct, unit, inverted, test, how)}"
     return Verdict(
         effect.contrast, finding, effect.estimate, effect.ci_low, effect.ci_high, pct, p, how, words
     )
@@ -81,6 +91,7 @@ def direct_verdict(
     alpha: float,
     unit: str,
     reference_level: float,
+    inverted: tuple[float, float] | None = None,
 ) -> Verdict:
     """Reduction, increase or no detectable effect on the treated units."""
     pct = _percent(effect.estimate, reference_level)
@@ -92,22 +103,19 @@ def direct_verdict(
         finding = "increase"
     else:
         finding = "no detectable effect"
-    words = (
-        f"Treated units: {finding}, {effect.estimate:+.2f} {unit} per unit ({pct:+.0f}% of the "
-        f"pure-control mean), interval {effect.ci_low:+.2f} to {effect.ci_high:+.2f}"
-        + (f", p = {p:.3f} (Fisher randomization test of no effect at all)." if test else ".")
-    )
+    how = "Fisher randomization test of no effect at all"
+    words = f"Treated units, {finding}: {_numbers(effect, pct, unit, inverted, test, how)}"
     return Verdict(
-        effect.contrast,
-        finding,
-        effect.estimate,
-        effect.ci_low,
-        effect.ci_high,
-        pct,
-        p,
-        "Fisher randomization test",
-        words,
+        effect.contrast, finding, effect.estimate, effect.ci_low, effect.ci_high, pct, p, how, words
     )
+
+
+def format_p(p: float, n_draws: int) -> str:
+    """``p = 0.023``, or ``p = 0.0005 (the smallest possible with 2000 draws)``."""
+    smallest = 1 / (n_draws + 1)
+    if p <= smallest * (1 + 1e-9):
+        return f"p = {p:.2g}, the smallest possible with {n_draws} draws"
+    return f"p = {p:.3f}" if p >= 0.001 else f"p = {p:.2g}"
 
 
 def _percent(estimate: float, reference_level: float) -> float:

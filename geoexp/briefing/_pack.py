@@ -30,9 +30,9 @@ from geoexp.briefing._plan import (
     Paper,
     page_layout,
 )
+from geoexp.cautions import CAUTION
 from geoexp.errors import CRSError, InputError, describe_rows
 from geoexp.maps import condition_order, condition_style
-from geoexp.quickstart import CAUTION
 from geoexp.trialfile import TrialFile
 
 FIELD_NOTES = (

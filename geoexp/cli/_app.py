@@ -129,3 +129,74 @@ def demo_command(
     from geoexp.quickstart import run_demo
 
     run_demo(out, n_draws=draws, echo=console.print)
+
+
+def _period(text: str, what: str) -> tuple[str, str]:
+    parts = text.split(":")
+    if len(parts) != 2 or not all(parts):
+        raise typer.BadParameter(f"{what} must be START:END dates, e.g. 2025-01-01:2025-12-31")
+    return parts[0], parts[1]
+
+
+@app.command("count")
+def count_command(
+    trial: Annotated[Path, typer.Argument(help="Trial file (GeoPackage).")],
+    incidents: Annotated[Path, typer.Option(help="Incident points: CSV or point layer.")],
+    pre: Annotated[str, typer.Option(help="Pre-period START:END (dates, both included).")],
+    post: Annotated[str, typer.Option(help="Post-period START:END (dates, both included).")],
+    date_column: Annotated[str, typer.Option(help="Column of incident dates.")] = "date",
+    type_column: Annotated[str | None, typer.Option(help="Column of incident types.")] = None,
+    lon: Annotated[str | None, typer.Option(help="Longitude column (CSV in WGS 84).")] = None,
+    lat: Annotated[str | None, typer.Option(help="Latitude column (CSV in WGS 84).")] = None,
+    x: Annotated[str | None, typer.Option(help="x column (CSV in a projected CRS).")] = None,
+    y: Annotated[str | None, typer.Option(help="y column (CSV in a projected CRS).")] = None,
+    crs: Annotated[str | None, typer.Option(help="CRS of x/y columns, e.g. EPSG:32633.")] = None,
+    tolerance: Annotated[float, typer.Option(help="Snapping tolerance in metres.")] = 30.0,
+    dropped: Annotated[
+        Path | None, typer.Option(help="CSV for the incidents not counted, with reasons.")
+    ] = None,
+) -> None:
+    """Count incidents per unit for the pre- and post-periods and store them in the trial file."""
+    from geoexp.outcomes import count_incidents, save_outcomes
+    from geoexp.trialfile import TrialFile
+
+    table = count_incidents(
+        TrialFile.open(trial),
+        incidents,
+        date_column=date_column,
+        type_column=type_column,
+        lon=lon,
+        lat=lat,
+        x=x,
+        y=y,
+        crs=crs,
+        tolerance_m=tolerance,
+        pre=_period(pre, "--pre"),
+        post=_period(post, "--post"),
+        dropped_path=dropped,
+    )
+    save_outcomes(trial, table)
+    console.print(str(table.drops))
+    console.print(f"Outcomes stored in {trial}")
+
+
+@app.command("analyse")
+def analyse_command(
+    trial: Annotated[Path, typer.Argument(help="Trial file with outcomes (see 'count').")],
+    report: Annotated[
+        Path, typer.Option(help="HTML report to write (a .md twin goes beside it).")
+    ] = Path("report.html"),
+    outcome: Annotated[str, typer.Option(help="'change' (post minus pre) or 'post'.")] = "change",
+    estimator: Annotated[str, typer.Option(help="'hajek' or 'horvitz-thompson'.")] = "hajek",
+    draws: Annotated[int, typer.Option(help="Draws of the design per randomization test.")] = 2000,
+    level: Annotated[float, typer.Option(help="Confidence level.")] = 0.95,
+) -> None:
+    """Estimate direct and spillover effects, test them, and write the report."""
+    from geoexp.analysis import analyse, save_results, write_report
+    from geoexp.trialfile import TrialFile
+
+    result = analyse(trial, outcome=outcome, estimator=estimator, n_draws=draws, level=level)
+    save_results(trial, result)
+    html_path, md_path = write_report(result, report, trial=TrialFile.open(trial))
+    console.print(str(result))
+    console.print(f"Report: {html_path} (Markdown: {md_path}); results stored in {trial}")

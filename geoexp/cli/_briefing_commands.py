@@ -39,7 +39,7 @@ def briefing_command(
 ) -> None:
     """Write the printable briefing pack for field teams: cover, overview map, district maps and lists."""
     from geoexp.briefing import briefing_pack, plan_briefing
-    from geoexp.quickstart import CAUTION
+    from geoexp.cautions import CAUTION
 
     if out is None:
         out = trial.with_name(f"{trial.stem}_briefing_{paper.value}.pdf")

@@ -18,27 +18,17 @@ def _draw_only_map(spec_path: Path, districts: Path | None, tiles: str | None):
     """Units of a spec with their eligibility so far, before any design is drawn."""
     from geoexp.design import DesignSpec
     from geoexp.maps import drawing_map
-    from geoexp.units import UnitSet
 
     spec = DesignSpec.from_toml(spec_path)
-    u = spec.units
-    units = UnitSet.from_file(spec.resolve(u.path), u.id_column, layer=u.layer, crs=u.crs)
-    # The same eligibility steps, in the same order, as the design applies.
-    rules = spec.eligible
-    eligible = units
-    if rules.where:
-        eligible = eligible.select(rules.where)
-    for zone in rules.exclude:
-        eligible = eligible.exclude(spec.resolve(zone), how=rules.exclude_how)
-    if rules.top_column:
-        eligible = eligible.top(rules.top_column, k=rules.top_k, share=rules.top_share)
+    units = spec.read_units()
+    eligible = spec.eligible_units(units)
     return drawing_map(
         units,
         eligible=eligible.ids,
         districts=districts,
         district_column=spec.field.district_column,
         description_column=spec.field.description_column,
-        zones=[spec.resolve(z) for z in rules.exclude],
+        zones=[spec.resolve(z) for z in spec.eligible.exclude],
         title=f"{spec.name}: exclusion zones",
         tiles=tiles,
     )

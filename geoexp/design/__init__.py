@@ -23,10 +23,24 @@ from geoexp.design._samplers import (
     SaturationSampler,
     SeparatedSampler,
 )
-from geoexp.design._spec import DesignSpec
+from geoexp.design._spec import (
+    AssignmentSpec,
+    DesignSpec,
+    EligibilitySpec,
+    ExposureSpec,
+    FieldSpec,
+    RerandomizeSpec,
+    UnitsSpec,
+)
 
 __all__ = [
     "Assignment",
+    "AssignmentSpec",
+    "EligibilitySpec",
+    "ExposureSpec",
+    "FieldSpec",
+    "RerandomizeSpec",
+    "UnitsSpec",
     "BlockedSampler",
     "CompleteSampler",
     "Design",

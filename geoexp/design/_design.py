@@ -70,11 +70,10 @@ class Design:
         """
         notes: list[str] = []
         if units is None:
-            u = spec.units
-            units = UnitSet.from_file(spec.resolve(u.path), u.id_column, layer=u.layer, crs=u.crs)
+            units = spec.read_units()
         notes.append(units.crs_report)
         if eligible is None:
-            eligible_units = _eligible_units(spec, units)
+            eligible_units = spec.eligible_units(units)
             notes.extend(n for n in eligible_units.notes if n not in units.notes)
             eligible = np.asarray(units.ids.isin(eligible_units.ids))
         else:
@@ -202,18 +201,6 @@ class Design:
         from geoexp.design._check import check_design
 
         return check_design(self, n_draws=n_draws, assignment=assignment)
-
-
-def _eligible_units(spec: DesignSpec, units: UnitSet) -> UnitSet:
-    e = spec.eligible
-    out = units
-    if e.where:
-        out = out.select(e.where)
-    for zone in e.exclude:
-        out = out.exclude(spec.resolve(zone), how=e.exclude_how)
-    if e.top_column:
-        out = out.top(e.top_column, k=e.top_k, share=e.top_share)
-    return out
 
 
 def _labels(units: UnitSet, column: str, eligible: np.ndarray, what: str) -> np.ndarray:

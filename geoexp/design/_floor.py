@@ -11,7 +11,7 @@ from geoexp._rng import RngLike, as_seed_sequence, child_sequence
 from geoexp.design._draws import Draws
 from geoexp.errors import InfeasibleDesignError
 from geoexp.exposure import ExposureMapping
-from geoexp.exposure._kernels import touched_conditions_numpy
+from geoexp.exposure._kernels import scatter_counts
 from geoexp.exposure._probabilities import reach_csr
 
 _PILOT = 400
@@ -61,20 +61,15 @@ class PureControlFloor:
         )
 
     def _pure_controls(self, draws: Draws) -> np.ndarray:
+        """Eligible units left as pure controls by each draw."""
         g_indptr, g_indices, g_dist = reach_csr(self.graph, self.mapping)
         edges = np.asarray(self.mapping.band_edges, dtype=np.float64)
-        draw, unit, _ = touched_conditions_numpy(
-            draws.indptr,
-            draws.indices.astype(np.int64),
-            g_indptr,
-            g_indices,
-            g_dist,
-            edges,
-            self.n_units,
+        _, _, sums = scatter_counts(
+            draws.indptr, draws.indices, g_indptr, g_indices, g_dist, edges, self.n_units,
+            self.eligible[:, None].astype(np.float64),
         )
-        n_draws = draws.indptr.size - 1
-        touched_eligible = np.bincount(draw[self.eligible[unit]], minlength=n_draws)
-        return int(self.eligible.sum()) - np.diff(draws.indptr) - touched_eligible
+        # sums[r, c, 0]: eligible units in condition c in draw r (pure control left at zero)
+        return int(self.eligible.sum()) - sums[:, : self.mapping.pure_control, 0].sum(axis=1)
 
     def iter_chunks(
         self, n_draws: int, rng: RngLike = None, *, chunk: int | None = None

@@ -212,6 +212,29 @@ class DesignSpec:
         """First 12 hex digits of :attr:`hash`, as printed on field outputs."""
         return self.hash[:12]
 
+    def read_units(self):
+        """Read the spec's unit layer as a :class:`~geoexp.units.UnitSet`."""
+        from geoexp.units import UnitSet
+
+        u = self.units
+        return UnitSet.from_file(self.resolve(u.path), u.id_column, layer=u.layer, crs=u.crs)
+
+    def eligible_units(self, units):
+        """Apply the ``[eligible]`` rules to ``units``: the rule, exclusion zones, then hot spots.
+
+        Exclusion zones come before the top-k/top-share cut, so that hot spots
+        are picked among the places that may be treated at all.
+        """
+        e = self.eligible
+        out = units
+        if e.where:
+            out = out.select(e.where)
+        for zone in e.exclude:
+            out = out.exclude(self.resolve(zone), how=e.exclude_how)
+        if e.top_column:
+            out = out.top(e.top_column, k=e.top_k, share=e.top_share)
+        return out
+
     def resolve(self, path: str) -> Path:
         """A path from the spec, resolved relative to the spec file's folder."""
         p = Path(path)

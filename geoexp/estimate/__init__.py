@@ -9,11 +9,13 @@ quotient of Bowers & Johnson (2003).
 from geoexp.estimate._displacement import DisplacementIndex, weighted_displacement_quotient
 from geoexp.estimate._horvitz import ContrastEstimate, estimate_contrast
 from geoexp.estimate._neyman import difference_in_means
+from geoexp.estimate._saturation import saturation_effects
 
 __all__ = [
     "ContrastEstimate",
     "DisplacementIndex",
     "difference_in_means",
     "estimate_contrast",
+    "saturation_effects",
     "weighted_displacement_quotient",
 ]

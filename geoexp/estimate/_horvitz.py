@@ -107,7 +107,7 @@ def variance_terms(
         for s, p, w, c in ((sk, pk, wk, k), (sl, pl, wl, l)):
             if not s.size:
                 continue
-            jj = bits.joint_block(c, rows[s], c, rows[s])
+            jj = bits.joint_block(c, rows[s], c, rows[s]).copy()
             np.fill_diagonal(jj, np.nan)
             prod = np.outer(p[s], p[s])
             with np.errstate(invalid="ignore", divide="ignore"):

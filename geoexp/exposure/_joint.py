@@ -11,7 +11,7 @@ draws to a word: memory is n_units * R / 8 bytes (125 MB for 100,000 units and
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from typing import TYPE_CHECKING
 
 import numpy as np
@@ -176,6 +176,7 @@ class ConditionBits:
     positions: np.ndarray
     bits: np.ndarray
     n_draws: int
+    _cache: dict = field(default_factory=dict, repr=False)
 
     def probabilities(self) -> np.ndarray:
         """Marginal probabilities (n_held, n_conditions)."""
@@ -199,15 +200,26 @@ class ConditionBits:
         Computed as products of unpacked bit blocks in float32, which count
         exactly up to 2**24 draws.
         """
-        a_bits = self.bits[k][np.asarray(rows, dtype=np.int64)]
-        b_bits = self.bits[l][np.asarray(cols, dtype=np.int64)]
+        rows = np.asarray(rows, dtype=np.int64)
+        cols = np.asarray(cols, dtype=np.int64)
+        # the Hajek and Horvitz-Thompson variances of a contrast ask for the same blocks
+        key = (k, l, hash(rows.tobytes()), hash(cols.tobytes()))
+        if key in self._cache:
+            return self._cache[key]
+        if len(self._cache) >= 8:
+            self._cache.pop(next(iter(self._cache)))
+        a_bits = self.bits[k][rows]
+        b_bits = self.bits[l][cols]
         out = np.zeros((a_bits.shape[0], b_bits.shape[0]), dtype=np.float32)
         step = 16  # words per block: 1,024 draws
         for w in range(0, self.bits.shape[2], step):
             a = _unpack(a_bits[:, w : w + step])
             b = _unpack(b_bits[:, w : w + step])
             out += a @ b.T
-        return out.astype(np.float64) / self.n_draws
+        result = out.astype(np.float64) / self.n_draws
+        result.flags.writeable = False
+        self._cache[key] = result
+        return result
 
 
 def _unpack(words: np.ndarray) -> np.ndarray:

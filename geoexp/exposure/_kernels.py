@@ -119,17 +119,19 @@ def touched_conditions_numpy(
     keep = dist <= edges[-1]
     draw, unit, dist = draw[keep], unit[keep], dist[keep]
     key = draw * n_units + unit
+    # nearest treated unit per (draw, unit): sort by key, take the minimum of each run
+    order = np.argsort(key, kind="stable")
+    key, dist = key[order], dist[order]
+    if key.size:
+        starts = np.flatnonzero(np.concatenate(([True], key[1:] != key[:-1])))
+        dist = np.minimum.reduceat(dist, starts)
+        key = key[starts]
+    # drop the treated units themselves (they are "treated", whatever their neighbours)
     treated_key = np.sort(draw_of * n_units + d_indices)
-    hit = np.searchsorted(treated_key, key)
-    hit = np.minimum(hit, max(treated_key.size - 1, 0))
-    if treated_key.size:
+    if treated_key.size and key.size:
+        hit = np.minimum(np.searchsorted(treated_key, key), treated_key.size - 1)
         untreated = treated_key[hit] != key
         key, dist = key[untreated], dist[untreated]
-    order = np.lexsort((dist, key))
-    key, dist = key[order], dist[order]
-    first = np.ones(key.size, dtype=bool)
-    first[1:] = key[1:] != key[:-1]
-    key, dist = key[first], dist[first]
     cond = (np.searchsorted(edges, dist, side="left") + 1).astype(np.int64)
     return key // n_units, key % n_units, cond
 

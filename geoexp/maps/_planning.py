@@ -635,7 +635,7 @@ def planning_map(
     folium.Map
         Save it with :func:`save_map` to get a page that works offline.
     """
-    from geoexp.quickstart import CAUTION
+    from geoexp.cautions import CAUTION
     from geoexp.trialfile import TrialFile
 
     tf = trial if isinstance(trial, TrialFile) else TrialFile.open(trial)
@@ -856,7 +856,7 @@ def drawing_map(
     -------
     folium.Map
     """
-    from geoexp.quickstart import CAUTION
+    from geoexp.cautions import CAUTION
 
     frame = units.frame if hasattr(units, "frame") else units
     if not isinstance(frame, gpd.GeoDataFrame) or frame.crs is None:

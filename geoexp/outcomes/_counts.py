@@ -174,15 +174,16 @@ class DropReport:
         }
         where = f" from '{self.source}'" if self.source else ""
         text = (
-            f"Of {self.n_incidents:,} incidents{where}, {self.n_counted:,} were counted and "
+            f"Of {self.n_incidents:,} incident{'' if self.n_incidents == 1 else 's'}{where}, {self.n_counted:,} were counted and "
             f"{self.n_dropped:,} dropped"
         )
         parts = [f"{n:,} {words[r]} ({r})" for r, n in self.counts().items() if n]
         text += (": " + "; ".join(parts) + ".") if parts else "."
         if self.ties:
+            who = "incident was" if self.ties == 1 else "incidents were"
             text += (
-                f" {self.ties:,} counted incidents were equally near two or more units and went "
-                "to the one with the smallest id."
+                f" {self.ties:,} counted {who} equally near two or more units and went to the "
+                "one with the smallest id."
             )
         if self.outside_tolerance and self.n_counted == 0:
             text += (
