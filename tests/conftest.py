@@ -24,3 +24,17 @@ def region_path(region):
     """Path of the shipped sample city GeoPackage."""
     assert region.path is not None, "the shipped sample_regions/quillmere.gpkg is missing"
     return region.path
+
+
+@pytest.fixture(scope="session")
+def demo_outputs(tmp_path_factory):
+    """The README's demo job, run once per session (few Monte Carlo draws); its output paths.
+
+    Tests read these files; a test that changes one must copy it first.
+    """
+    from geoexp.quickstart import run_demo
+
+    out = tmp_path_factory.mktemp("demo")
+    paths = run_demo(out, n_draws=200, echo=lambda *_: None)
+    paths["dir"] = out
+    return paths

@@ -73,11 +73,8 @@ def expected_pages(groups: dict[str, list[str]], paper: str) -> int:
 
 
 @pytest.fixture(scope="module")
-def demo_trial(tmp_path_factory) -> Path:
-    from geoexp.quickstart import run_demo
-
-    out = tmp_path_factory.mktemp("briefing_demo")
-    return run_demo(out, n_draws=100, echo=lambda _: None)["trial"]
+def demo_trial(demo_outputs) -> Path:
+    return demo_outputs["trial"]
 
 
 @pytest.fixture(scope="module")

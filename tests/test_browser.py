@@ -56,12 +56,8 @@ def browser():
 
 
 @pytest.fixture(scope="module")
-def demo(tmp_path_factory):
-    from geoexp.quickstart import run_demo
-
-    out = tmp_path_factory.mktemp("browser_demo")
-    run_demo(out, n_draws=100, echo=lambda *_: None)
-    return out
+def demo(demo_outputs):
+    return demo_outputs["dir"]
 
 
 @pytest.fixture(scope="module")

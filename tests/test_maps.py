@@ -37,13 +37,9 @@ from geoexp.maps import (
 
 
 @pytest.fixture(scope="module")
-def demo(tmp_path_factory):
+def demo(demo_outputs):
     """A drawn trial of the sample city (the demo job, few Monte Carlo draws)."""
-    from geoexp.quickstart import run_demo
-
-    out = tmp_path_factory.mktemp("maps_demo")
-    run_demo(out, n_draws=100, echo=lambda *_: None)
-    return out
+    return demo_outputs["dir"]
 
 
 @pytest.fixture(scope="module")

@@ -1,0 +1,128 @@
+"""The whole analysis of a trial, its report, and its refusal to analyse a tampered file."""
+
+from __future__ import annotations
+
+import shutil
+
+import numpy as np
+import pandas as pd
+import pyogrio
+import pytest
+
+from geoexp.analysis import analyse
+from geoexp.cautions import CAUTION
+from geoexp.design import Design
+from geoexp.errors import DesignError
+from geoexp.trialfile import TrialFile
+
+
+@pytest.fixture(scope="module")
+def analysis(demo_outputs):
+    return analyse(demo_outputs["trial"], n_draws=300)
+
+
+def test_demo_analysis_finds_the_planted_reduction(analysis):
+    # The demo plants a 30% reduction on treated segments (DEMO_MULTIPLIERS); with 40 hot
+    # spots the Fisher test must see it.
+    direct = analysis.effects[0]
+    assert direct.contrast == "treated vs pure control"
+    assert direct.estimate < 0
+    assert analysis.fisher[0].p_value < 0.05
+    assert analysis.verdicts[0].finding == "reduction"
+    assert len(analysis.effects) == 3  # treated and two spillover bands
+    for e in analysis.effects:
+        assert e.ci_low < e.estimate < e.ci_high
+    for low, high in analysis.intervals:
+        assert low < high
+
+
+def test_hajek_estimate_is_the_weighted_difference_in_means(analysis, demo_outputs):
+    # [A] the Hajek contrast is a difference of inverse-probability-weighted means
+    units = analysis.per_unit
+    y = units["change"].to_numpy()
+    e = analysis.effects[1]
+    p1, pc = units["p_spillover_1"].to_numpy(), units["p_pure_control"].to_numpy()
+    pop = (p1 > 0) & (pc > 0)
+    k = pop & (units["condition"] == "spillover_1").to_numpy()
+    c = pop & (units["condition"] == "pure_control").to_numpy()
+    expected = np.average(y[k], weights=1 / p1[k]) - np.average(y[c], weights=1 / pc[c])
+    assert e.estimate == pytest.approx(expected, rel=1e-10)
+    # [A] the displacement quotient's counts are the sums by observed condition
+    d = analysis.displacement[0]
+    assert d.target_after == units.loc[units["condition"] == "treated", "post"].sum()
+
+
+def test_results_table_and_report(analysis, demo_outputs):
+    frame = analysis.to_frame()
+    assert list(frame.index) == [e.contrast for e in analysis.effects]
+    assert {"estimate", "ci_low", "ci_high", "p_value", "p_value_no_spillover"} <= set(frame)
+    html = demo_outputs["report"].read_text(encoding="utf-8")
+    md = demo_outputs["report_md"].read_text(encoding="utf-8")
+    for text in (html, md):
+        assert "treated vs pure control" in text
+        assert "Bowers" in text
+    assert CAUTION.split(".")[0] in html
+    assert "data:image/png;base64" in html
+    tf = TrialFile.open(demo_outputs["trial"])
+    stored = pyogrio.read_dataframe(tf.path, layer="results")
+    assert len(stored) == 3
+    assert tf.meta["results_spec_hash"] == tf.spec_hash
+
+
+def test_other_outcome_and_estimator(demo_outputs):
+    post = analyse(
+        demo_outputs["trial"],
+        outcome="post",
+        estimator="horvitz-thompson",
+        n_draws=100,
+        intervals=False,
+    )
+    assert post.effects[0].estimator == "horvitz-thompson"
+    assert "post-period" in post.outcome_words
+    assert np.isnan(post.intervals[0][0])
+
+
+def test_tampered_assignment_is_refused(tmp_path, demo_outputs):
+    path = tmp_path / "trial.gpkg"
+    shutil.copy(demo_outputs["trial"], path)
+    tf = TrialFile.open(path)
+    assign = tf.assignment()
+    treated = assign.index[assign["treated"].astype(bool)][0]
+    control = assign.index[~assign["treated"].astype(bool) & assign["eligible"].astype(bool)][0]
+    assign.loc[treated, "treated"] = False
+    assign.loc[control, "treated"] = True
+    tf.write_layers({"assignment": assign})
+    with pytest.raises(DesignError, match="edited by hand"):
+        Design.from_trial(path)
+
+
+def test_missing_outcomes_are_named(tmp_path, demo_outputs):
+    from geoexp.outcomes import OutcomeTable, load_outcomes
+
+    table = load_outcomes(demo_outputs["trial"])
+    partial = OutcomeTable(
+        counts=table.counts.iloc[5:],
+        pre=table.pre,
+        post=table.post,
+        tolerance_m=table.tolerance_m,
+        drops=table.drops,
+    )
+    with pytest.raises(ValueError, match="no counts for 5 units"):
+        analyse(demo_outputs["trial"], partial, n_draws=50)
+
+
+def test_counts_in_trial_match_the_incidents(demo_outputs):
+    # independent tally with geopandas sjoin_nearest on the same CSV and periods
+    import geopandas as gpd
+
+    tf = TrialFile.open(demo_outputs["trial"])
+    units = tf.units()
+    inc = pd.read_csv(demo_outputs["incidents"])
+    pts = gpd.GeoDataFrame(inc, geometry=gpd.points_from_xy(inc.lon, inc.lat), crs=4326)
+    pts = pts.to_crs(units.crs)
+    post = pts[(pts["date"] >= "2026-01-01") & (pts["date"] <= "2026-12-31")]
+    joined = gpd.sjoin_nearest(post, units[["geometry"]].reset_index(), max_distance=30.0)
+    joined = joined.drop_duplicates("incident_id")
+    expected = joined.groupby(tf.id_column).size().reindex(units.index, fill_value=0)
+    stored = tf.read("outcomes")["post"].reindex(units.index)
+    assert (stored.to_numpy() == expected.to_numpy()).mean() > 0.999  # ties may differ

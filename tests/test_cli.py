@@ -1,0 +1,73 @@
+"""The command line: every command has help, errors are messages with exit status 2."""
+
+from __future__ import annotations
+
+import subprocess
+import sys
+
+import pytest
+from typer.testing import CliRunner
+
+from geoexp.cli import app
+
+COMMANDS = [
+    "draw",
+    "check",
+    "export",
+    "sample-region",
+    "demo",
+    "count",
+    "analyse",
+    "map",
+    "briefing",
+]
+
+
+@pytest.mark.parametrize("command", COMMANDS)
+def test_every_command_has_help(command):
+    result = CliRunner().invoke(app, [command, "--help"])
+    assert result.exit_code == 0
+    assert "Usage" in result.output
+
+
+def run(*args):
+    return subprocess.run(
+        [sys.executable, "-c", "from geoexp.cli import main; main()", *args],
+        capture_output=True,
+        text=True,
+    )
+
+
+def test_draw_check_export_and_lock(tmp_path, demo_outputs):
+    spec = demo_outputs["spec"]
+    trial = tmp_path / "t.gpkg"
+    first = run(
+        "draw", str(spec), "--trial", str(trial), "--draws", "200", "--csv", str(tmp_path / "f.csv")
+    )
+    assert first.returncode == 0, first.stderr
+    assert "locked" in first.stdout
+    again = run("draw", str(spec), "--trial", str(trial), "--draws", "200")
+    assert again.returncode == 2
+    assert "replace" in again.stderr and "Traceback" not in again.stderr
+    replaced = run(
+        "draw",
+        str(spec),
+        "--trial",
+        str(trial),
+        "--draws",
+        "200",
+        "--replace",
+        "--reason",
+        "testing",
+    )
+    assert replaced.returncode == 0, replaced.stderr
+    checked = run("check", str(spec), "--draws", "200")
+    assert checked.returncode == 0 and "Verdict" in checked.stdout
+    exported = run("export", str(trial), "--csv", str(tmp_path / "e.csv"))
+    assert exported.returncode == 0 and (tmp_path / "e.csv").exists()
+
+
+def test_bad_input_is_a_message_not_a_traceback(tmp_path):
+    result = run("check", str(tmp_path / "missing.toml"))
+    assert result.returncode == 2
+    assert "missing.toml" in result.stderr and "Traceback" not in result.stderr
