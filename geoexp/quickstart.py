@@ -149,9 +149,14 @@ def run_demo(out: str | Path, *, n_draws: int = 2000, echo: Callable[[str], None
     save_outcomes(trial_path, outcomes)
     analysis = analyse(trial_path, n_draws=n_draws)
     save_results(trial_path, analysis)
+    from geoexp.maps import save_result_map
+
+    finished = TrialFile.open(trial_path)
+    results_map = save_result_map(analysis, finished, out / "results_map.html")
     report, report_md = write_report(
-        analysis, out / "report.html", trial=TrialFile.open(trial_path)
+        analysis, out / "report.html", trial=finished, result_map_html=results_map
     )
+    echo(f"Interactive result map: {results_map}")
     echo(str(analysis))
     echo(f"Report: {report} (Markdown twin: {report_md})")
     echo(CAUTION)

@@ -5,6 +5,7 @@ from __future__ import annotations
 import base64
 import html
 import io
+import os
 from collections.abc import Callable
 from pathlib import Path
 from typing import TYPE_CHECKING
@@ -23,6 +24,17 @@ if TYPE_CHECKING:
     from geoexp.analysis._run import Analysis
     from geoexp.trialfile import TrialFile
 
+
+RESULT_MAP_TITLE = "Result map: observed change per unit by condition"
+
+
+def _relative_link(target: str | Path, report: Path) -> str:
+    """Link from the report to ``target``: relative when both share a drive, else a file URI."""
+    target = Path(target)
+    try:
+        return Path(os.path.relpath(target.resolve(), report.resolve().parent)).as_posix()
+    except ValueError:  # different drives on Windows
+        return target.resolve().as_uri()
 
 
 def distance_decay_plot(analysis: Analysis, ax=None):
@@ -120,11 +132,17 @@ def write_report(
     *,
     trial: TrialFile | None = None,
     extra_figures: dict[str, Callable] | None = None,
+    result_map_html: str | Path | None = None,
+    static_map: bool = True,
 ) -> tuple[Path, Path]:
     """Write the report as HTML (plots embedded) and a Markdown twin beside it.
 
-    ``extra_figures`` maps a title to a function ``f(ax)`` that draws on an Axes
-    (for example a static result map). Returns (html_path, markdown_path).
+    ``extra_figures`` maps a title to a function ``f(ax)`` that draws on an Axes.
+    When ``trial`` is given (and ``static_map`` is true) the report also embeds
+    the static result map of :func:`geoexp.maps.result_map_static`.
+    ``result_map_html`` is the path of the interactive result map (from
+    :func:`geoexp.maps.result_map`), linked from both reports. Returns
+    (html_path, markdown_path).
     """
     path = Path(path)
     md_path = path.with_suffix(".md")
@@ -132,6 +150,13 @@ def write_report(
     fig, ax = plt.subplots(figsize=(6.4, 3.6))
     distance_decay_plot(analysis, ax=ax)
     figures["Effect by distance"] = _png(fig)
+    if trial is not None and static_map and RESULT_MAP_TITLE not in (extra_figures or {}):
+        from geoexp.maps import result_map_static
+
+        fig, ax = plt.subplots(figsize=(8.3, 8.3))
+        result_map_static(analysis, trial, ax=ax)
+        figures[RESULT_MAP_TITLE] = _png(fig)
+    link = _relative_link(result_map_html, path) if result_map_html is not None else None
     for title, draw in (extra_figures or {}).items():
         fig, ax = plt.subplots(figsize=(7, 7))
         draw(ax)
@@ -167,7 +192,16 @@ def write_report(
         f"<p class='caution'>{html.escape(CAUTION)}</p>",
         "<h2>Findings</h2><ul>",
         *(f"<li>{html.escape(v.sentence)}</li>" for v in analysis.verdicts),
-        "</ul><p>Effects are in incidents per unit; a reduction is negative, and more incidents "
+        "</ul>",
+        *(
+            [
+                f"<p>Interactive result map: <a href='{html.escape(link)}'>"
+                f"{html.escape(Path(link).name)}</a> (opens in a browser, works offline).</p>"
+            ]
+            if link
+            else []
+        ),
+        "<p>Effects are in incidents per unit; a reduction is negative, and more incidents "
         "next to treated units (displacement) is positive. Rejecting “no effect at all” is not "
         "evidence of spillover; the spillover verdicts rest on the conditional test of no "
         "spillover.</p>",
@@ -211,6 +245,7 @@ def write_report(
         "",
         *(f"- {v.sentence}" for v in analysis.verdicts),
         "",
+        *([f"Interactive result map: [{Path(link).name}]({link})", ""] if link else []),
         "## Design",
         "",
         *(f"- {k}: {v}" for k, v in design_rows.items()),

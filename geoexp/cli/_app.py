@@ -125,7 +125,7 @@ def demo_command(
     out: Annotated[Path, typer.Option(help="Folder for the demo's outputs.")] = Path("demo_trial"),
     draws: Annotated[int, typer.Option(help="Monte Carlo draws.")] = 2000,
 ) -> None:
-    """Run the whole job on the built-in sample region: design, check, draw, field list."""
+    """Run the whole job on the built-in sample region, from planning to the results report."""
     from geoexp.quickstart import run_demo
 
     run_demo(out, n_draws=draws, echo=console.print)
@@ -182,19 +182,55 @@ def count_command(
 
 @app.command("analyse")
 def analyse_command(
-    trial: Annotated[Path, typer.Argument(help="Trial file with outcomes (see 'count').")],
+    trial: Annotated[Path, typer.Argument(help="Trial file (with outcomes, or give --incidents).")],
     report: Annotated[
         Path, typer.Option(help="HTML report to write (a .md twin goes beside it).")
     ] = Path("report.html"),
+    incidents: Annotated[
+        Path | None, typer.Option(help="Incident points to count first (CSV or point layer).")
+    ] = None,
+    pre: Annotated[str | None, typer.Option(help="With --incidents: pre-period START:END.")] = None,
+    post: Annotated[
+        str | None, typer.Option(help="With --incidents: post-period START:END.")
+    ] = None,
+    date_column: Annotated[str, typer.Option(help="With --incidents: date column.")] = "date",
+    lon: Annotated[str | None, typer.Option(help="With --incidents: longitude column.")] = None,
+    lat: Annotated[str | None, typer.Option(help="With --incidents: latitude column.")] = None,
+    x: Annotated[str | None, typer.Option(help="With --incidents: x column.")] = None,
+    y: Annotated[str | None, typer.Option(help="With --incidents: y column.")] = None,
+    crs: Annotated[str | None, typer.Option(help="With --incidents: CRS of x/y.")] = None,
+    tolerance: Annotated[float, typer.Option(help="Snapping tolerance in metres.")] = 30.0,
     outcome: Annotated[str, typer.Option(help="'change' (post minus pre) or 'post'.")] = "change",
     estimator: Annotated[str, typer.Option(help="'hajek' or 'horvitz-thompson'.")] = "hajek",
     draws: Annotated[int, typer.Option(help="Draws of the design per randomization test.")] = 2000,
     level: Annotated[float, typer.Option(help="Confidence level.")] = 0.95,
 ) -> None:
-    """Estimate direct and spillover effects, test them, and write the report."""
+    """Estimate direct and spillover effects, test them, and write the report.
+
+    With --incidents (and --pre, --post) the incidents are counted and stored
+    first, so one command goes from the trial file and the incidents to the report.
+    """
     from geoexp.analysis import analyse, save_results, write_report
     from geoexp.trialfile import TrialFile
 
+    if incidents is not None:
+        if pre is None or post is None:
+            raise typer.BadParameter("--incidents needs --pre and --post")
+        count_command(
+            trial,
+            incidents,
+            pre,
+            post,
+            date_column=date_column,
+            lon=lon,
+            lat=lat,
+            x=x,
+            y=y,
+            crs=crs,
+            tolerance=tolerance,
+            type_column=None,
+            dropped=None,
+        )
     result = analyse(trial, outcome=outcome, estimator=estimator, n_draws=draws, level=level)
     save_results(trial, result)
     html_path, md_path = write_report(result, report, trial=TrialFile.open(trial))

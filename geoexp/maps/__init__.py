@@ -8,11 +8,15 @@ sketching exclusion zones before a design exists; :func:`save_map` writes
 either as one self-contained HTML page that needs no network apart from
 base-map tiles. :func:`condition_style` is the one colour, width and dash
 pattern per exposure condition that every geoexp map (web or print) uses.
+After the analysis, :func:`result_map` (interactive) and
+:func:`result_map_static` (matplotlib, for the report) map the observed change
+per unit by condition with the spillover bands, estimates and verdicts.
 """
 
 from geoexp.maps._assets import OfflineAssetWarning, offline_assets_available
 from geoexp.maps._palette import OKABE_ITO, ConditionStyle, condition_order, condition_style
 from geoexp.maps._planning import ZONES_FILENAME, drawing_map, map_html, planning_map, save_map
+from geoexp.maps._results import result_map, result_map_static, save_result_map
 
 __all__ = [
     "OKABE_ITO",
@@ -25,5 +29,8 @@ __all__ = [
     "map_html",
     "offline_assets_available",
     "planning_map",
+    "result_map",
+    "result_map_static",
     "save_map",
+    "save_result_map",
 ]

@@ -313,7 +313,16 @@ def result_map_static(
         )
         for name, (lx, ly) in zip(dist_frame["name"], label_at, strict=True):
             halo_text(
-                ax, lx, ly, str(name), ha="center", va="center", fontsize=7, color="0.25", zorder=1.5
+                ax,
+                lx,
+                ly,
+                str(name),
+                ha="center",
+                va="center",
+                fontsize=7.5,
+                fontweight="bold",
+                color="0.2",
+                zorder=20,
             )
         handles.append(
             Line2D([], [], color="0.3", linewidth=0.8, linestyle=(0, (8, 3, 2, 3)), label=how)
@@ -396,16 +405,21 @@ def result_map_static(
         if code in estimates:
             text += f": {_effect_words(estimates[code])}"
         condition_handles.append(_legend_line(style.width * PRINT_WIDTH, style.dash, text))
+    # Legend and caption go under the map, so that they hide no units.
     legend = ax.legend(
         handles=condition_handles + handles,
         loc="upper left",
-        fontsize=6.5,
-        framealpha=0.92,
+        bbox_to_anchor=(0.0, -0.012),
+        ncols=2,
+        fontsize=7,
+        framealpha=1.0,
+        edgecolor="0.5",
         title="condition (units): estimate vs pure control (interval)",
-        title_fontsize=6.5,
-        borderpad=0.6,
+        title_fontsize=7,
+        alignment="left",
+        borderaxespad=0.0,
     )
-    legend.set_zorder(30)
+    legend.set_gid("legend")
 
     clipped = bool(np.nanmax(np.abs(data.change), initial=0.0) > limit)
     colourbar = fig.colorbar(
@@ -421,22 +435,32 @@ def result_map_static(
     scale_bar(ax, metres_per_unit=data.metres_per_unit)
     cx, cy = (x0 + x1) / 2, (y0 + y1) / 2
     north_arrow(ax, angle=true_north_angle(units.crs, cx, cy))
-    ax.set_title(f"{data.title}: observed change per unit\n{data.subtitle}", fontsize=9)
+    ax.set_title(
+        f"{data.title}: observed change per unit\n"
+        + textwrap.fill(
+            data.subtitle, max(60, int(ax.get_position().width * fig.get_figwidth() * 72 / 4))
+        ),
+        fontsize=8.5,
+    )
 
+    ax.set_xlabel("")
+    ax.set_ylabel("")
     width_in = ax.get_position().width * fig.get_figwidth()
-    chars = max(50, int(width_in * 72 / (7.0 * 0.52)))
+    chars = max(50, int(width_in * 72 / (7.0 * 0.5)))
     sentences = [v.sentence for _, _, v in data.rows] or [v.sentence for v in analysis.verdicts]
     caption = "\n".join(textwrap.fill(s, chars, subsequent_indent="  ") for s in sentences)
-    ax.text(
-        0.0,
-        -0.015,
+    ax.annotate(
         caption,
-        transform=ax.transAxes,
+        xy=(0.0, 0.0),
+        xycoords=legend,
+        xytext=(0.0, -8.0),
+        textcoords="offset points",
         ha="left",
         va="top",
         fontsize=7.0,
         linespacing=1.3,
         gid="verdicts",
+        annotation_clip=False,
         bbox={"boxstyle": "round,pad=0.5", "facecolor": "white", "edgecolor": "0.5", "lw": 0.6},
     )
     return ax
@@ -528,7 +552,9 @@ def result_map(
         {"labels": labels, "prob_labels": [labels[c] for c in prob_codes]},
     )
     limit = change_limit(data.change)
-    palette, colour_of = np.unique(_change_colours(data.change, limit).astype(str), return_inverse=True)
+    palette, colour_of = np.unique(
+        _change_colours(data.change, limit).astype(str), return_inverse=True
+    )
     values = {
         "id": per_unit.index.astype(str).tolist(),
         "pre": _numbers(per_unit["pre"]),
@@ -538,9 +564,7 @@ def result_map(
         "palette": palette.tolist(),
     }
 
-    dist_frame, how = _districts_layer(
-        districts, units, data.district_column, page.sample
-    )
+    dist_frame, how = _districts_layer(districts, units, data.district_column, page.sample)
     _add_districts(page, dist_frame, how)
 
     rings = _treated_rings(data)
@@ -634,13 +658,12 @@ def _ramp_html(limit: float, clipped: bool) -> str:
 
     cmap = colormaps[CHANGE_CMAP]
     stops = ", ".join(to_hex(cmap(x)) for x in np.linspace(0, 1, 11))
-    more = " or more" if clipped else ""
+    low, high = (f"≤ {-limit:g}", f"≥ +{limit:g}") if clipped else (f"{-limit:g}", f"+{limit:g}")
     return (
         '<div class="geoexp-ramp-title">Observed change per unit, post − pre (incidents)</div>'
         f'<div class="geoexp-ramp" style="background: linear-gradient(to right, {stops});"></div>'
-        '<div class="geoexp-ramp-labels">'
-        f"<span>{-limit:g}{html.escape(more)}</span><span>0</span>"
-        f"<span>+{limit:g}{html.escape(more)}</span></div>"
+        f'<div class="geoexp-ramp-labels"><span>{html.escape(low)}</span><span>0</span>'
+        f"<span>{html.escape(high)}</span></div>"
     )
 
 
@@ -649,9 +672,7 @@ def _estimates_html(data: _ResultData, analysis: Analysis) -> str:
     p_of = {}
     for i, e in enumerate(analysis.effects):
         p_of[e.contrast] = analysis.verdicts[i].p_value
-    head = (
-        f"<tr><th>vs pure control</th><th>estimate</th><th>{level}% interval</th><th>p</th></tr>"
-    )
+    head = f"<tr><th>vs pure control</th><th>estimate</th><th>{level}% interval</th><th>p</th></tr>"
     body = "".join(
         f"<tr><td>{html.escape(data.labels[code])}</td><td>{e.estimate:+.2f}</td>"
         f"<td>{e.ci_low:+.2f} to {e.ci_high:+.2f}</td>"
@@ -751,6 +772,7 @@ _RESULT_TEMPLATE = """
   margin-bottom: 4px; }
 .geoexp-district-label { background: transparent; border: none; box-shadow: none; color: #333;
   font: 600 12px system-ui, sans-serif; text-shadow: 0 0 3px #fff, 0 0 3px #fff; }
+.geoexp-tip { font: 12px/1.35 system-ui, sans-serif; border-collapse: collapse; }
 .geoexp-tip td { padding: 0 6px 0 0; }
 .leaflet-control-layers { font: 12px/1.4 system-ui, sans-serif; }
 </style>
