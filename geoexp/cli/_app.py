@@ -22,7 +22,7 @@ app = typer.Typer(
     pretty_exceptions_enable=False,
 )
 console = Console(stderr=False, highlight=False, soft_wrap=True)
-errors = Console(stderr=True, highlight=False)
+errors = Console(stderr=True, highlight=False, soft_wrap=True)
 
 
 def main() -> None:
@@ -145,6 +145,10 @@ def count_command(
     pre: Annotated[str, typer.Option(help="Pre-period START:END (dates, both included).")],
     post: Annotated[str, typer.Option(help="Post-period START:END (dates, both included).")],
     date_column: Annotated[str, typer.Option(help="Column of incident dates.")] = "date",
+    date_format: Annotated[
+        str | None,
+        typer.Option(help="'iso', 'dmy' (day first), 'mdy' (month first) or a strftime pattern."),
+    ] = None,
     type_column: Annotated[str | None, typer.Option(help="Column of incident types.")] = None,
     lon: Annotated[str | None, typer.Option(help="Longitude column (CSV in WGS 84).")] = None,
     lat: Annotated[str | None, typer.Option(help="Latitude column (CSV in WGS 84).")] = None,
@@ -164,6 +168,7 @@ def count_command(
         TrialFile.open(trial),
         incidents,
         date_column=date_column,
+        date_format=date_format,
         type_column=type_column,
         lon=lon,
         lat=lat,
@@ -194,6 +199,10 @@ def analyse_command(
         str | None, typer.Option(help="With --incidents: post-period START:END.")
     ] = None,
     date_column: Annotated[str, typer.Option(help="With --incidents: date column.")] = "date",
+    date_format: Annotated[
+        str | None,
+        typer.Option(help="With --incidents: 'iso', 'dmy', 'mdy' or a strftime pattern."),
+    ] = None,
     lon: Annotated[str | None, typer.Option(help="With --incidents: longitude column.")] = None,
     lat: Annotated[str | None, typer.Option(help="With --incidents: latitude column.")] = None,
     x: Annotated[str | None, typer.Option(help="With --incidents: x column.")] = None,
