@@ -220,7 +220,6 @@ def analyse_command(
     first, so one command goes from the trial file and the incidents to the report.
     """
     from geoexp.analysis import analyse, save_results, write_report
-    from geoexp.trialfile import TrialFile
 
     if incidents is not None:
         if pre is None or post is None:
@@ -240,8 +239,12 @@ def analyse_command(
             type_column=None,
             dropped=None,
         )
+    from geoexp.maps import save_result_map
+
     result = analyse(trial, outcome=outcome, estimator=estimator, n_draws=draws, level=level)
-    save_results(trial, result)
-    html_path, md_path = write_report(result, report, trial=TrialFile.open(trial))
+    tf = save_results(trial, result)
+    map_path = save_result_map(result, tf, report.with_name(f"{report.stem}_map.html"))
+    html_path, md_path = write_report(result, report, trial=tf, result_map_html=map_path)
     console.print(str(result))
-    console.print(f"Report: {html_path} (Markdown: {md_path}); results stored in {trial}")
+    console.print(f"Report: {html_path} (Markdown: {md_path}); interactive results map: {map_path}")
+    console.print(f"Results stored in {trial}")

@@ -34,58 +34,72 @@ def resolve_engine(engine: str) -> str:
     return engine
 
 
+def band_codes(g_dist: np.ndarray, edges: np.ndarray) -> np.ndarray:
+    """Condition code of every graph entry: 1 + the number of band edges below its distance.
+
+    Entries beyond the outermost band get ``edges.size + 1`` (pure control, i.e.
+    not reached). The code is monotone in the distance, so the nearest treated
+    unit's band is the smallest code among the treated neighbours: the kernels
+    take minima of these one-byte codes instead of float distances.
+    """
+    return (np.searchsorted(edges, g_dist, side="left") + 1).astype(np.int8)
+
+
 def _scatter_numba_impl(
-    d_indptr, d_indices, g_indptr, g_indices, g_dist, edges, counts, cov, cov_sums, cond_counts
+    d_indptr, d_indices, g_indptr, g_indices, g_code, counts_t, cov, cov_sums, cond_counts
 ):
-    n_units = counts.shape[0]
-    n_edges = edges.shape[0]
-    reach = edges[n_edges - 1]
+    n_threads, n_units, n_cond = counts_t.shape
+    pc = n_cond - 1
+    n_draws = d_indptr.shape[0] - 1
     n_cov = cov.shape[1]
     track = cond_counts.shape[0] > 0
-    nearest = np.full(n_units, np.inf)
-    is_treated = np.zeros(n_units, np.bool_)
-    touched = np.empty(n_units, np.int64)
-    for r in range(d_indptr.shape[0] - 1):
-        start, stop = d_indptr[r], d_indptr[r + 1]
-        for a in range(start, stop):
-            is_treated[d_indices[a]] = True
-        n_touched = 0
-        for a in range(start, stop):
-            t = d_indices[a]
-            for b in range(g_indptr[t], g_indptr[t + 1]):
-                j = g_indices[b]
-                dist = g_dist[b]
-                if is_treated[j] or dist > reach:
-                    continue
-                if nearest[j] == np.inf:
-                    touched[n_touched] = j
-                    n_touched += 1
-                if dist < nearest[j]:
-                    nearest[j] = dist
-        for a in range(start, stop):
-            t = d_indices[a]
-            counts[t, 0] += 1
-            if track:
-                cond_counts[r, 0] += 1
-                for q in range(n_cov):
-                    cov_sums[r, 0, q] += cov[t, q]
-            is_treated[t] = False
-        for s in range(n_touched):
-            j = touched[s]
-            c = 1
-            for e in range(n_edges):
-                if edges[e] < nearest[j]:
-                    c += 1
-            counts[j, c] += 1
-            if track:
-                cond_counts[r, c] += 1
-                for q in range(n_cov):
-                    cov_sums[r, c, q] += cov[j, q]
-            nearest[j] = np.inf
+    # draws are split into contiguous blocks, one per thread, each with its own
+    # scratch and count array; integer counts summed afterwards are exact, and
+    # per-draw sums are made by one thread in the serial order, so the result
+    # does not depend on the number of threads
+    for t in numba.prange(n_threads):
+        counts = counts_t[t]
+        best = np.full(n_units, pc, np.int8)
+        touched = np.empty(n_units, np.int64)
+        r0 = n_draws * t // n_threads
+        r1 = n_draws * (t + 1) // n_threads
+        for r in range(r0, r1):
+            start, stop = d_indptr[r], d_indptr[r + 1]
+            # treated units are marked with code 0, which no band reaches below
+            for a in range(start, stop):
+                best[d_indices[a]] = 0
+            n_touched = 0
+            for a in range(start, stop):
+                t_unit = d_indices[a]
+                for b in range(g_indptr[t_unit], g_indptr[t_unit + 1]):
+                    j = g_indices[b]
+                    c = g_code[b]
+                    if c < best[j]:
+                        if best[j] == pc:
+                            touched[n_touched] = j
+                            n_touched += 1
+                        best[j] = c
+            for a in range(start, stop):
+                t_unit = d_indices[a]
+                counts[t_unit, 0] += 1
+                if track:
+                    cond_counts[r, 0] += 1
+                    for q in range(n_cov):
+                        cov_sums[r, 0, q] += cov[t_unit, q]
+                best[t_unit] = pc
+            for s in range(n_touched):
+                j = touched[s]
+                c = best[j]
+                counts[j, c] += 1
+                if track:
+                    cond_counts[r, c] += 1
+                    for q in range(n_cov):
+                        cov_sums[r, c, q] += cov[j, q]
+                best[j] = pc
 
 
 if HAVE_NUMBA:
-    _scatter_numba = numba.njit(cache=True, nogil=True)(_scatter_numba_impl)
+    _scatter_numba = numba.njit(cache=True, nogil=True, parallel=True)(_scatter_numba_impl)
 
 
 def _gather_rows(indptr: np.ndarray, rows: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -95,6 +109,62 @@ def _gather_rows(indptr: np.ndarray, rows: np.ndarray) -> tuple[np.ndarray, np.n
     owner = np.repeat(np.arange(rows.size), lengths)
     offsets = np.arange(owner.size) - np.repeat(np.cumsum(lengths) - lengths, lengths)
     return starts[owner] + offsets, owner
+
+
+class _Scratch:
+    """Reusable per-(draw, unit) scratch of the numpy twin, reset after each use."""
+
+    def __init__(self, size: int, pc: int) -> None:
+        self.best = np.full(size, pc, dtype=np.int8)
+        self.owner = np.empty(size, dtype=np.int32)
+        self.pc = pc
+
+
+def touched_codes_numpy(
+    d_indptr: np.ndarray,
+    d_indices: np.ndarray,
+    g_indptr: np.ndarray,
+    g_indices: np.ndarray,
+    g_code: np.ndarray,
+    n_units: int,
+    n_cond: int,
+    scratch: _Scratch | None = None,
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Untreated units reached by a chunk of draws: (draw, unit, condition code), unique pairs.
+
+    Pure numpy, no sort: the smallest code of each (draw, unit) is found by
+    writing the codes into a (draw, unit) scratch from the outermost band
+    inwards (within one write every value is the same, so repeated keys do not
+    matter), then one entry per key is kept by an owner write (whichever
+    duplicate wins, exactly one does). Only the entries written are reset.
+    The pairs come in no particular order.
+    """
+    pc = n_cond - 1
+    n_draws = d_indptr.size - 1
+    size = n_draws * n_units
+    if scratch is None or scratch.best.size < size:
+        scratch = _Scratch(size, pc)
+    best, owner = scratch.best, scratch.owner
+    draw_of = np.repeat(np.arange(n_draws, dtype=np.int64), np.diff(d_indptr))
+    data_pos, row = _gather_rows(g_indptr, d_indices.astype(np.int64))
+    code = g_code[data_pos]
+    keep = code < pc
+    code = code[keep]
+    reached = draw_of[row[keep]] * n_units + g_indices[data_pos[keep]]
+    key = reached
+    for c in range(pc - 1, 0, -1):
+        best[key[code == c]] = c
+    treated_key = draw_of * n_units + d_indices
+    best[treated_key] = 0
+    win = np.flatnonzero(best[key] == code)
+    key, code = key[win], code[win]
+    owner[key] = np.arange(key.size)
+    first = owner[key] == np.arange(key.size)
+    key, code = key[first], code[first]
+    # reset every entry written, including those that lost to a nearer band or to treatment
+    best[reached] = pc
+    best[treated_key] = pc
+    return key // n_units, key % n_units, code.astype(np.int64)
 
 
 def touched_conditions_numpy(
@@ -110,54 +180,46 @@ def touched_conditions_numpy(
 
     Draws are rows of the CSR ``(d_indptr, d_indices)``, local to this chunk.
     """
-    n_draws = d_indptr.size - 1
-    draw_of = np.repeat(np.arange(n_draws, dtype=np.int64), np.diff(d_indptr))
-    data_pos, owner = _gather_rows(g_indptr, d_indices.astype(np.int64))
-    draw = draw_of[owner]
-    unit = g_indices[data_pos].astype(np.int64)
-    dist = g_dist[data_pos]
-    keep = dist <= edges[-1]
-    draw, unit, dist = draw[keep], unit[keep], dist[keep]
-    key = draw * n_units + unit
-    # nearest treated unit per (draw, unit): sort by key, take the minimum of each run
-    order = np.argsort(key, kind="stable")
-    key, dist = key[order], dist[order]
-    if key.size:
-        starts = np.flatnonzero(np.concatenate(([True], key[1:] != key[:-1])))
-        dist = np.minimum.reduceat(dist, starts)
-        key = key[starts]
-    # drop the treated units themselves (they are "treated", whatever their neighbours)
-    treated_key = np.sort(draw_of * n_units + d_indices)
-    if treated_key.size and key.size:
-        hit = np.minimum(np.searchsorted(treated_key, key), treated_key.size - 1)
-        untreated = treated_key[hit] != key
-        key, dist = key[untreated], dist[untreated]
-    cond = (np.searchsorted(edges, dist, side="left") + 1).astype(np.int64)
-    return key // n_units, key % n_units, cond
+    return touched_codes_numpy(
+        np.asarray(d_indptr, dtype=np.int64),
+        np.asarray(d_indices, dtype=np.int64),
+        np.asarray(g_indptr, dtype=np.int64),
+        g_indices,
+        band_codes(g_dist, edges),
+        n_units,
+        edges.size + 2,
+    )
+
+
+# Largest (draw, unit) scratch of the numpy twin, in entries (5 bytes each).
+_SCRATCH_ENTRIES = 8_000_000
 
 
 def _scatter_numpy(
-    d_indptr, d_indices, g_indptr, g_indices, g_dist, edges, counts, cov, cov_sums, cond_counts
+    d_indptr, d_indices, g_indptr, g_indices, g_code, counts, cov, cov_sums, cond_counts
 ):
     n_units, n_cond = counts.shape
     n_draws = d_indptr.size - 1
     if n_draws == 0 or d_indices.size == 0:
         return
-    # work per draw = sum of its treated units' degrees; chunks hold a bounded number of triples
+    # work per draw = sum of its treated units' degrees; chunks hold a bounded number of
+    # triples and a bounded (draw, unit) scratch
     work = np.concatenate(([0], np.cumsum(np.diff(g_indptr)[d_indices])))
     per_draw = work[d_indptr[1:]] - work[d_indptr[:-1]]
     cum = np.cumsum(per_draw)
+    max_draws = max(1, _SCRATCH_ENTRIES // max(n_units, 1))
+    scratch = _Scratch(max_draws * n_units, n_cond - 1)
     start = 0
     track = cond_counts.shape[0] > 0
     while start < n_draws:
         base = cum[start - 1] if start else 0
         stop = int(np.searchsorted(cum, base + _TRIPLES_PER_CHUNK, side="right"))
-        stop = max(stop, start + 1)
+        stop = min(max(stop, start + 1), start + max_draws)
         sl = slice(d_indptr[start], d_indptr[stop])
         sub_indptr = d_indptr[start : stop + 1] - d_indptr[start]
         sub_indices = d_indices[sl]
-        draw, unit, cond = touched_conditions_numpy(
-            sub_indptr, sub_indices, g_indptr, g_indices, g_dist, edges, n_units
+        draw, unit, cond = touched_codes_numpy(
+            sub_indptr, sub_indices, g_indptr, g_indices, g_code, n_units, n_cond, scratch
         )
         counts += np.bincount(unit * n_cond + cond, minlength=n_units * n_cond).reshape(
             n_units, n_cond
@@ -165,6 +227,7 @@ def _scatter_numpy(
         counts[:, 0] += np.bincount(sub_indices, minlength=n_units)
         if track:
             n_sub = stop - start
+            # per-draw sums in the numba kernel's order: each draw's units as visited
             tdraw = np.repeat(np.arange(n_sub), np.diff(sub_indptr))
             cond_counts[start:stop] += np.bincount(
                 draw * n_cond + cond, minlength=n_sub * n_cond
@@ -191,17 +254,21 @@ def scatter_counts(
     cov: np.ndarray | None = None,
     *,
     engine: str = "auto",
+    g_code: np.ndarray | None = None,
 ) -> tuple[np.ndarray, np.ndarray | None, np.ndarray | None]:
     """Count, over a chunk of draws, how often each unit is treated or in each band.
 
     Returns ``counts`` (n_units, K+2) int64 with the pure-control column left
     at zero (it is the remainder, filled by the caller), and when ``cov`` is
     given, per-draw condition sizes (R, K+2) and covariate sums (R, K+2, q)
-    for the conditions other than pure control.
+    for the conditions other than pure control. ``g_code`` may pass
+    :func:`band_codes` of ``(g_dist, edges)`` computed once for many chunks.
     """
+    edges = np.ascontiguousarray(edges, dtype=np.float64)
     n_cond = edges.size + 2
-    counts = np.zeros((n_units, n_cond), dtype=np.int64)
     n_draws = d_indptr.size - 1
+    if g_code is None:
+        g_code = band_codes(np.asarray(g_dist, dtype=np.float64), edges)
     if cov is None:
         cov_arr = np.zeros((n_units, 0))
         cov_sums = np.zeros((0, n_cond, 0))
@@ -210,22 +277,41 @@ def scatter_counts(
         cov_arr = np.ascontiguousarray(cov, dtype=np.float64)
         cov_sums = np.zeros((n_draws, n_cond, cov_arr.shape[1]))
         cond_counts = np.zeros((n_draws, n_cond), dtype=np.int64)
-    args = (
-        np.ascontiguousarray(d_indptr, dtype=np.int64),
-        np.ascontiguousarray(d_indices, dtype=np.int64),
-        np.ascontiguousarray(g_indptr, dtype=np.int64),
-        np.ascontiguousarray(g_indices, dtype=np.int64),
-        np.ascontiguousarray(g_dist, dtype=np.float64),
-        np.ascontiguousarray(edges, dtype=np.float64),
-        counts,
-        cov_arr,
-        cov_sums,
-        cond_counts,
-    )
+    # int32 positions are read as they are (no copy of the graph per chunk)
+    index_type = np.int32 if max(n_units, 1) < 2**31 else np.int64
+    d_indptr = np.ascontiguousarray(d_indptr, dtype=np.int64)
+    d_indices = np.ascontiguousarray(d_indices, dtype=index_type)
+    g_indptr = np.ascontiguousarray(g_indptr, dtype=np.int64)
+    g_indices = np.ascontiguousarray(g_indices, dtype=index_type)
+    g_code = np.ascontiguousarray(g_code, dtype=np.int8)
     if resolve_engine(engine) == "numba":
-        _scatter_numba(*args)
+        n_threads = max(1, min(numba.get_num_threads(), n_draws))
+        counts_t = np.zeros((n_threads, n_units, n_cond), dtype=np.int64)
+        _scatter_numba(
+            d_indptr,
+            d_indices,
+            g_indptr,
+            g_indices,
+            g_code,
+            counts_t,
+            cov_arr,
+            cov_sums,
+            cond_counts,
+        )
+        counts = counts_t.sum(axis=0) if n_threads > 1 else counts_t[0]
     else:
-        _scatter_numpy(*args)
+        counts = np.zeros((n_units, n_cond), dtype=np.int64)
+        _scatter_numpy(
+            d_indptr,
+            d_indices,
+            g_indptr,
+            g_indices,
+            g_code,
+            counts,
+            cov_arr,
+            cov_sums,
+            cond_counts,
+        )
     if cov is None:
         return counts, None, None
     return counts, cond_counts, cov_sums

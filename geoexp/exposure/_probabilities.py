@@ -10,7 +10,7 @@ import pandas as pd
 
 from geoexp._rng import RngLike, as_seed_sequence
 from geoexp.errors import InputError
-from geoexp.exposure._kernels import scatter_counts, touched_conditions_numpy
+from geoexp.exposure._kernels import band_codes, scatter_counts, touched_conditions_numpy
 from geoexp.exposure._mapping import ExposureMapping
 
 if TYPE_CHECKING:
@@ -256,6 +256,7 @@ def exposure_probabilities(
         cov = aligned.to_numpy(dtype=np.float64)
         names = tuple(map(str, covariates.columns))
     seq = as_seed_sequence(rng)
+    g_code = band_codes(g_dist, edges)  # once for all chunks
     counts = np.zeros((graph.n, mapping.n_conditions), dtype=np.int64)
     sizes, sums = [], []
     seen = 0
@@ -270,6 +271,7 @@ def exposure_probabilities(
             graph.n,
             cov,
             engine=engine,
+            g_code=g_code,
         )
         counts += c
         seen += chunk.indptr.size - 1

@@ -69,6 +69,7 @@ CASING_COLOUR = "#3a3a3a"
 TREATED_CASING = "#000000"
 RING_FILL_OPACITY = 0.16
 MAP_BACKGROUND = "#f3f1ec"
+LEGEND_WIDTH_PX = 360
 
 
 # ------------------------------------------------------------------ the data
@@ -447,8 +448,11 @@ def result_map_static(
     ax.set_ylabel("")
     width_in = ax.get_position().width * fig.get_figwidth()
     chars = max(50, int(width_in * 72 / (7.0 * 0.5)))
-    sentences = [v.sentence for _, _, v in data.rows] or [v.sentence for v in analysis.verdicts]
-    caption = "\n".join(textwrap.fill(s, chars, subsequent_indent="  ") for s in sentences)
+    sentences = [v.sentence for v in analysis.verdicts]
+    # No breaks at hyphens: "0-150 m" and "-6.40" must stay whole.
+    caption = "\n".join(
+        textwrap.fill(s, chars, subsequent_indent="  ", break_on_hyphens=False) for s in sentences
+    )
     ax.annotate(
         caption,
         xy=(0.0, 0.0),
@@ -532,6 +536,12 @@ def result_map(
     units = data.units
     per_unit = data.per_unit
     page = _Page(units, tiles, data.title)
+    # Keep the units clear of the legend, which is tall on the right.
+    web = gpd.GeoSeries([shapely.box(*units.total_bounds)], crs=units.crs).to_crs("EPSG:4326")
+    w, s, e, n = web.total_bounds
+    page.map.fit_bounds(
+        [[s, w], [n, e]], padding_top_left=(20, 20), padding_bottom_right=(LEGEND_WIDTH_PX, 20)
+    )
     prob_codes = condition_order(c[2:] for c in per_unit.columns if c.startswith("p_"))
     labels = dict(data.labels)
     for c in prob_codes:
@@ -669,16 +679,12 @@ def _ramp_html(limit: float, clipped: bool) -> str:
 
 def _estimates_html(data: _ResultData, analysis: Analysis) -> str:
     level = int(round(100 * analysis.level))
-    p_of = {}
-    for i, e in enumerate(analysis.effects):
-        p_of[e.contrast] = analysis.verdicts[i].p_value
     head = f"<tr><th>vs pure control</th><th>estimate</th><th>{level}% interval</th><th>p</th></tr>"
     body = "".join(
         f"<tr><td>{html.escape(data.labels[code])}</td><td>{e.estimate:+.2f}</td>"
         f"<td>{e.ci_low:+.2f} to {e.ci_high:+.2f}</td>"
-        f"<td>{'n/a' if not np.isfinite(p_of.get(e.contrast, np.nan)) else f'{p_of[e.contrast]:.3f}'}"
-        "</td></tr>"
-        for code, e, _ in data.rows
+        f"<td>{f'{v.p_value:.2g}' if np.isfinite(v.p_value) else 'n/a'}</td></tr>"
+        for code, e, v in data.rows
     )
     return f'<table class="geoexp-est" id="geoexp-estimates">{head}{body}</table>'
 
@@ -697,7 +703,7 @@ def _finish(page: _Page, data: _ResultData, analysis: Analysis, values: dict, li
             )
         )
     verdicts = "".join(
-        f'<li class="geoexp-verdict">{html.escape(v.sentence)}</li>' for _, _, v in data.rows
+        f'<li class="geoexp-verdict">{html.escape(v.sentence)}</li>' for v in analysis.verdicts
     )
     legend = "".join(
         [
@@ -754,7 +760,7 @@ _RESULT_TEMPLATE = """
 <style>
 .geoexp-legend { background: rgba(255,255,255,0.95); padding: 8px 10px; border-radius: 4px;
   box-shadow: 0 1px 4px rgba(0,0,0,0.35); font: 12px/1.35 system-ui, sans-serif; color: #111;
-  max-width: 340px; max-height: 78vh; overflow-y: auto; }
+  max-width: 340px; max-height: calc(100vh - 240px); overflow-y: auto; }
 .geoexp-legend h4 { margin: 0 0 2px 0; font-size: 13px; }
 .geoexp-legend .sub { color: #444; margin-bottom: 6px; }
 .geoexp-legend table { border-collapse: collapse; }
