@@ -259,3 +259,28 @@ def test_field_csv_lists_eligible_units(tmp_path, region_path, units, graph):
     assert len(read) == 120 and read["treated"].sum() == 30
     assert read["treated"].iloc[:30].all()  # treated first
     assert table.index.name == "segment_id"
+
+
+def test_saturation_design_from_a_spec(region_path, units, graph):
+    design = make(
+        region_path, units, graph, method="saturation", treated=None, cluster_column="district",
+        saturations=[0.0, 0.3, 0.6], cluster_counts=[2, 3, 3],
+    )
+    assignment = design.draw()
+    levels = assignment.extra["cluster_level"]
+    # [A] complete randomization of 8 districts to levels: 2 at 0, 3 at 0.3, 3 at 0.6
+    assert sorted(np.bincount(levels, minlength=3)) == [2, 3, 3]
+    districts = units.frame["district"].to_numpy()
+    labels = design.sampler.cluster_labels
+    for code, label in enumerate(labels):
+        here = design.eligible & (districts == label)
+        s = design.sampler.saturations[levels[code]]
+        assert assignment.treated[here].sum() == np.floor(s * here.sum() + 0.5)
+
+
+def test_rerandomized_design_from_a_spec(region_path, units, graph):
+    data = spec_dict(region_path)
+    data["rerandomize"] = {"covariates": ["incidents_y1", "length_m"], "acceptance": 0.2}
+    design = Design.from_spec(DesignSpec.from_dict(data), units=units, graph=graph)
+    draws = design.sampler.draw_many(200, 1)
+    assert (design.sampler.mahalanobis(draws) <= design.sampler.threshold).all()

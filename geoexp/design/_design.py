@@ -153,6 +153,7 @@ class Design:
             spec_hash=design.spec.hash,
             seed=design.spec.seed,
             drawn_at=tf.meta.get("drawn_at", ""),
+            extra=again.extra,
         )
         return design, assignment
 
@@ -163,7 +164,8 @@ class Design:
 
     def draw(self) -> Assignment:
         """Draw the trial's assignment from the spec's seed (same spec and seed, same result)."""
-        treated_pos = np.asarray(self.sampler.draw(self.seed_streams[0]))
+        draws = self.sampler.draw_many(1, self.seed_streams[0])
+        treated_pos = np.asarray(draws.treated(0))
         treated = np.zeros(self.units.n, dtype=bool)
         treated[treated_pos] = True
         return Assignment(
@@ -175,6 +177,7 @@ class Design:
             spec_hash=self.spec.hash,
             seed=self.spec.seed,
             drawn_at=dt.datetime.now(dt.UTC).replace(microsecond=0).isoformat(),
+            extra={key: np.asarray(value)[0] for key, value in draws.extra.items()},
         )
 
     def probabilities(
