@@ -18,6 +18,7 @@ import numpy as np  # noqa: E402
 import pandas as pd  # noqa: E402
 
 from geoexp._atomic import atomic_path  # noqa: E402
+from geoexp._tables import html_table  # noqa: E402
 from geoexp.cautions import CAUTION  # noqa: E402
 
 if TYPE_CHECKING:
@@ -84,23 +85,6 @@ def _png(fig) -> bytes:
     fig.savefig(buf, format="png", dpi=130, bbox_inches="tight")
     plt.close(fig)
     return buf.getvalue()
-
-
-def _number(v: float) -> str:
-    return f"{v:,.0f}" if float(v).is_integer() else f"{v:.3f}"
-
-
-def _table(frame: pd.DataFrame) -> str:
-    return frame.to_html(float_format=_number, border=0, classes="t", na_rep="—")
-
-
-def _md_table(frame: pd.DataFrame) -> str:
-    cols = [frame.index.name or ""] + list(frame.columns)
-    lines = ["| " + " | ".join(map(str, cols)) + " |", "|" + "---|" * len(cols)]
-    for idx, row in frame.iterrows():
-        cells = [str(idx)] + [_number(v) if isinstance(v, float) else str(v) for v in row]
-        lines.append("| " + " | ".join(cells) + " |")
-    return "\n".join(lines)
 
 
 def _summary(analysis: Analysis) -> pd.DataFrame:
@@ -206,13 +190,13 @@ def write_report(
         "evidence of spillover; the spillover verdicts rest on the conditional test of no "
         "spillover.</p>",
         "<h2>Design</h2>",
-        _table(pd.DataFrame({"value": design_rows})),
+        html_table(pd.DataFrame({"value": design_rows})),
         "<h2>Estimates</h2>",
-        _table(summary),
+        html_table(summary),
         "<h2>Displacement or diffusion: weighted displacement quotient</h2>",
         "<p>Bowers &amp; Johnson (2003): treated units as target area, each band as buffer, "
         "pure controls as control area.</p>",
-        _table(wdq) if len(wdq) else "<p>Not computable.</p>",
+        html_table(wdq) if len(wdq) else "<p>Not computable.</p>",
     ]
     for title, png in figures.items():
         b64 = base64.b64encode(png).decode("ascii")
@@ -252,11 +236,11 @@ def write_report(
         "",
         "## Estimates",
         "",
-        _md_table(summary),
+        markdown_table(summary),
         "",
         "## Weighted displacement quotient (Bowers & Johnson 2003)",
         "",
-        _md_table(wdq) if len(wdq) else "Not computable.",
+        markdown_table(wdq) if len(wdq) else "Not computable.",
         "",
     ]
     for i, (title, png) in enumerate(figures.items()):

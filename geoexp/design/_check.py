@@ -8,6 +8,7 @@ from typing import TYPE_CHECKING
 import numpy as np
 import pandas as pd
 
+from geoexp._tables import markdown_table
 from geoexp.errors import DesignError
 from geoexp.exposure import ExposureProbabilities, PositivityReport
 
@@ -89,9 +90,6 @@ class DesignCheck:
     def to_markdown(self) -> str:
         """The check as a Markdown section."""
 
-        def table(df: pd.DataFrame) -> str:
-            return df.to_markdown(floatfmt=".3f") if _has_tabulate() else f"```\n{df}\n```"
-
         return "\n".join(
             [
                 f"## Design check: {self.name}",
@@ -100,29 +98,21 @@ class DesignCheck:
                 f"{self.n_draws} draws.",
                 "",
                 "### Expected units per condition",
-                table(self.expected),
+                markdown_table(self.expected),
                 "",
                 "### Exposure probabilities",
-                table(self.probability_summary),
+                markdown_table(self.probability_summary),
                 "",
                 "### Positivity",
                 *(f"- {c}" for c in self.positivity.contrasts),
                 "",
                 "### Balance",
-                table(self.balance) if len(self.balance) else "(no covariates)",
+                markdown_table(self.balance) if len(self.balance) else "(no covariates)",
                 "",
                 "### Verdict",
                 *(f"- {line}" for line in self.verdict),
             ]
         )
-
-
-def _has_tabulate() -> bool:
-    try:
-        import tabulate  # noqa: F401
-    except ImportError:
-        return False
-    return True
 
 
 def _balance_columns(design: Design, columns: list[str] | None) -> list[str]:
