@@ -10,16 +10,13 @@ from collections.abc import Callable
 from pathlib import Path
 from typing import TYPE_CHECKING
 
-import matplotlib
+import numpy as np
+import pandas as pd
+from matplotlib.figure import Figure
 
-matplotlib.use("Agg", force=False)
-import matplotlib.pyplot as plt  # noqa: E402
-import numpy as np  # noqa: E402
-import pandas as pd  # noqa: E402
-
-from geoexp._atomic import atomic_path  # noqa: E402
-from geoexp._tables import html_table  # noqa: E402
-from geoexp.cautions import CAUTION  # noqa: E402
+from geoexp._atomic import atomic_path
+from geoexp._tables import html_table, markdown_table
+from geoexp.cautions import CAUTION
 
 if TYPE_CHECKING:
     from geoexp.analysis._run import Analysis
@@ -44,6 +41,8 @@ def distance_decay_plot(analysis: Analysis, ax=None):
     Returns the matplotlib Axes.
     """
     if ax is None:
+        import matplotlib.pyplot as plt  # interactive use only; reports draw on plain Figures
+
         _, ax = plt.subplots(figsize=(6.4, 3.6))
     edges = (0.0, *analysis.band_edges)
     mids = [(a + b) / 2 for a, b in zip(edges[:-1], edges[1:], strict=True)]
@@ -83,7 +82,6 @@ def distance_decay_plot(analysis: Analysis, ax=None):
 def _png(fig) -> bytes:
     buf = io.BytesIO()
     fig.savefig(buf, format="png", dpi=130, bbox_inches="tight")
-    plt.close(fig)
     return buf.getvalue()
 
 
@@ -131,18 +129,21 @@ def write_report(
     path = Path(path)
     md_path = path.with_suffix(".md")
     figures: dict[str, bytes] = {}
-    fig, ax = plt.subplots(figsize=(6.4, 3.6))
+    fig = Figure(figsize=(6.4, 3.6))
+    ax = fig.subplots()
     distance_decay_plot(analysis, ax=ax)
     figures["Effect by distance"] = _png(fig)
     if trial is not None and static_map and RESULT_MAP_TITLE not in (extra_figures or {}):
         from geoexp.maps import result_map_static
 
-        fig, ax = plt.subplots(figsize=(8.3, 8.3))
+        fig = Figure(figsize=(8.3, 8.3))
+        ax = fig.subplots()
         result_map_static(analysis, trial, ax=ax)
         figures[RESULT_MAP_TITLE] = _png(fig)
     link = _relative_link(result_map_html, path) if result_map_html is not None else None
     for title, draw in (extra_figures or {}).items():
-        fig, ax = plt.subplots(figsize=(7, 7))
+        fig = Figure(figsize=(7, 7))
+        ax = fig.subplots()
         draw(ax)
         figures[title] = _png(fig)
     summary = _summary(analysis)
