@@ -71,3 +71,32 @@ def test_bad_input_is_a_message_not_a_traceback(tmp_path):
     result = run("check", str(tmp_path / "missing.toml"))
     assert result.returncode == 2
     assert "missing.toml" in result.stderr and "Traceback" not in result.stderr
+
+
+def test_ready_counts_table(tmp_path, demo_outputs):
+    import shutil
+
+    import pandas as pd
+
+    from geoexp.trialfile import TrialFile
+
+    trial = tmp_path / "t.gpkg"
+    shutil.copy(demo_outputs["trial"], trial)
+    stored = TrialFile.open(trial).read("outcomes")
+    stored[["pre", "post"]].rename_axis("seg").reset_index().to_csv(tmp_path / "c.csv", index=False)
+    args = [
+        "counts",
+        str(trial),
+        "--table",
+        str(tmp_path / "c.csv"),
+        "--pre",
+        "2025-01-01:2025-12-31",
+        "--post",
+        "2026-01-01:2026-12-31",
+    ]
+    ok = run(*args, "--id-column", "seg")
+    assert ok.returncode == 0, ok.stderr
+    again = TrialFile.open(trial).read("outcomes")
+    pd.testing.assert_series_equal(again["post"], stored["post"], check_dtype=False)
+    bad = run(*args, "--id-column", "nope")
+    assert bad.returncode == 2 and "nope" in bad.stderr and "Traceback" not in bad.stderr

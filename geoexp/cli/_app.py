@@ -185,6 +185,49 @@ def count_command(
     console.print(f"Outcomes stored in {trial}")
 
 
+@app.command("counts")
+def counts_command(
+    trial: Annotated[Path, typer.Argument(help="Trial file (GeoPackage).")],
+    table: Annotated[Path, typer.Option(help="CSV of counts: one row per unit.")],
+    pre: Annotated[str, typer.Option(help="Pre-period START:END the counts cover.")],
+    post: Annotated[str, typer.Option(help="Post-period START:END the counts cover.")],
+    id_column: Annotated[str, typer.Option(help="Unit id column of the CSV.")] = "unit_id",
+    pre_column: Annotated[str, typer.Option(help="Column of pre-period counts.")] = "pre",
+    post_column: Annotated[str, typer.Option(help="Column of post-period counts.")] = "post",
+    fill_missing: Annotated[
+        bool, typer.Option(help="Units missing from the CSV had no incidents (count 0).")
+    ] = False,
+) -> None:
+    """Store a ready table of counts per unit (pre- and post-period) in the trial file."""
+    import pandas as pd
+
+    from geoexp.errors import InputError
+    from geoexp.outcomes import OutcomeTable, save_outcomes
+    from geoexp.trialfile import TrialFile
+
+    tf = TrialFile.open(trial)
+    if not table.exists():
+        raise InputError(f"counts file {str(table)!r} does not exist")
+    # ids are read as text first, then matched to the trial's id type
+    frame = pd.read_csv(table, dtype={id_column: str})
+    ids = tf.units().index
+    if id_column in frame.columns and ids.dtype.kind in "iu":
+        frame[id_column] = pd.to_numeric(frame[id_column], errors="coerce")
+    outcomes = OutcomeTable.from_counts(
+        frame,
+        id_column,
+        units=tf,
+        pre=_period(pre, "--pre"),
+        post=_period(post, "--post"),
+        pre_column=pre_column,
+        post_column=post_column,
+        fill_missing=fill_missing,
+        source=str(table),
+    )
+    save_outcomes(tf, outcomes)
+    console.print(f"Counts for {len(outcomes.counts)} units stored in {trial}")
+
+
 @app.command("analyse")
 def analyse_command(
     trial: Annotated[Path, typer.Argument(help="Trial file (with outcomes, or give --incidents).")],

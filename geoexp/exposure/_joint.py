@@ -19,7 +19,12 @@ import pandas as pd
 
 from geoexp._rng import RngLike, as_seed_sequence
 from geoexp.errors import InputError
-from geoexp.exposure._kernels import touched_conditions_numpy
+from geoexp.exposure._kernels import (
+    band_codes,
+    condition_bits_chunk,
+    pair_popcounts,
+    touched_conditions_numpy,
+)
 from geoexp.exposure._mapping import ExposureMapping
 from geoexp.exposure._probabilities import DrawSource, reach_csr
 
@@ -184,15 +189,8 @@ class ConditionBits:
 
     def joint_pairs(self, k: int, first: np.ndarray, l: int, second: np.ndarray) -> np.ndarray:
         """pi_ij(k, l) for pairs of held rows (``first[p]``, ``second[p]``)."""
-        first = np.asarray(first, dtype=np.int64)
-        second = np.asarray(second, dtype=np.int64)
-        out = np.empty(first.size, dtype=np.float64)
-        a_bits, b_bits = self.bits[k], self.bits[l]
-        for s in range(0, first.size, _PAIRS_PER_BLOCK):
-            a = a_bits[first[s : s + _PAIRS_PER_BLOCK]]
-            b = b_bits[second[s : s + _PAIRS_PER_BLOCK]]
-            out[s : s + a.shape[0]] = np.bitwise_count(a & b).sum(axis=1)
-        return out / self.n_draws
+        counts = pair_popcounts(self.bits[k], self.bits[l], first, second)
+        return counts / self.n_draws
 
     def joint_block(self, k: int, rows: np.ndarray, l: int, cols: np.ndarray) -> np.ndarray:
         """Dense pi_ij(k, l) for every held row in ``rows`` against every one in ``cols``.
@@ -242,40 +240,55 @@ def condition_bits(
 
     One pass over the draws of the design's own sampler; use the same ``rng``
     and ``n_draws`` as :func:`exposure_probabilities` to get the same draws.
+    The kernel visits only the treated units' neighbour lists and sets the
+    treated and band bits directly; the pure-control bits are the complement.
     """
+    return _condition_bits(sampler, graph, mapping, n_draws, rng, units=units)
+
+
+def _condition_bits(
+    sampler: DrawSource,
+    graph: ExposureGraph,
+    mapping: ExposureMapping,
+    n_draws: int,
+    rng: RngLike,
+    *,
+    units: np.ndarray | None = None,
+    engine: str = "auto",
+) -> ConditionBits:
+    """:func:`condition_bits` with a choice of engine (numba or the numpy twin: identical bits)."""
     positions = np.arange(graph.n) if units is None else np.asarray(units, dtype=np.int64)
     g_indptr, g_indices, g_dist = reach_csr(graph, mapping)
     edges = np.asarray(mapping.band_edges, dtype=np.float64)
+    g_code = band_codes(g_dist, edges)
     pc = mapping.pure_control
     n_cond = mapping.n_conditions
     n_words = -(-n_draws // _WORD)
     bits = np.zeros((n_cond, positions.size, n_words), dtype=np.uint64)
     column = np.full(graph.n, -1, dtype=np.int64)
     column[positions] = np.arange(positions.size)
-    codes = np.arange(n_cond, dtype=np.int8)[:, None, None]
     draw0 = 0
     for chunk in sampler.iter_chunks(n_draws, as_seed_sequence(rng)):
         n_chunk = chunk.indptr.size - 1
-        r = 0
-        while r < n_chunk:
-            g = draw0 + r
-            size = min(_WORD - g % _WORD, n_chunk - r)
-            sub_ptr = chunk.indptr[r : r + size + 1] - chunk.indptr[r]
-            sub_idx = chunk.indices[chunk.indptr[r] : chunk.indptr[r + size]].astype(np.int64)
-            cond = np.full((size, positions.size), pc, dtype=np.int8)
-            draw, unit, code = touched_conditions_numpy(
-                sub_ptr, sub_idx, g_indptr, g_indices, g_dist, edges, graph.n
-            )
-            held = column[unit] >= 0
-            cond[draw[held], column[unit[held]]] = code[held]
-            tdraw = np.repeat(np.arange(size), np.diff(sub_ptr))
-            theld = column[sub_idx] >= 0
-            cond[tdraw[theld], column[sub_idx[theld]]] = 0
-            hit = (cond[None, :, :] == codes).astype(np.uint64)  # (C, size, n_held)
-            shifts = (np.arange(size, dtype=np.uint64) + np.uint64(g % _WORD))[None, :, None]
-            bits[:, :, g // _WORD] |= np.bitwise_or.reduce(hit << shifts, axis=1)
-            r += size
+        if draw0 + n_chunk > n_draws:
+            raise RuntimeError(f"the sampler produced more than the {n_draws} draws asked for")
+        condition_bits_chunk(
+            chunk.indptr,
+            chunk.indices,
+            g_indptr,
+            g_indices,
+            g_code,
+            column,
+            draw0,
+            bits,
+            engine=engine,
+        )
         draw0 += n_chunk
     if draw0 != n_draws:
         raise RuntimeError(f"the sampler produced {draw0} draws, {n_draws} were asked for")
+    # pure control: every draw in which the unit was in no other condition
+    valid = np.full(n_words, np.uint64(2**64 - 1), dtype=np.uint64)
+    if n_draws % _WORD:
+        valid[-1] = np.uint64((1 << (n_draws % _WORD)) - 1)
+    bits[pc] = ~np.bitwise_or.reduce(bits[:pc], axis=0) & valid
     return ConditionBits(ids=graph.ids[positions], positions=positions, bits=bits, n_draws=n_draws)

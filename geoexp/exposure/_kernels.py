@@ -315,3 +315,167 @@ def scatter_counts(
     if cov is None:
         return counts, None, None
     return counts, cond_counts, cov_sums
+
+
+def _bits_numba_impl(
+    d_indptr, d_indices, g_indptr, g_indices, g_code, column, draw0, bits, max_threads
+):
+    n_cond = bits.shape[0]
+    pc = n_cond - 1
+    n_units = column.shape[0]
+    n_draws = d_indptr.shape[0] - 1
+    if n_draws == 0:
+        return
+    # threads take whole 64-draw words, so no two threads write the same word
+    first_word = draw0 // 64
+    n_w = (draw0 + n_draws - 1) // 64 - first_word + 1
+    n_threads = min(max_threads, n_w)
+    for t in numba.prange(n_threads):
+        w0 = first_word + n_w * t // n_threads
+        w1 = first_word + n_w * (t + 1) // n_threads
+        r0 = max(w0 * 64 - draw0, 0)
+        r1 = min(w1 * 64 - draw0, n_draws)
+        best = np.full(n_units, pc, np.int8)
+        touched = np.empty(n_units, np.int64)
+        for r in range(r0, r1):
+            g = draw0 + r
+            w = g // 64
+            bit = np.uint64(1) << np.uint64(g % 64)
+            start, stop = d_indptr[r], d_indptr[r + 1]
+            for a in range(start, stop):
+                best[d_indices[a]] = 0
+            n_touched = 0
+            for a in range(start, stop):
+                t_unit = d_indices[a]
+                for b in range(g_indptr[t_unit], g_indptr[t_unit + 1]):
+                    j = g_indices[b]
+                    c = g_code[b]
+                    if c < best[j]:
+                        if best[j] == pc:
+                            touched[n_touched] = j
+                            n_touched += 1
+                        best[j] = c
+            for a in range(start, stop):
+                t_unit = d_indices[a]
+                col = column[t_unit]
+                if col >= 0:
+                    bits[0, col, w] |= bit
+                best[t_unit] = pc
+            for s in range(n_touched):
+                j = touched[s]
+                col = column[j]
+                if col >= 0:
+                    bits[best[j], col, w] |= bit
+                best[j] = pc
+
+
+def _popcount64(x):
+    # SWAR population count (LLVM turns it into the popcnt instruction where there is one)
+    x = x - ((x >> np.uint64(1)) & np.uint64(0x5555555555555555))
+    x = (x & np.uint64(0x3333333333333333)) + ((x >> np.uint64(2)) & np.uint64(0x3333333333333333))
+    x = (x + (x >> np.uint64(4))) & np.uint64(0x0F0F0F0F0F0F0F0F)
+    return (x * np.uint64(0x0101010101010101)) >> np.uint64(56)
+
+
+def _pair_popcounts_impl(a_bits, b_bits, first, second, out):
+    n_words = a_bits.shape[1]
+    for p in numba.prange(first.shape[0]):
+        i = first[p]
+        j = second[p]
+        total = np.uint64(0)
+        for w in range(n_words):
+            total += _popcount(a_bits[i, w] & b_bits[j, w])
+        out[p] = total
+
+
+if HAVE_NUMBA:
+    _bits_numba = numba.njit(cache=True, nogil=True, parallel=True)(_bits_numba_impl)
+    _popcount = numba.njit(cache=True, inline="always")(_popcount64)
+    _pair_popcounts_numba = numba.njit(cache=True, nogil=True, parallel=True)(_pair_popcounts_impl)
+
+
+def condition_bits_chunk(
+    d_indptr: np.ndarray,
+    d_indices: np.ndarray,
+    g_indptr: np.ndarray,
+    g_indices: np.ndarray,
+    g_code: np.ndarray,
+    column: np.ndarray,
+    draw0: int,
+    bits: np.ndarray,
+    *,
+    engine: str = "auto",
+) -> None:
+    """Set the bits of draws ``draw0 ..`` of a chunk in ``bits`` (n_conditions, n_held, n_words).
+
+    Sets the treated and band bits of the held units (``column[unit]`` is the
+    unit's row, -1 if not held); pure-control bits are the complement, set
+    by the caller once all draws are in. Writes ``bits`` in place (it is the
+    caller's scratch). Both engines set exactly the same bits.
+    """
+    n_units = column.size
+    index_type = np.int32 if max(n_units, 1) < 2**31 else np.int64
+    d_indptr = np.ascontiguousarray(d_indptr, dtype=np.int64)
+    d_indices = np.ascontiguousarray(d_indices, dtype=index_type)
+    g_indptr = np.ascontiguousarray(g_indptr, dtype=np.int64)
+    g_indices = np.ascontiguousarray(g_indices, dtype=index_type)
+    g_code = np.ascontiguousarray(g_code, dtype=np.int8)
+    column = np.ascontiguousarray(column, dtype=np.int64)
+    if resolve_engine(engine) == "numba":
+        threads = numba.get_num_threads()
+        _bits_numba(
+            d_indptr, d_indices, g_indptr, g_indices, g_code, column, int(draw0), bits, threads
+        )
+        return
+    n_cond, n_held, n_words = bits.shape
+    flat = bits.reshape(-1)
+    n_draws = d_indptr.size - 1
+    max_draws = max(1, _SCRATCH_ENTRIES // max(n_units, 1))
+    scratch = _Scratch(min(max_draws, max(n_draws, 1)) * n_units, n_cond - 1)
+    for start in range(0, n_draws, max_draws):
+        stop = min(start + max_draws, n_draws)
+        sub_indptr = d_indptr[start : stop + 1] - d_indptr[start]
+        sub_indices = d_indices[d_indptr[start] : d_indptr[stop]].astype(np.int64)
+        draw, unit, code = touched_codes_numpy(
+            sub_indptr, sub_indices, g_indptr, g_indices, g_code, n_units, n_cond, scratch
+        )
+        tdraw = np.repeat(np.arange(stop - start, dtype=np.int64), np.diff(sub_indptr))
+        draw = np.concatenate((draw, tdraw))
+        unit = np.concatenate((unit, sub_indices))
+        code = np.concatenate((code, np.zeros(sub_indices.size, dtype=np.int64)))
+        col = column[unit]
+        held = col >= 0
+        g = draw[held] + (draw0 + start)
+        where = (code[held] * n_held + col[held]) * n_words + g // 64
+        # every (condition, unit, draw) occurs once, so OR-ing the bits in loses nothing
+        np.bitwise_or.at(flat, where, np.left_shift(np.uint64(1), (g % 64).astype(np.uint64)))
+
+
+def pair_popcounts(
+    a_bits: np.ndarray,
+    b_bits: np.ndarray,
+    first: np.ndarray,
+    second: np.ndarray,
+    *,
+    engine: str = "auto",
+    block: int = 65_536,
+) -> np.ndarray:
+    """popcount(a_bits[first[p]] & b_bits[second[p]]) for every pair p, as int64.
+
+    The numba engine reads the two rows of each pair in place (memory: the
+    output only); the numpy twin gathers ``block`` pairs at a time (memory:
+    block * words * 16 bytes). Both count exactly.
+    """
+    first = np.ascontiguousarray(first, dtype=np.int64)
+    second = np.ascontiguousarray(second, dtype=np.int64)
+    out = np.empty(first.size, dtype=np.int64)
+    if resolve_engine(engine) == "numba":
+        _pair_popcounts_numba(
+            np.ascontiguousarray(a_bits), np.ascontiguousarray(b_bits), first, second, out
+        )
+        return out
+    for s in range(0, first.size, block):
+        a = a_bits[first[s : s + block]]
+        b = b_bits[second[s : s + block]]
+        out[s : s + a.shape[0]] = np.bitwise_count(a & b).sum(axis=1)
+    return out

@@ -297,8 +297,12 @@ class OutcomeTable:
         """
         units = _as_units(units)
         pre_d, post_d = parse_periods(pre, post)
-        table = frame if id_column is None else frame.set_index(id_column)
         label = f"the counts '{source}'"
+        if id_column is not None and id_column not in frame.columns:
+            raise InputError(
+                f"{label} have no id column {id_column!r}; its columns are {list(frame.columns)}"
+            )
+        table = frame if id_column is None else frame.set_index(id_column)
         for col in (pre_column, post_column):
             if col not in table.columns:
                 raise InputError(
