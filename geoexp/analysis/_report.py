@@ -85,6 +85,10 @@ def _png(fig) -> bytes:
     return buf.getvalue()
 
 
+def _p(test) -> str:
+    return f"{test.p_value:.4f} ± {test.mc_error:.4f}"
+
+
 def _summary(analysis: Analysis) -> pd.DataFrame:
     rows = []
     for i, e in enumerate(analysis.effects):
@@ -96,8 +100,8 @@ def _summary(analysis: Analysis) -> pd.DataFrame:
                 "std_error": e.std_error,
                 "ci": f"{e.ci_low:+.2f} to {e.ci_high:+.2f}",
                 "ci_by_test_inversion": f"{analysis.intervals[i][0]:+.2f} to {analysis.intervals[i][1]:+.2f}",
-                "p_no_effect": analysis.fisher[i].p_value,
-                "p_no_spillover": s.p_value if s else np.nan,
+                "p_no_effect (± MC error)": _p(analysis.fisher[i]),
+                "p_no_spillover (± MC error)": _p(s) if s else "—",
                 "units_in_estimand": e.n_units,
                 "exposed": e.n_exposure,
                 "reference": e.n_reference,
