@@ -105,8 +105,11 @@ def region_case(out: Path, n_draws: int) -> None:
     from geoexp.design import Design
     from geoexp.outcomes import count_incidents
     from geoexp.quickstart import demo_spec
-    from geoexp.sampleregion import load_sample_region, simulate_trial_incidents
-    from geoexp.sampleregion import write_sample_region
+    from geoexp.sampleregion import (
+        load_sample_region,
+        simulate_trial_incidents,
+        write_sample_region,
+    )
     from geoexp.trialfile import TrialFile, write_trial
 
     stages = Stages()

@@ -233,3 +233,39 @@ def test_covariate_sums_by_condition():
     # [A] every draw's condition sizes add up to n and its covariate sums to the total
     np.testing.assert_array_equal(probs.condition_sizes.sum(axis=1), 50)
     np.testing.assert_allclose(probs.covariate_sums.sum(axis=1)[:, 0], cov["x"].sum())
+
+
+@pytest.mark.skipif(not HAVE_NUMBA, reason="numba engine needs numba")
+@pytest.mark.parametrize(("n_draws", "units"), [(777, None), (640, np.arange(0, 300, 7))])
+def test_condition_bits_engines_agree_exactly(n_draws, units):
+    from geoexp.exposure._joint import _condition_bits
+
+    rng = np.random.default_rng(6)
+    points = rng.uniform(0, 2500, size=(300, 2))
+    graph = point_graph(points, 300.0)
+    mapping = ExposureMapping((120.0, 300.0))
+    sampler = CompleteSampler(300, None, 12)
+    a = _condition_bits(sampler, graph, mapping, n_draws, 3, units=units, engine="numba")
+    b = _condition_bits(sampler, graph, mapping, n_draws, 3, units=units, engine="numpy")
+    np.testing.assert_array_equal(a.bits, b.bits)
+    # and the bits agree with the counts of exposure_probabilities over the same draws
+    probs = exposure_probabilities(sampler, graph, mapping, n_draws, rng=3)
+    held = np.arange(300) if units is None else units
+    np.testing.assert_allclose(a.probabilities(), probs.probabilities[held])
+
+
+@pytest.mark.skipif(not HAVE_NUMBA, reason="numba engine needs numba")
+def test_pair_popcounts_engines_agree_exactly():
+    from geoexp.exposure._kernels import pair_popcounts
+
+    rng = np.random.default_rng(2)
+    a = rng.integers(0, 2**63, size=(50, 9), dtype=np.uint64)
+    b = rng.integers(0, 2**63, size=(40, 9), dtype=np.uint64)
+    first, second = rng.integers(0, 50, 500), rng.integers(0, 40, 500)
+    fast = pair_popcounts(a, b, first, second, engine="numba")
+    slow = pair_popcounts(a, b, first, second, engine="numpy", block=64)
+    np.testing.assert_array_equal(fast, slow)
+    # independent count with Python's int.bit_count
+    p = 17
+    expected = sum(int(x).bit_count() for x in (a[first[p]] & b[second[p]]))
+    assert fast[p] == expected

@@ -151,25 +151,29 @@ def variance_terms(
     for s, p, c, pos in ((sk, pk, k, pos_k), (sl, pl, l, pos_l)):
         if not s.size:
             continue
-        sel = (pos[a] >= 0) & (pos[b] >= 0)
-        ia, ib = a[sel], b[sel]
-        jj = bits.joint_pairs(c, rows[ia], c, rows[ib])
-        prod = p[ia] * p[ib]
-        with np.errstate(invalid="ignore", divide="ignore"):
-            term = np.where(jj > 0, (jj - prod) / jj, 0.0) * (y[ia] / p[ia]) * (y[ib] / p[ib])
+        # one popcount pass over the pairs leaving s serves both sums below
         sel = pos[a] >= 0
         ia, ib = a[sel], b[sel]
         jz = bits.joint_pairs(c, rows[ia], c, rows[ib])
         zero = np.bincount(ia[jz == 0], minlength=n)[s]
+        both = pos[ib] >= 0
+        ia, ib, jj = ia[both], ib[both], jz[both]
+        prod = p[ia] * p[ib]
+        with np.errstate(invalid="ignore", divide="ignore"):
+            term = np.where(jj > 0, (jj - prod) / jj, 0.0) * (y[ia] / p[ia]) * (y[ib] / p[ib])
         young = float((y[s] ** 2 / p[s] * zero).sum())
         if c == k:
             vk += float(term.sum()) + young
         else:
             vl += float(term.sum()) + young
     cov = 0.0
-    sel = (pos_k[a] >= 0) & (pos_l[b] >= 0)
-    ia, ib = a[sel], b[sel]
-    jkl = bits.joint_pairs(k, rows[ia], l, rows[ib])
+    # pi_ij(k, l) once for every near pair with i in k or j in l; the sums take subsets
+    in_k, in_l = pos_k[a] >= 0, pos_l[b] >= 0
+    either = np.flatnonzero(in_k | in_l)
+    j_either = bits.joint_pairs(k, rows[a[either]], l, rows[b[either]])
+    sel = in_k[either] & in_l[either]
+    ia, ib = a[either[sel]], b[either[sel]]
+    jkl = j_either[sel]
     with np.errstate(invalid="ignore", divide="ignore"):
         cov += float(
             (
@@ -181,13 +185,13 @@ def variance_terms(
             ).sum()
         )
     # zero joint probabilities: near pairs, plus the unit with itself (pi_ii(k, l) = 0)
-    sel = pos_k[a] >= 0
-    z = bits.joint_pairs(k, rows[a[sel]], l, rows[b[sel]]) == 0
-    zk = np.bincount(a[sel][z], minlength=n)[sk] + 1
+    sel = in_k[either]
+    z = j_either[sel] == 0
+    zk = np.bincount(a[either[sel]][z], minlength=n)[sk] + 1
     cov -= float((y[sk] ** 2 / (2 * pk[sk]) * zk).sum())
-    sel = pos_l[b] >= 0
-    z = bits.joint_pairs(k, rows[a[sel]], l, rows[b[sel]]) == 0
-    zl = np.bincount(b[sel][z], minlength=n)[sl] + 1
+    sel = in_l[either]
+    z = j_either[sel] == 0
+    zl = np.bincount(b[either[sel]][z], minlength=n)[sl] + 1
     cov -= float((y[sl] ** 2 / (2 * pl[sl]) * zl).sum())
     return vk, vl, cov, joint
 

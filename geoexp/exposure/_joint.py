@@ -23,7 +23,6 @@ from geoexp.exposure._kernels import (
     band_codes,
     condition_bits_chunk,
     pair_popcounts,
-    touched_conditions_numpy,
 )
 from geoexp.exposure._mapping import ExposureMapping
 from geoexp.exposure._probabilities import DrawSource, reach_csr
@@ -125,45 +124,13 @@ def condition_indicators(
     if target.shape != (graph.n,):
         raise InputError(f"target must give one condition per unit ({graph.n}), got {target.shape}")
     positions = np.arange(graph.n) if units is None else np.asarray(units, dtype=np.int64)
-    g_indptr, g_indices, g_dist = reach_csr(graph, mapping)
-    edges = np.asarray(mapping.band_edges, dtype=np.float64)
-    pc = mapping.pure_control
-    n_words = -(-n_draws // _WORD)
-    bits = np.zeros((positions.size, n_words), dtype=np.uint64)
+    every = _condition_bits(sampler, graph, mapping, n_draws, rng, units=positions)
     held_target = target[positions]
-    column = np.full(graph.n, -1, dtype=np.int64)
-    column[positions] = np.arange(positions.size)
-    draw0 = 0
-    for chunk in sampler.iter_chunks(n_draws, as_seed_sequence(rng)):
-        n_chunk = chunk.indptr.size - 1
-        r = 0
-        while r < n_chunk:
-            # a block never crosses a word boundary, so it ORs into one word per unit
-            g = draw0 + r
-            size = min(_WORD - g % _WORD, n_chunk - r)
-            sub_ptr = chunk.indptr[r : r + size + 1] - chunk.indptr[r]
-            sub_idx = chunk.indices[chunk.indptr[r] : chunk.indptr[r + size]].astype(np.int64)
-            cond = np.full((size, positions.size), pc, dtype=np.int8)
-            draw, unit, code = touched_conditions_numpy(
-                sub_ptr, sub_idx, g_indptr, g_indices, g_dist, edges, graph.n
-            )
-            held = column[unit] >= 0
-            cond[draw[held], column[unit[held]]] = code[held]
-            tdraw = np.repeat(np.arange(size), np.diff(sub_ptr))
-            theld = column[sub_idx] >= 0
-            cond[tdraw[theld], column[sub_idx[theld]]] = 0
-            hit = (cond == held_target[None, :]).astype(np.uint64)
-            shifts = (np.arange(size, dtype=np.uint64) + np.uint64(g % _WORD))[:, None]
-            bits[:, g // _WORD] |= np.bitwise_or.reduce(hit << shifts, axis=0)
-            r += size
-        draw0 += n_chunk
-    if draw0 != n_draws:
-        raise RuntimeError(f"the sampler produced {draw0} draws, {n_draws} were asked for")
     return ConditionIndicators(
         ids=graph.ids[positions],
         positions=positions,
         target=held_target,
-        bits=bits,
+        bits=every.bits[held_target, np.arange(positions.size)],
         n_draws=n_draws,
     )
 
@@ -264,7 +231,8 @@ def _condition_bits(
     pc = mapping.pure_control
     n_cond = mapping.n_conditions
     n_words = -(-n_draws // _WORD)
-    bits = np.zeros((n_cond, positions.size, n_words), dtype=np.uint64)
+    # draw-major while the kernels write, unit-major (one row of words per unit) after
+    words = np.zeros((n_cond, n_words, positions.size), dtype=np.uint64)
     column = np.full(graph.n, -1, dtype=np.int64)
     column[positions] = np.arange(positions.size)
     draw0 = 0
@@ -280,7 +248,7 @@ def _condition_bits(
             g_code,
             column,
             draw0,
-            bits,
+            words,
             engine=engine,
         )
         draw0 += n_chunk
@@ -290,5 +258,7 @@ def _condition_bits(
     valid = np.full(n_words, np.uint64(2**64 - 1), dtype=np.uint64)
     if n_draws % _WORD:
         valid[-1] = np.uint64((1 << (n_draws % _WORD)) - 1)
-    bits[pc] = ~np.bitwise_or.reduce(bits[:pc], axis=0) & valid
+    words[pc] = ~np.bitwise_or.reduce(words[:pc], axis=0) & valid[:, None]
+    bits = np.ascontiguousarray(words.transpose(0, 2, 1))
+    del words
     return ConditionBits(ids=graph.ids[positions], positions=positions, bits=bits, n_draws=n_draws)

@@ -359,13 +359,13 @@ def _bits_numba_impl(
                 t_unit = d_indices[a]
                 col = column[t_unit]
                 if col >= 0:
-                    bits[0, col, w] |= bit
+                    bits[0, w, col] |= bit
                 best[t_unit] = pc
             for s in range(n_touched):
                 j = touched[s]
                 col = column[j]
                 if col >= 0:
-                    bits[best[j], col, w] |= bit
+                    bits[best[j], w, col] |= bit
                 best[j] = pc
 
 
@@ -406,7 +406,10 @@ def condition_bits_chunk(
     *,
     engine: str = "auto",
 ) -> None:
-    """Set the bits of draws ``draw0 ..`` of a chunk in ``bits`` (n_conditions, n_held, n_words).
+    """Set the bits of draws ``draw0 ..`` of a chunk in ``bits`` (n_conditions, n_words, n_held).
+
+    The draw-major layout keeps the writes of 64 consecutive draws within one
+    row per condition (cache-friendly); the caller transposes at the end.
 
     Sets the treated and band bits of the held units (``column[unit]`` is the
     unit's row, -1 if not held); pure-control bits are the complement, set
@@ -427,7 +430,7 @@ def condition_bits_chunk(
             d_indptr, d_indices, g_indptr, g_indices, g_code, column, int(draw0), bits, threads
         )
         return
-    n_cond, n_held, n_words = bits.shape
+    n_cond, n_words, n_held = bits.shape
     flat = bits.reshape(-1)
     n_draws = d_indptr.size - 1
     max_draws = max(1, _SCRATCH_ENTRIES // max(n_units, 1))
@@ -446,7 +449,7 @@ def condition_bits_chunk(
         col = column[unit]
         held = col >= 0
         g = draw[held] + (draw0 + start)
-        where = (code[held] * n_held + col[held]) * n_words + g // 64
+        where = (code[held] * n_words + g // 64) * n_held + col[held]
         # every (condition, unit, draw) occurs once, so OR-ing the bits in loses nothing
         np.bitwise_or.at(flat, where, np.left_shift(np.uint64(1), (g % 64).astype(np.uint64)))
 

@@ -11,14 +11,8 @@ import numpy as np
 from geoexp._rng import RngLike
 from geoexp.design import CompleteSampler, Draws
 from geoexp.errors import InputError
-from geoexp.inference._draws import (
-    ContrastSpec,
-    draw_sums,
-    observed_sums,
-    statistic_from_sums,
-    weight_columns,
-)
-from geoexp.inference._significance import Alternative, RandomizationTest, significance
+from geoexp.inference._draws import ContrastSpec, contrast_test
+from geoexp.inference._significance import Alternative, RandomizationTest
 
 if TYPE_CHECKING:
     from geoexp.design import Design
@@ -140,25 +134,19 @@ def spillover_test(
                 "use focal units that are not eligible"
             )
         sampler = FixedFocalSampler.from_complete(sampler, focal[design.eligible[focal]], treated)
-    cols = weight_columns(y, probabilities, spec)
-    n = int(mask.sum())
-    t_obs = float(
-        statistic_from_sums(
-            observed_sums(cols, observed, band), observed_sums(cols, observed, pc), estimator, n
-        )
-    )
-    rng = design.stream(3 + band) if rng is None else rng
-    sums = draw_sums(sampler, design.graph, design.mapping, cols, n_draws, rng)
-    null = statistic_from_sums(sums[:, band, :], sums[:, pc, :], estimator, n)
-    p, mc, undefined = significance(t_obs, null, alternative)
-    return RandomizationTest(
+    return contrast_test(
+        sampler,
+        design.graph,
+        design.mapping,
+        y,
+        observed,
+        probabilities,
+        spec,
         null=f"no spillover into {design.mapping.labels[band]} (focal units)",
-        statistic=t_obs,
-        p_value=p,
-        mc_error=mc,
+        estimator=estimator,
         n_draws=n_draws,
+        rng=design.stream(3 + band) if rng is None else rng,
         alternative=alternative,
-        n_undefined=undefined,
         n_focal=int(focal.size),
-        null_draws=null if keep_null else None,
+        keep_null=keep_null,
     )

@@ -10,6 +10,7 @@ import pandas as pd
 from geoexp._rng import RngLike
 from geoexp.errors import InputError
 from geoexp.exposure import exposure_probabilities
+from geoexp.inference._significance import Alternative, RandomizationTest, significance
 
 
 @dataclass(frozen=True)
@@ -77,3 +78,53 @@ def draw_sums(
         sampler, graph, mapping, n_draws, rng, covariates=frame, engine=engine
     )
     return probs.covariate_sums
+
+
+def contrast_test(
+    sampler,
+    graph,
+    mapping,
+    y: np.ndarray,
+    observed: np.ndarray,
+    probabilities: np.ndarray,
+    spec: ContrastSpec,
+    *,
+    null: str,
+    estimator: str,
+    n_draws: int,
+    rng: RngLike,
+    alternative: Alternative,
+    n_focal: int = 0,
+    keep_null: bool = False,
+) -> RandomizationTest:
+    """Randomization test of a sharp null with the contrast of ``spec`` as statistic.
+
+    Under the null the outcomes ``y`` are fixed, so the statistic of every draw
+    of ``sampler`` is computed on the same outcomes; the per-draw sums come
+    from one pass of the exposure engine over the draws.
+    """
+    y = np.asarray(y, dtype=float)
+    cols = weight_columns(y, probabilities, spec)
+    n = int(population(probabilities, spec).sum())
+    t_obs = float(
+        statistic_from_sums(
+            observed_sums(cols, observed, spec.k),
+            observed_sums(cols, observed, spec.l),
+            estimator,
+            n,
+        )
+    )
+    sums = draw_sums(sampler, graph, mapping, cols, n_draws, rng)
+    draws = statistic_from_sums(sums[:, spec.k, :], sums[:, spec.l, :], estimator, n)
+    p, mc, undefined = significance(t_obs, draws, alternative)
+    return RandomizationTest(
+        null=null,
+        statistic=t_obs,
+        p_value=p,
+        mc_error=mc,
+        n_draws=n_draws,
+        alternative=alternative,
+        n_undefined=undefined,
+        n_focal=n_focal,
+        null_draws=draws if keep_null else None,
+    )

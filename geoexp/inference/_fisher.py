@@ -7,15 +7,8 @@ from typing import TYPE_CHECKING
 import numpy as np
 
 from geoexp._rng import RngLike
-from geoexp.inference._draws import (
-    ContrastSpec,
-    draw_sums,
-    observed_sums,
-    population,
-    statistic_from_sums,
-    weight_columns,
-)
-from geoexp.inference._significance import Alternative, RandomizationTest, significance
+from geoexp.inference._draws import ContrastSpec, contrast_test
+from geoexp.inference._significance import Alternative, RandomizationTest
 
 if TYPE_CHECKING:
     from geoexp.design import Design
@@ -43,29 +36,19 @@ def fisher_test(
     are respected. Rejecting "no effect at all" is not evidence of spillover
     in particular; see :func:`spillover_test`.
     """
-    y = np.asarray(y, dtype=float)
-    cols = weight_columns(y, probabilities, contrast)
-    n = int(population(probabilities, contrast).sum())
-    t_obs = float(
-        statistic_from_sums(
-            observed_sums(cols, observed, contrast.k),
-            observed_sums(cols, observed, contrast.l),
-            estimator,
-            n,
-        )
-    )
-    rng = design.stream(2) if rng is None else rng
-    sums = draw_sums(design.sampler, design.graph, design.mapping, cols, n_draws, rng)
-    null = statistic_from_sums(sums[:, contrast.k, :], sums[:, contrast.l, :], estimator, n)
-    p, mc, undefined = significance(t_obs, null, alternative)
     labels = design.mapping.labels
-    return RandomizationTest(
+    return contrast_test(
+        design.sampler,
+        design.graph,
+        design.mapping,
+        y,
+        observed,
+        probabilities,
+        contrast,
         null=f"no effect at all ({labels[contrast.k]} vs {labels[contrast.l]} statistic)",
-        statistic=t_obs,
-        p_value=p,
-        mc_error=mc,
+        estimator=estimator,
         n_draws=n_draws,
+        rng=design.stream(2) if rng is None else rng,
         alternative=alternative,
-        n_undefined=undefined,
-        null_draws=null if keep_null else None,
+        keep_null=keep_null,
     )
