@@ -198,6 +198,17 @@ def write_report(
         html_table(pd.DataFrame({"value": design_rows})),
         "<h2>Estimates</h2>",
         html_table(summary),
+        *(
+            [
+                "<h2>Effects by saturation (randomized-saturation design)</h2>",
+                "<p>Group means by the saturation each unit's cluster drew (Hudgens &amp; "
+                "Halloran 2008; Baird, Bohren, McIntosh &amp; Özler 2018): total = direct + "
+                "spillover.</p>",
+                html_table(analysis.saturation),
+            ]
+            if analysis.saturation is not None
+            else []
+        ),
         "<h2>Displacement or diffusion: weighted displacement quotient</h2>",
         "<p>Bowers &amp; Johnson (2003): treated units as target area, each band as buffer, "
         "pure controls as control area.</p>",
@@ -243,6 +254,11 @@ def write_report(
         "",
         markdown_table(summary),
         "",
+        *(
+            ["## Effects by saturation", "", markdown_table(analysis.saturation), ""]
+            if analysis.saturation is not None
+            else []
+        ),
         "## Weighted displacement quotient (Bowers & Johnson 2003)",
         "",
         markdown_table(wdq) if len(wdq) else "Not computable.",

@@ -10,13 +10,14 @@ import numpy as np
 import pandas as pd
 
 from geoexp.analysis._verdict import Verdict, direct_verdict, spillover_verdict
-from geoexp.design import Design
+from geoexp.design import Assignment, Design, SaturationSampler
 from geoexp.errors import InputError
 from geoexp.estimate import (
     ContrastEstimate,
     DisplacementIndex,
     _horvitz,
     estimate_contrast,
+    saturation_effects,
     weighted_displacement_quotient,
 )
 from geoexp.exposure import condition_bits
@@ -62,6 +63,7 @@ class Analysis:
     per_unit: pd.DataFrame
     notes: tuple[str, ...] = field(default=())
     band_edges: tuple[float, ...] = ()
+    saturation: pd.DataFrame | None = None
 
     def to_frame(self) -> pd.DataFrame:
         """One row per contrast: estimates, intervals, p-values and verdicts."""
@@ -309,7 +311,26 @@ def analyse(
         per_unit=per_unit,
         notes=tuple(notes),
         band_edges=mapping.band_edges,
+        saturation=_saturation_table(design, assignment, y),
     )
+
+
+def _saturation_table(design: Design, assignment: Assignment, y: np.ndarray) -> pd.DataFrame | None:
+    """Direct, spillover and total effects by saturation level, for randomized-saturation designs."""
+    sampler = design.sampler
+    while not isinstance(sampler, SaturationSampler) and hasattr(sampler, "base"):
+        sampler = sampler.base
+    if not isinstance(sampler, SaturationSampler) or "cluster_level" not in assignment.extra:
+        return None
+    cluster_level = np.asarray(assignment.extra["cluster_level"])
+    unit_level = cluster_level[sampler.cluster_codes]
+    elig = sampler.eligible
+    try:
+        return saturation_effects(
+            y[elig], assignment.treated[elig], unit_level, np.asarray(sampler.saturations)
+        )
+    except InputError:
+        return None
 
 
 def _reference_level(

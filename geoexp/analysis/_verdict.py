@@ -76,9 +76,7 @@ def spillover_verdict(
         lead = f"Diffusion of benefits into the {band} band: fewer incidents than at pure controls"
     else:
         finding = "no detectable spillover"
-        lead = (
-            f"No detectable spillover in the {band} band (which is not proof that there is none)"
-        )
+        lead = f"No detectable spillover in the {band} band (which is not proof that there is none)"
     words = f"{lead}: {_numbers(effect, pct, unit, inverted, test, how)}"
     return Verdict(
         effect.contrast, finding, effect.estimate, effect.ci_low, effect.ci_high, pct, p, how, words
