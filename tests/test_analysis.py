@@ -171,3 +171,48 @@ def test_saturation_design_is_analysed_by_level(tmp_path, region_path):
     table = result.saturation
     assert table is not None and list(table.index) == [0.2, 0.5]
     np.testing.assert_allclose(table["total"], table["direct"] + table["spillover"])
+
+
+def test_all_units_eligible_uses_random_focal_units(tmp_path):
+    # Every unit eligible (no never-treated units): the spillover test conditions on the
+    # assignment of randomly chosen focal units (exact for complete randomization).
+    import geopandas as gpd
+
+    from geoexp.design import DesignSpec
+    from geoexp.outcomes import OutcomeTable, save_outcomes
+    from geoexp.sampleregion import synthetic_grid
+    from geoexp.trialfile import write_trial
+
+    grid = synthetic_grid(900, kind="parcel", seed=2)
+    grid.to_file(tmp_path / "parcels.gpkg", layer="parcels", engine="pyogrio")
+    spec = DesignSpec.from_dict(
+        {
+            "name": "all eligible",
+            "seed": 4,
+            "draws": 300,
+            "units": {"path": str(tmp_path / "parcels.gpkg"), "id_column": "unit_id"},
+            "assignment": {"method": "complete", "treated": 60},
+            "exposure": {"bands_m": [40.0]},
+        }
+    )
+    design = Design.from_spec(spec)
+    trial = write_trial(tmp_path / "t.gpkg", design, design.draw(), design.probabilities(300))
+    rng = np.random.default_rng(1)
+    counts = pd.DataFrame(
+        {"pre": rng.poisson(2, 900), "post": rng.poisson(2, 900)}, index=design.units.ids
+    )
+    save_outcomes(
+        trial,
+        OutcomeTable.from_counts(
+            counts,
+            None,
+            units=trial,
+            pre=("2025-01-01", "2025-12-31"),
+            post=("2026-01-01", "2026-12-31"),
+        ),
+    )
+    result = analyse(trial.path, n_draws=200, intervals=False)
+    test = result.spillover_tests[1]
+    assert test is not None and test.n_focal >= 10
+    assert any("focal units chosen at random" in n for n in result.notes)
+    assert isinstance(gpd.read_file(tmp_path / "t.gpkg", layer="units"), gpd.GeoDataFrame)

@@ -10,7 +10,7 @@ import numpy as np
 import pandas as pd
 
 from geoexp.analysis._verdict import Verdict, direct_verdict, spillover_verdict
-from geoexp.design import Assignment, Design, SaturationSampler
+from geoexp.design import Assignment, CompleteSampler, Design, SaturationSampler
 from geoexp.errors import InputError
 from geoexp.estimate import (
     ContrastEstimate,
@@ -229,6 +229,13 @@ def analyse(
         s = None
         if k > 0:
             focal = default_focal_units(design, probs, k)
+            if focal.size < MIN_FOCAL and isinstance(design.sampler, CompleteSampler):
+                focal = _random_focal_units(design, probs, k)
+                notes.append(
+                    f"{mapping.labels[k]}: too few units are never treated, so the spillover test "
+                    f"holds the assignment of {focal.size} focal units chosen at random (from the "
+                    "design's seed, before looking at outcomes) and redraws the rest"
+                )
             if focal.size >= MIN_FOCAL:
                 s = spillover_test(
                     design, observed, assignment.treated, y, probs, k, focal=focal, n_draws=n_draws
@@ -313,6 +320,18 @@ def analyse(
         band_edges=mapping.band_edges,
         saturation=_saturation_table(design, assignment, y),
     )
+
+
+def _random_focal_units(design: Design, probs: np.ndarray, band: int) -> np.ndarray:
+    """Half of the units that can be in the band or pure controls, chosen from the seed alone.
+
+    Athey, Eckles & Imbens (2018) choose focal units at random before the
+    outcomes are seen; the conditional test then holds their assignments fixed.
+    """
+    pc = design.mapping.pure_control
+    candidates = np.flatnonzero((probs[:, band] > 0) & (probs[:, pc] > 0))
+    rng = np.random.default_rng(design.stream(20 + band))
+    return np.sort(rng.choice(candidates, size=candidates.size // 2, replace=False))
 
 
 def _saturation_table(design: Design, assignment: Assignment, y: np.ndarray) -> pd.DataFrame | None:
