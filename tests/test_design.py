@@ -284,3 +284,18 @@ def test_rerandomized_design_from_a_spec(region_path, units, graph):
     design = Design.from_spec(DesignSpec.from_dict(data), units=units, graph=graph)
     draws = design.sampler.draw_many(200, 1)
     assert (design.sampler.mahalanobis(draws) <= design.sampler.threshold).all()
+
+
+def test_distances_in_feet_are_converted_to_metres(region_path):
+    data = spec_dict(region_path, gap_ft=500)
+    data["exposure"] = {"bands_ft": [500, 1000]}
+    spec = DesignSpec.from_dict(data)
+    # 1 international foot = 0.3048 m exactly (by definition since 1959)
+    assert spec.exposure.bands_m == pytest.approx((152.4, 304.8))
+    assert spec.assignment.gap_m == pytest.approx(152.4)
+    metres = spec_dict(region_path, gap_m=152.4)
+    metres["exposure"] = {"bands_m": [152.4, 304.8]}
+    assert DesignSpec.from_dict(metres).hash == spec.hash
+    data["exposure"]["bands_m"] = [1]
+    with pytest.raises(DesignError, match="not both"):
+        DesignSpec.from_dict(data)

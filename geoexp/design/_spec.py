@@ -133,7 +133,7 @@ class DesignSpec:
         cls, data: dict[str, Any], *, base_dir: str = ".", source: str = "<dict>"
     ) -> DesignSpec:
         """Build a spec from a nested dict (the TOML structure)."""
-        data = dict(data)
+        data = _feet_to_metres(dict(data), source)
         try:
             units = _section(data.pop("units", None), UnitsSpec, "units", source, required=True)
             eligible = _section(data.pop("eligible", None), EligibilitySpec, "eligible", source)
@@ -243,6 +243,32 @@ class DesignSpec:
     def replace(self, **changes: Any) -> DesignSpec:
         """A copy with top-level fields changed (e.g. ``seed=``)."""
         return dataclasses.replace(self, **changes)
+
+
+FOOT = 0.3048  # the international foot, in metres
+
+
+def _feet_to_metres(data: dict[str, Any], source: str) -> dict[str, Any]:
+    """Accept ``bands_ft`` and ``gap_ft`` by converting them to metres (international feet).
+
+    The spec keeps metres, so its hash does not depend on the unit it was typed in.
+    """
+    for table, key in (("exposure", "bands"), ("assignment", "gap")):
+        section = data.get(table)
+        if not isinstance(section, dict) or f"{key}_ft" not in section:
+            continue
+        section = dict(section)
+        if f"{key}_m" in section:
+            raise DesignError(f"{source}: [{table}] give {key}_m or {key}_ft, not both")
+        value = section.pop(f"{key}_ft")
+        try:
+            section[f"{key}_m"] = (
+                [float(v) * FOOT for v in value] if isinstance(value, list) else float(value) * FOOT
+            )
+        except (TypeError, ValueError):
+            raise DesignError(f"{source}: [{table}] {key}_ft must be numbers of feet") from None
+        data[table] = section
+    return data
 
 
 def _section(raw: Any, cls: type, name: str, source: str, required: bool = False) -> Any:
