@@ -230,8 +230,10 @@ class ExposureGraph:
             except _network.NotLinesError as err:
                 bad = order[err.positions]
                 raise InputError(
-                    "the network metric needs street segments (lines); "
-                    f"{bad.size} units are not lines: {describe_rows(ids[np.sort(bad)].tolist())}"
+                    "the network metric needs each street segment to be one connected line; "
+                    f"{bad.size} units are not (points, polygons, or multi-part lines whose parts "
+                    f"do not join end to end): {describe_rows(ids[np.sort(bad)].tolist())}. "
+                    "Split or repair them, or use metric='euclidean'."
                 ) from None
         order = order.astype(np.int32)
         pairs = [order[first], order[second], dist]
