@@ -230,7 +230,7 @@ class ExposureGraph:
             except _network.NotLinesError as err:
                 bad = order[err.positions]
                 raise InputError(
-                    "the network metric needs each street segment to be one connected line; "
+                    "the network metric needs street segments, each one connected line; "
                     f"{bad.size} units are not (points, polygons, or multi-part lines whose parts "
                     f"do not join end to end): {describe_rows(ids[np.sort(bad)].tolist())}. "
                     "Split or repair them, or use metric='euclidean'."
