@@ -56,5 +56,3 @@ def describe_rows(rows: Iterable[object], limit: int = 10) -> str:
     shown = ", ".join(repr(r) if isinstance(r, str) else str(r) for r in rows[:limit])
     rest = len(rows) - limit
     return shown + (f" (and {rest} more)" if rest > 0 else "")
-
-

@@ -38,3 +38,17 @@ def demo_outputs(tmp_path_factory):
     paths = run_demo(out, n_draws=200, echo=lambda *_: None)
     paths["dir"] = out
     return paths
+
+
+@pytest.fixture(scope="module")
+def demo(demo_outputs):
+    """The folder of the session's demo run (a drawn trial of the sample city); read only."""
+    return demo_outputs["dir"]
+
+
+@pytest.fixture(scope="module")
+def trial(demo):
+    """The demo's trial file, opened once per test module."""
+    from geoexp.trialfile import TrialFile
+
+    return TrialFile.open(demo / "trial.gpkg")

@@ -55,18 +55,6 @@ def browser():
         b.close()
 
 
-@pytest.fixture(scope="module")
-def demo(demo_outputs):
-    return demo_outputs["dir"]
-
-
-@pytest.fixture(scope="module")
-def trial(demo):
-    from geoexp.trialfile import TrialFile
-
-    return TrialFile.open(demo / "trial.gpkg")
-
-
 class Opened:
     """A page opened offline, with the requests it tried to make."""
 
@@ -123,13 +111,19 @@ def open_page(browser, tmp_path):
         o.close()
 
 
-def _check_common(o: Opened) -> None:
+def check_loaded(o: Opened) -> None:
+    """The page ran without errors or network requests, and its Leaflet map exists."""
     page = o.page
     assert o.errors == []
     assert o.blocked == [], "the page tried to reach the network"
     # Leaflet initialised and the map object exists.
     assert page.evaluate("typeof window.L === 'object' && L.version.startsWith('1.')")
     assert page.evaluate("window.geoexpMap.map instanceof L.Map")
+
+
+def _check_common(o: Opened) -> None:
+    page = o.page
+    check_loaded(o)
     # The legend is there and visible.
     assert page.locator("#geoexp-legend").is_visible()
     # The drawing control offers polygon and rectangle, nothing else.

@@ -22,19 +22,6 @@ browser = shared.browser
 open_page = shared.open_page
 
 
-@pytest.fixture(scope="module")
-def demo(demo_outputs):
-    """The folder of the session's demo run (conftest.py); read only."""
-    return demo_outputs["dir"]
-
-
-@pytest.fixture(scope="module")
-def trial(demo):
-    from geoexp.trialfile import TrialFile
-
-    return TrialFile.open(demo / "trial.gpkg")
-
-
 def _findings(report_md: str) -> list[str]:
     """The verdict sentences, as the Markdown report lists them under 'Findings'."""
     section = report_md.split("## Findings", 1)[1].split("\n## ", 1)[0]
@@ -75,11 +62,7 @@ def test_result_map_in_browser(demo, trial, open_page, tmp_path):
 
     o = open_page(demo / "results_map.html")
     page = o.page
-    assert o.errors == []
-    assert o.blocked == [], "the page tried to reach the network"
-    # Leaflet initialised and the map object exists.
-    assert page.evaluate("typeof window.L === 'object' && L.version.startsWith('1.')")
-    assert page.evaluate("window.geoexpMap.map instanceof L.Map")
+    shared.check_loaded(o)
     assert page.locator(".leaflet-control-scale").count() == 1
     assert page.locator(".leaflet-control-layers").count() == 1
 

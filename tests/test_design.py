@@ -263,8 +263,14 @@ def test_field_csv_lists_eligible_units(tmp_path, region_path, units, graph):
 
 def test_saturation_design_from_a_spec(region_path, units, graph):
     design = make(
-        region_path, units, graph, method="saturation", treated=None, cluster_column="district",
-        saturations=[0.0, 0.3, 0.6], cluster_counts=[2, 3, 3],
+        region_path,
+        units,
+        graph,
+        method="saturation",
+        treated=None,
+        cluster_column="district",
+        saturations=[0.0, 0.3, 0.6],
+        cluster_counts=[2, 3, 3],
     )
     assignment = design.draw()
     levels = assignment.extra["cluster_level"]

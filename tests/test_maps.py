@@ -37,19 +37,6 @@ from geoexp.maps import (
 
 
 @pytest.fixture(scope="module")
-def demo(demo_outputs):
-    """A drawn trial of the sample city (the demo job, few Monte Carlo draws)."""
-    return demo_outputs["dir"]
-
-
-@pytest.fixture(scope="module")
-def trial(demo):
-    from geoexp.trialfile import TrialFile
-
-    return TrialFile.open(demo / "trial.gpkg")
-
-
-@pytest.fixture(scope="module")
 def page(trial):
     html, remote = map_html(planning_map(trial))
     return html, remote

@@ -28,19 +28,6 @@ from geoexp.maps._results import change_limit  # noqa: E402
 
 
 @pytest.fixture(scope="module")
-def demo(demo_outputs):
-    """The folder of the session's demo run (conftest.py); read only."""
-    return demo_outputs["dir"]
-
-
-@pytest.fixture(scope="module")
-def trial(demo):
-    from geoexp.trialfile import TrialFile
-
-    return TrialFile.open(demo / "trial.gpkg")
-
-
-@pytest.fixture(scope="module")
 def analysis(trial):
     from geoexp.analysis import analyse
 

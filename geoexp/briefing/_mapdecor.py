@@ -163,3 +163,14 @@ def north_arrow(
             "alpha": 0.9,
         },
     )
+
+
+def scale_bar_and_north_arrow(ax: Axes, *, crs, metres_per_unit: float, bounds) -> None:
+    """Draw a scale bar and a north arrow pointing to true north at the middle of ``bounds``.
+
+    ``bounds`` is ``(xmin, ymin, xmax, ymax)`` in the map's CRS, usually the
+    extent the map shows.
+    """
+    scale_bar(ax, metres_per_unit=metres_per_unit)
+    cx, cy = (bounds[0] + bounds[2]) / 2, (bounds[1] + bounds[3]) / 2
+    north_arrow(ax, angle=true_north_angle(crs, cx, cy))

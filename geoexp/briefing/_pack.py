@@ -21,7 +21,7 @@ from matplotlib.patches import Rectangle
 from matplotlib.transforms import offset_copy
 
 from geoexp._atomic import atomic_path
-from geoexp.briefing._mapdecor import halo_text, north_arrow, scale_bar, true_north_angle
+from geoexp.briefing._mapdecor import halo_text, scale_bar_and_north_arrow
 from geoexp.briefing._plan import (
     ALL_UNITS,
     BriefingPlan,
@@ -289,6 +289,19 @@ def _draw_units(
                 zorder=7,
                 alpha=alpha,
             )
+
+
+def _draw_outlines(ax: matplotlib.axes.Axes, outlines: gpd.GeoSeries) -> None:
+    """District outlines: dark dashed lines over the units."""
+    ax.add_collection(
+        LineCollection(
+            _segments(outlines.values),
+            colors="0.15",
+            linewidths=1.0,
+            linestyles=[(0, (6, 3))],
+            zorder=3,
+        )
+    )
 
 
 def _fit_extent(bounds, aspect: float, min_span: float, pad: float) -> tuple[float, ...]:
@@ -603,15 +616,7 @@ def _overview(pages: _Pages, outlines: gpd.GeoSeries) -> Figure:
                 halo_text(
                     ax, px, py, str(number_of[uid]), transform=shifted, fontsize=6.5, zorder=12
                 )
-    ax.add_collection(
-        LineCollection(
-            _segments(outlines.values),
-            colors="0.15",
-            linewidths=1.0,
-            linestyles=[(0, (6, 3))],
-            zorder=3,
-        )
-    )
+    _draw_outlines(ax, outlines)
     first_page = {d.name: d.first_page for d in plan.districts}
     label_at = shapely.get_coordinates(shapely.point_on_surface(outlines.values))
     for (name, _), (lx, ly) in zip(outlines.items(), label_at, strict=True):
@@ -629,9 +634,9 @@ def _overview(pages: _Pages, outlines: gpd.GeoSeries) -> Figure:
             zorder=9,
             halo=3.5,
         )
-    scale_bar(ax, metres_per_unit=data.metres_per_unit)
-    cx, cy = (extent[0] + extent[2]) / 2, (extent[1] + extent[3]) / 2
-    north_arrow(ax, angle=true_north_angle(frame.crs, cx, cy))
+    scale_bar_and_north_arrow(
+        ax, crs=frame.crs, metres_per_unit=data.metres_per_unit, bounds=extent
+    )
     handles = [
         _legend_handles(frame, data.condition_labels, ["treated"])[0],
         Line2D([], [], color="0.6", linewidth=0.4, label="other units"),
@@ -847,15 +852,7 @@ def _district_pages(
     # does not take another district's treated place for one of its own.
     _draw_units(ax, view[~own], condition_order(view["condition"].unique()), alpha=0.3)
     _draw_units(ax, view[own], condition_order(view["condition"].unique()))
-    ax.add_collection(
-        LineCollection(
-            _segments(outlines.values),
-            colors="0.15",
-            linewidths=1.0,
-            linestyles=[(0, (6, 3))],
-            zorder=3,
-        )
-    )
+    _draw_outlines(ax, outlines)
     _street_labels(ax, view, treated, extent)
     ax.scatter(
         xy[:, 0], xy[:, 1], s=22, facecolor="white", edgecolor="black", linewidth=1.0, zorder=10
@@ -873,9 +870,9 @@ def _district_pages(
             zorder=11,
             halo=3.5,
         )
-    scale_bar(ax, metres_per_unit=data.metres_per_unit)
-    cx, cy = (extent[0] + extent[2]) / 2, (extent[1] + extent[3]) / 2
-    north_arrow(ax, angle=true_north_angle(frame.crs, cx, cy))
+    scale_bar_and_north_arrow(
+        ax, crs=frame.crs, metres_per_unit=data.metres_per_unit, bounds=extent
+    )
     codes = condition_order(view["condition"].unique())
     fig.legend(
         handles=_legend_handles(frame, data.condition_labels, codes),

@@ -39,6 +39,10 @@ PLAIN_BACKGROUND = "#f3f1ec"
 # also order correctly in grey and for colour-blind readers.
 PROB_BINS = 5
 NEVER_COLOUR = "#9a9a9a"
+_DRAW_NOTE = (
+    "Draw polygons or rectangles with the tools on the left, then 'Save zones' to write "
+    f"{ZONES_FILENAME}; list it under [eligible] exclude in the design spec."
+)
 
 
 def _folium():
@@ -173,6 +177,11 @@ def _rings(treated: gpd.GeoSeries, bands_m: Sequence[float]) -> np.ndarray:
     )
 
 
+def _ring_labels(bands: Sequence[float]) -> list[str]:
+    lows = (0.0, *bands[:-1])
+    return [f"within {lo:g}-{hi:g} m of a treated unit" for lo, hi in zip(lows, bands, strict=True)]
+
+
 # ------------------------------------------------------------------ the page
 
 
@@ -221,6 +230,7 @@ class _Page:
         folium = self.folium
         from folium.plugins import Draw
 
+        shape = {"color": "#000000", "weight": 2, "dashArray": "6 4", "fillOpacity": 0.15}
         Draw(
             export=False,
             feature_group=draw_group,
@@ -232,25 +242,8 @@ class _Page:
                 "circlemarker": False,
                 "marker": False,
                 # Area readouts are off: Leaflet.draw 1.0's area label fails for rectangles.
-                "polygon": {
-                    "allowIntersection": False,
-                    "showArea": False,
-                    "shapeOptions": {
-                        "color": "#000000",
-                        "weight": 2,
-                        "dashArray": "6 4",
-                        "fillOpacity": 0.15,
-                    },
-                },
-                "rectangle": {
-                    "showArea": False,
-                    "shapeOptions": {
-                        "color": "#000000",
-                        "weight": 2,
-                        "dashArray": "6 4",
-                        "fillOpacity": 0.15,
-                    },
-                },
+                "polygon": {"allowIntersection": False, "showArea": False, "shapeOptions": shape},
+                "rectangle": {"showArea": False, "shapeOptions": shape},
             },
             edit_options={"poly": {"allowIntersection": False}},
         ).add_to(self.map)
@@ -268,54 +261,79 @@ class _Page:
         return self.map
 
 
-def _page_script(**kw):
-    """The page's own element (built lazily so folium loads only when a map is made)."""
+def _script_safe(text: str) -> str:
+    # "</" cannot appear inside an inline script; JSON allows "<\/".
+    return text.replace("</", "<\\/")
+
+
+def _script_element(
+    name: str,
+    template: str,
+    cfg: dict,
+    datasets: dict,
+    groups: set[str],
+    legend_html: str,
+    values: dict | None = None,
+):
+    """A page's own element (built lazily so folium loads only when a map is made).
+
+    The planning and the result pages share this: the layer declarations
+    (``cfg``), the datasets, the feature-group names the script looks up, the
+    legend's HTML and, for the result page, the per-unit values.
+    """
     from branca.element import MacroElement
     from jinja2 import Template
 
     class PageScript(MacroElement):
-        _template = Template(_PAGE_TEMPLATE)
+        _template = Template(template)
 
-        def __init__(self, **kw):
+        def __init__(self):
             super().__init__()
-            self._name = "GeoexpPage"
-            cfg = {k: kw[k] for k in ("layers", "prob_colours", "never_colour", "background")}
-            cfg["draw_group"] = kw["draw_group"]
-            cfg["zones_filename"] = ZONES_FILENAME
-            # "</" cannot appear inside an inline script; JSON allows "<\/".
-            self.config = json.dumps(cfg, separators=(",", ":")).replace("</", "<\\/")
-            self.datasets = _dump(kw["datasets"]).replace("</", "<\\/")
-            self.groups = sorted({lay["group"] for lay in kw["layers"]} | {kw["draw_group"]})
-            self.legend_html = json.dumps(kw["legend_html"]).replace("</", "<\\/")
+            self._name = name
+            self.config = _script_safe(json.dumps(cfg, separators=(",", ":")))
+            self.datasets = _script_safe(_dump(datasets))
+            self.values = _script_safe(json.dumps(values, separators=(",", ":")))
+            self.groups = sorted(groups)
+            self.legend_html = _script_safe(json.dumps(legend_html))
 
-    return PageScript(**kw)
+    return PageScript()
 
 
-# The page's own script: builds each declared layer from the shared data,
-# the legend control, the zone export button, and a small handle
-# (window.geoexpMap) that the browser tests read.
-_PAGE_TEMPLATE = """
-{% macro header(this, kwargs) %}
-<style>
-.geoexp-legend { background: rgba(255,255,255,0.94); padding: 8px 10px; border-radius: 4px;
-  box-shadow: 0 1px 4px rgba(0,0,0,0.35); font: 12px/1.35 system-ui, sans-serif; color: #111;
-  max-width: 300px; max-height: 70vh; overflow-y: auto; }
+def _page_script(**kw):
+    """The planning page's own element."""
+    cfg = {k: kw[k] for k in ("layers", "prob_colours", "never_colour", "background")}
+    cfg["draw_group"] = kw["draw_group"]
+    cfg["zones_filename"] = ZONES_FILENAME
+    return _script_element(
+        "GeoexpPage",
+        _PAGE_TEMPLATE,
+        cfg,
+        kw["datasets"],
+        {lay["group"] for lay in kw["layers"]} | {kw["draw_group"]},
+        kw["legend_html"],
+    )
+
+
+# Parts of the page script that the planning and the result pages share. Each
+# page defines, between them, its own unitTip(meta) and layerStyle(lay) and a
+# `handle` object; layerStyle(lay) returns the Leaflet style of a layer.
+#
+# Styles every page needs; each page adds its own legend box and extras.
+_SHARED_CSS = """
 .geoexp-legend h4 { margin: 0 0 2px 0; font-size: 13px; }
 .geoexp-legend .sub { color: #444; margin-bottom: 6px; }
 .geoexp-legend table { border-collapse: collapse; }
-.geoexp-legend td { padding: 1px 4px 1px 0; vertical-align: middle; }
 .geoexp-legend .caution { margin-top: 6px; color: #333; font-size: 11px; border-top: 1px solid #bbb;
   padding-top: 4px; }
 .geoexp-legend .note { font-size: 11px; color: #333; margin-top: 4px; }
-.geoexp-save { background: #fff; border: 2px solid rgba(0,0,0,0.3); border-radius: 4px;
-  padding: 4px 6px; font: 12px system-ui, sans-serif; cursor: pointer; }
 .geoexp-district-label { background: transparent; border: none; box-shadow: none; color: #333;
   font: 600 12px system-ui, sans-serif; text-shadow: 0 0 3px #fff, 0 0 3px #fff; }
 .geoexp-tip td { padding: 0 6px 0 0; }
 .leaflet-control-layers { font: 12px/1.4 system-ui, sans-serif; }
-</style>
-{% endmacro %}
-{% macro script(this, kwargs) %}
+"""
+# The map, the configuration, the data, the feature groups, and the helpers
+# for text in tooltips.
+_SCRIPT_OPEN = """
 (function () {
   var map = {{ this._parent.get_name() }};
   var cfg = {{ this.config }};
@@ -329,33 +347,15 @@ _PAGE_TEMPLATE = """
     });
   }
   function fmt(p) { return (p === null || p === undefined) ? "n/a" : Number(p).toFixed(3); }
-  function unitTip(meta) {
-    return function (layer) {
-      var p = layer.feature.properties, rows = [["unit", p.id]];
-      if (p.d !== undefined) rows.push(["street", p.d]);
-      if (p.ds !== undefined) rows.push(["district", p.ds]);
-      if (p.c !== undefined) rows.push(["condition", meta.labels[p.c] || p.c]);
-      rows.push(["eligible", p.e ? "yes" : "no"]);
-      if (p.p) { for (var j = 0; j < p.p.length; j++) rows.push(["P(" + meta.prob_labels[j] + ")", fmt(p.p[j])]); }
-      return '<table class="geoexp-tip">' + rows.map(function (r) {
-        return "<tr><td><b>" + esc(r[0]) + "</b></td><td>" + esc(r[1]) + "</td></tr>"; }).join("") + "</table>";
-    };
-  }
-  function probStyle(j, base) {
-    return function (f) {
-      var v = f.properties.p ? f.properties.p[j] : null;
-      if (v === null || v === undefined || v <= 0) {
-        return {color: cfg.never_colour, weight: 1, dashArray: "2 3", opacity: 0.9};
-      }
-      var k = Math.min(cfg.prob_colours.length - 1, Math.floor(v * cfg.prob_colours.length));
-      return {color: cfg.prob_colours[k], weight: base, opacity: 1};
-    };
-  }
+"""
+# Expands the compact unit record of _unit_dataset into GeoJSON; `i` is the
+# unit's position, which indexes the result page's per-unit values.
+_SCRIPT_EXPAND = """
   function expand(u) {
     var ox = u.origin[0], oy = u.origin[1], s = u.scale, feats = [];
     function dec(a) { return typeof a[0] === "number" ? [(a[0] + ox) * s, (a[1] + oy) * s] : a.map(dec); }
     for (var i = 0; i < u.id.length; i++) {
-      var p = {id: u.id[i], e: u.e[i]};
+      var p = {id: u.id[i], e: u.e[i], i: i};
       if (u.d) p.d = u.d[i];
       if (u.ds) p.ds = u.dsn[u.ds[i]];
       if (u.c) p.c = u.cn[u.c[i]];
@@ -368,18 +368,17 @@ _PAGE_TEMPLATE = """
   Object.keys(datasets).forEach(function (k) {
     if (datasets[k].compact) { datasets[k].data = expand(datasets[k].compact); delete datasets[k].compact; }
   });
-  var handle = {map: map, layers: {}, groups: {}, expected: {}, drawn: null, legend: null};
+"""
+# Builds each declared layer from its dataset, then the legend control.
+_SCRIPT_LAYERS = """
   cfg.layers.forEach(function (lay) {
-    var ds = datasets[lay.data], filter = null, style;
+    var ds = datasets[lay.data], filter = null;
     if (lay.kind === "condition") {
       filter = function (f) { return f.properties.c === lay.code; };
     } else if (lay.kind === "eligible") {
       filter = function (f) { return f.properties.e === 1; };
     }
-    style = lay.kind === "probability" ? probStyle(lay.index, lay.weight)
-      : function () { return lay.style; };
-    var opts = {filter: filter, style: style, interactive: lay.tip !== "none"};
-    var gj = L.geoJSON(ds.data, opts);
+    var gj = L.geoJSON(ds.data, {filter: filter, style: layerStyle(lay), interactive: lay.tip !== "none"});
     if (lay.tip === "unit") {
       gj.bindTooltip(unitTip(ds.meta), {sticky: true});
     } else if (lay.tip === "name") {
@@ -413,7 +412,61 @@ _PAGE_TEMPLATE = """
     }
   });
   handle.legend = new Legend().addTo(map);
+"""
+# Leaves the handle (window.geoexpMap) that the browser tests read.
+_SCRIPT_CLOSE = """
+  window.geoexpMap = handle;
+})();
+{% endmacro %}
+"""
 
+# The planning page's own script: the shared parts, probability styles, and
+# the zone export button.
+_PAGE_TEMPLATE = (
+    """
+{% macro header(this, kwargs) %}
+<style>
+.geoexp-legend { background: rgba(255,255,255,0.94); padding: 8px 10px; border-radius: 4px;
+  box-shadow: 0 1px 4px rgba(0,0,0,0.35); font: 12px/1.35 system-ui, sans-serif; color: #111;
+  max-width: 300px; max-height: 70vh; overflow-y: auto; }
+.geoexp-legend td { padding: 1px 4px 1px 0; vertical-align: middle; }
+.geoexp-save { background: #fff; border: 2px solid rgba(0,0,0,0.3); border-radius: 4px;
+  padding: 4px 6px; font: 12px system-ui, sans-serif; cursor: pointer; }"""
+    + _SHARED_CSS
+    + """</style>
+{% endmacro %}
+{% macro script(this, kwargs) %}"""
+    + _SCRIPT_OPEN
+    + """  function unitTip(meta) {
+    return function (layer) {
+      var p = layer.feature.properties, rows = [["unit", p.id]];
+      if (p.d !== undefined) rows.push(["street", p.d]);
+      if (p.ds !== undefined) rows.push(["district", p.ds]);
+      if (p.c !== undefined) rows.push(["condition", meta.labels[p.c] || p.c]);
+      rows.push(["eligible", p.e ? "yes" : "no"]);
+      if (p.p) { for (var j = 0; j < p.p.length; j++) rows.push(["P(" + meta.prob_labels[j] + ")", fmt(p.p[j])]); }
+      return '<table class="geoexp-tip">' + rows.map(function (r) {
+        return "<tr><td><b>" + esc(r[0]) + "</b></td><td>" + esc(r[1]) + "</td></tr>"; }).join("") + "</table>";
+    };
+  }
+  function probStyle(j, base) {
+    return function (f) {
+      var v = f.properties.p ? f.properties.p[j] : null;
+      if (v === null || v === undefined || v <= 0) {
+        return {color: cfg.never_colour, weight: 1, dashArray: "2 3", opacity: 0.9};
+      }
+      var k = Math.min(cfg.prob_colours.length - 1, Math.floor(v * cfg.prob_colours.length));
+      return {color: cfg.prob_colours[k], weight: base, opacity: 1};
+    };
+  }
+  function layerStyle(lay) {
+    return lay.kind === "probability" ? probStyle(lay.index, lay.weight)
+      : function () { return lay.style; };
+  }"""
+    + _SCRIPT_EXPAND
+    + """  var handle = {map: map, layers: {}, groups: {}, expected: {}, drawn: null, legend: null};"""
+    + _SCRIPT_LAYERS
+    + """
   var drawn = groups[cfg.draw_group];
   handle.drawn = drawn;
   handle.zones = function () {
@@ -443,11 +496,9 @@ _PAGE_TEMPLATE = """
       return b;
     }
   });
-  new Save().addTo(map);
-  window.geoexpMap = handle;
-})();
-{% endmacro %}
-"""
+  new Save().addTo(map);"""
+    + _SCRIPT_CLOSE
+)
 
 
 def _line_sample(colour: str, width: float, dash: str | None, opacity: float = 1.0) -> str:
@@ -518,6 +569,68 @@ def _add_districts(page: _Page, districts: gpd.GeoDataFrame | None, how: str) ->
         labels=True,
     )
     page.legend.append(_legend_row(_line_sample("#4d4d4d", 1.5, "12 4 2 4"), f"District ({how})"))
+
+
+def _add_rings(
+    page: _Page,
+    group,
+    rings: np.ndarray,
+    labels: Sequence[str],
+    *,
+    fill_opacity: float,
+    sample_opacity: float,
+) -> None:
+    """One switchable layer per band ring, in the band's colour, all in one group.
+
+    Each ring is its own dataset and layer, so the browser can style and
+    count it on its own; the legend gets one filled sample per ring.
+    """
+    web = _to_web(gpd.GeoSeries(rings, crs=page.frame.crs), 1.0 / _metres_per_unit(page.frame))
+    for k, label in enumerate(labels):
+        s = condition_style(f"spillover_{k + 1}")
+        page.datasets[f"ring_{k + 1}"] = {
+            "data": _feature_collection(web[k : k + 1], [{"name": label}]),
+            "meta": {},
+        }
+        page.layers.append(
+            {
+                "key": f"ring:{k + 1}",
+                "group": group.get_name(),
+                "data": f"ring_{k + 1}",
+                "expected": 1,
+                "kind": "plain",
+                "tip": "name",
+                "style": {
+                    "color": s.colour,
+                    "weight": 1,
+                    "opacity": 0.8,
+                    "fillColor": s.colour,
+                    "fillOpacity": fill_opacity,
+                    "dashArray": "3 3",
+                },
+            }
+        )
+        page.legend.append(_legend_row(_fill_sample(s.colour, sample_opacity, s.colour), label))
+
+
+def _add_eligible(page: _Page, n_eligible: int) -> None:
+    """The eligible units as a broad halo under the unit lines, with its legend row."""
+    page.declare(
+        "eligible",
+        "Eligible units",
+        "units",
+        True,
+        n_eligible,
+        kind="eligible",
+        style=_style_js("eligible"),
+        tip="unit",
+    )
+    halo = condition_style("eligible")
+    page.legend.append(
+        _legend_row(
+            _line_sample(halo.colour, halo.width, None, halo.opacity), f"eligible ({n_eligible:,})"
+        )
+    )
 
 
 def _unit_dataset(
@@ -669,7 +782,6 @@ def planning_map(
 
     title = tf.meta.get("name", spec.name)
     page = _Page(units, tiles, title)
-    per_metre = _metres_per_unit(units)
 
     eligible = assignment["eligible"].astype(bool).to_numpy()
     extra = pd.DataFrame(
@@ -699,49 +811,10 @@ def planning_map(
     treated = units.geometry[assignment["treated"].astype(bool).to_numpy()]
     if len(treated) and bands:
         rings = _rings(treated, bands)
-        ring_codes = [f"spillover_{k + 1}" for k in range(len(bands))]
-        ring_props = [
-            {"name": f"within {lo:g}-{hi:g} m of a treated unit"}
-            for lo, hi in zip([0.0, *bands[:-1]], bands, strict=True)
-        ]
-        page.datasets["rings"] = {
-            "data": _feature_collection(
-                _to_web(gpd.GeoSeries(rings, crs=units.crs), 1.0 / per_metre), ring_props
-            ),
-            "meta": {},
-        }
-        ring_fg_label = "Buffer rings " + ", ".join(f"{b:g}" for b in bands) + " m"
-        # One group with all rings; each ring styled by its band's colour.
-        fg = page.group(f"{ring_fg_label} ({len(rings)})", True)
-        for k, code in enumerate(ring_codes):
-            s = condition_style(code)
-            sub = {
-                "type": "FeatureCollection",
-                "features": [page.datasets["rings"]["data"]["features"][k]],
-            }
-            page.datasets[f"ring_{k + 1}"] = {"data": sub, "meta": {}}
-            page.layers.append(
-                {
-                    "key": f"ring:{k + 1}",
-                    "group": fg.get_name(),
-                    "data": f"ring_{k + 1}",
-                    "expected": 1,
-                    "kind": "plain",
-                    "tip": "name",
-                    "style": {
-                        "color": s.colour,
-                        "weight": 1,
-                        "opacity": 0.8,
-                        "fillColor": s.colour,
-                        "fillOpacity": 0.12,
-                        "dashArray": "3 3",
-                    },
-                }
-            )
-            page.legend.append(
-                _legend_row(_fill_sample(s.colour, 0.18, s.colour), ring_props[k]["name"])
-            )
-        del page.datasets["rings"]
+        group = page.group(
+            "Buffer rings " + ", ".join(f"{b:g}" for b in bands) + f" m ({len(rings)})", True
+        )
+        _add_rings(page, group, rings, _ring_labels(bands), fill_opacity=0.12, sample_opacity=0.18)
         if spec.exposure.metric != "euclidean":
             page.legend.append(
                 _legend_row(
@@ -750,23 +823,7 @@ def planning_map(
                 )
             )
 
-    n_eligible = int(eligible.sum())
-    page.declare(
-        "eligible",
-        "Eligible units",
-        "units",
-        True,
-        n_eligible,
-        kind="eligible",
-        style=_style_js("eligible"),
-        tip="unit",
-    )
-    halo = condition_style("eligible")
-    page.legend.append(
-        _legend_row(
-            _line_sample(halo.colour, halo.width, None, halo.opacity), f"eligible ({n_eligible:,})"
-        )
-    )
+    _add_eligible(page, int(eligible.sum()))
     counts = assignment["condition"].value_counts()
     # Draw pure controls first and treated last, so treated lines sit on top.
     for code in reversed(codes):
@@ -816,8 +873,7 @@ def planning_map(
     notes = [
         f"design {tf.spec_hash[:12]} · seed {tf.meta.get('seed', '?')} · drawn {drawn_at} · "
         f"{tf.meta.get('n_draws', '?')} Monte Carlo draws",
-        "Draw polygons or rectangles with the tools on the left, then 'Save zones' to write "
-        f"{ZONES_FILENAME}; list it under [eligible] exclude in the design spec.",
+        _DRAW_NOTE,
     ]
     return page.finish(draw_group, notes, CAUTION)
 
@@ -915,23 +971,7 @@ def drawing_map(
             _legend_row(_fill_sample("#000000", 0.12, "#000000"), f"zones in {Path(path).name}")
         )
     if mask.any():
-        page.declare(
-            "eligible",
-            "Eligible units",
-            "units",
-            True,
-            int(mask.sum()),
-            kind="eligible",
-            style=_style_js("eligible"),
-            tip="unit",
-        )
-        halo = condition_style("eligible")
-        page.legend.append(
-            _legend_row(
-                _line_sample(halo.colour, halo.width, None, halo.opacity),
-                f"eligible ({int(mask.sum()):,})",
-            )
-        )
+        _add_eligible(page, int(mask.sum()))
     page.declare(
         "units",
         "All units",
@@ -946,8 +986,7 @@ def drawing_map(
     draw_group = page.group("Drawn exclusion zones", True)
     notes = [
         f"{len(frame):,} units · {dt.date.today().isoformat()}",
-        "Draw polygons or rectangles with the tools on the left, then 'Save zones' to write "
-        f"{ZONES_FILENAME}; list it under [eligible] exclude in the design spec.",
+        _DRAW_NOTE,
     ]
     return page.finish(draw_group, notes, CAUTION)
 

@@ -18,7 +18,6 @@ which the legend and caption give with their intervals.
 from __future__ import annotations
 
 import html
-import json
 import os
 import textwrap
 from dataclasses import dataclass
@@ -34,18 +33,23 @@ from geoexp.cautions import CAUTION
 from geoexp.errors import GeometryError, InputError, describe_rows
 from geoexp.maps._palette import condition_order, condition_style
 from geoexp.maps._planning import (
+    _SCRIPT_CLOSE,
+    _SCRIPT_EXPAND,
+    _SCRIPT_LAYERS,
+    _SCRIPT_OPEN,
+    _SHARED_CSS,
     NEVER_COLOUR,
     _add_districts,
+    _add_rings,
     _districts_layer,
-    _feature_collection,
-    _fill_sample,
     _is_sample_city,
     _legend_row,
     _line_sample,
     _metres_per_unit,
     _Page,
+    _ring_labels,
     _rings,
-    _to_web,
+    _script_element,
     _unit_dataset,
 )
 
@@ -190,11 +194,6 @@ def _effect_words(effect) -> str:
     return f"{effect.estimate:+.2f} ({effect.ci_low:+.2f} to {effect.ci_high:+.2f})"
 
 
-def _ring_labels(bands: tuple[float, ...]) -> list[str]:
-    lows = (0.0, *bands[:-1])
-    return [f"within {lo:g}-{hi:g} m of a treated unit" for lo, hi in zip(lows, bands, strict=True)]
-
-
 def _treated_rings(data: _ResultData) -> np.ndarray | None:
     treated = data.units.geometry[data.per_unit["treated"].astype(bool).to_numpy()]
     if len(treated) == 0 or not data.bands:
@@ -285,7 +284,7 @@ def result_map_static(
     from matplotlib.lines import Line2D
     from matplotlib.patches import Patch
 
-    from geoexp.briefing._mapdecor import halo_text, north_arrow, scale_bar, true_north_angle
+    from geoexp.briefing._mapdecor import halo_text, scale_bar_and_north_arrow
 
     data = _gather(analysis, trial)
     if ax is None:
@@ -433,9 +432,9 @@ def result_map_static(
     colourbar.set_label("observed change per unit, post − pre (incidents)", fontsize=8)
     colourbar.ax.tick_params(labelsize=7)
 
-    scale_bar(ax, metres_per_unit=data.metres_per_unit)
-    cx, cy = (x0 + x1) / 2, (y0 + y1) / 2
-    north_arrow(ax, angle=true_north_angle(units.crs, cx, cy))
+    scale_bar_and_north_arrow(
+        ax, crs=units.crs, metres_per_unit=data.metres_per_unit, bounds=units.total_bounds
+    )
     ax.set_title(
         f"{data.title}: observed change per unit\n"
         + textwrap.fill(
@@ -579,37 +578,17 @@ def result_map(
 
     rings = _treated_rings(data)
     if rings is not None:
-        web = _to_web(gpd.GeoSeries(rings, crs=units.crs), 1.0 / data.metres_per_unit)
         group = page.group(
             "Spillover bands: " + ", ".join(f"{b:g}" for b in data.bands) + " m", True
         )
-        for k, label in enumerate(_ring_labels(data.bands)):
-            s = condition_style(f"spillover_{k + 1}")
-            page.datasets[f"ring_{k + 1}"] = {
-                "data": _feature_collection(web[k : k + 1], [{"name": label}]),
-                "meta": {},
-            }
-            page.layers.append(
-                {
-                    "key": f"ring:{k + 1}",
-                    "group": group.get_name(),
-                    "data": f"ring_{k + 1}",
-                    "expected": 1,
-                    "kind": "plain",
-                    "tip": "name",
-                    "style": {
-                        "color": s.colour,
-                        "weight": 1,
-                        "opacity": 0.8,
-                        "fillColor": s.colour,
-                        "fillOpacity": RING_FILL_OPACITY,
-                        "dashArray": "3 3",
-                    },
-                }
-            )
-            page.legend.append(
-                _legend_row(_fill_sample(s.colour, RING_FILL_OPACITY + 0.06, s.colour), label)
-            )
+        _add_rings(
+            page,
+            group,
+            rings,
+            _ring_labels(data.bands),
+            fill_opacity=RING_FILL_OPACITY,
+            sample_opacity=RING_FILL_OPACITY + 0.06,
+        )
 
     # Pure controls first and treated last, so treated units sit on top.
     for code in reversed(data.codes):
@@ -726,84 +705,51 @@ def _finish(page: _Page, data: _ResultData, analysis: Analysis, values: dict, li
 
 
 def _result_script(page: _Page, values: dict, legend_html: str):
-    """The page's own element (built lazily so folium loads only when a map is made)."""
-    from branca.element import MacroElement
-    from jinja2 import Template
-
-    from geoexp.maps._planning import _dump
-
-    class ResultScript(MacroElement):
-        _template = Template(_RESULT_TEMPLATE)
-
-        def __init__(self):
-            super().__init__()
-            self._name = "GeoexpResults"
-            cfg = {
-                "layers": page.layers,
-                "background": MAP_BACKGROUND if page.tiles is None else None,
-            }
-            # "</" cannot appear inside an inline script; JSON allows "<\/".
-            self.config = json.dumps(cfg, separators=(",", ":")).replace("</", "<\\/")
-            self.datasets = _dump(page.datasets).replace("</", "<\\/")
-            self.values = json.dumps(values, separators=(",", ":")).replace("</", "<\\/")
-            self.groups = sorted({lay["group"] for lay in page.layers})
-            self.legend_html = json.dumps(legend_html).replace("</", "<\\/")
-
-    return ResultScript()
+    """The result page's own element (built lazily so folium loads only when a map is made)."""
+    cfg = {"layers": page.layers, "background": MAP_BACKGROUND if page.tiles is None else None}
+    return _script_element(
+        "GeoexpResults",
+        _RESULT_TEMPLATE,
+        cfg,
+        page.datasets,
+        {lay["group"] for lay in page.layers},
+        legend_html,
+        values=values,
+    )
 
 
-# The result page's script: expands the shared unit data, builds each
-# declared layer, the tooltips and the legend, and leaves a handle
-# (window.geoexpMap) for the browser tests.
-_RESULT_TEMPLATE = """
+# The result page's script: the shared parts of the planning page's script
+# with tooltips that give each unit's pre, post and change, and unit lines
+# coloured by the change.
+_RESULT_TEMPLATE = (
+    """
 {% macro header(this, kwargs) %}
 <style>
 .geoexp-legend { background: rgba(255,255,255,0.95); padding: 8px 10px; border-radius: 4px;
   box-shadow: 0 1px 4px rgba(0,0,0,0.35); font: 12px/1.35 system-ui, sans-serif; color: #111;
   max-width: 340px; max-height: calc(100vh - 240px); overflow-y: auto; }
-.geoexp-legend h4 { margin: 0 0 2px 0; font-size: 13px; }
-.geoexp-legend .sub { color: #444; margin-bottom: 6px; }
-.geoexp-legend table { border-collapse: collapse; }
 .geoexp-legend td, .geoexp-legend th { padding: 1px 4px 1px 0; vertical-align: middle; }
 .geoexp-legend th { text-align: left; font-weight: 600; }
 .geoexp-legend .geoexp-est td { text-align: right; white-space: nowrap; }
 .geoexp-legend .geoexp-est td:first-child { text-align: left; white-space: normal; }
 .geoexp-legend .geoexp-section { font-weight: 600; margin-top: 6px; }
 .geoexp-legend ul { margin: 2px 0 0 0; padding-left: 16px; }
-.geoexp-legend .caution { margin-top: 6px; color: #333; font-size: 11px; border-top: 1px solid #bbb;
-  padding-top: 4px; }
-.geoexp-legend .note { font-size: 11px; color: #333; margin-top: 4px; }
 .geoexp-ramp { height: 10px; border: 1px solid #555; margin: 2px 0 0 0; }
 .geoexp-ramp-labels { display: flex; justify-content: space-between; font-size: 11px;
   margin-bottom: 4px; }
-.geoexp-district-label { background: transparent; border: none; box-shadow: none; color: #333;
-  font: 600 12px system-ui, sans-serif; text-shadow: 0 0 3px #fff, 0 0 3px #fff; }
-.geoexp-tip { font: 12px/1.35 system-ui, sans-serif; border-collapse: collapse; }
-.geoexp-tip td { padding: 0 6px 0 0; }
-.leaflet-control-layers { font: 12px/1.4 system-ui, sans-serif; }
-</style>
+.geoexp-tip { font: 12px/1.35 system-ui, sans-serif; border-collapse: collapse; }"""
+    + _SHARED_CSS
+    + """</style>
 <script type="application/json" id="geoexp-result-values">{{ this.values }}</script>
 {% endmacro %}
-{% macro script(this, kwargs) %}
-(function () {
-  var map = {{ this._parent.get_name() }};
-  var cfg = {{ this.config }};
-  var datasets = {{ this.datasets }};
-  var values = JSON.parse(document.getElementById("geoexp-result-values").textContent);
-  var groups = { {% for g in this.groups %}"{{ g }}": {{ g }}{{ "," if not loop.last }}{% endfor %} };
-  if (cfg.background) { map.getContainer().style.background = cfg.background; }
-
-  function esc(v) {
-    return String(v).replace(/[&<>"']/g, function (c) {
-      return {"&": "&amp;", "<": "&lt;", ">": "&gt;", '"': "&quot;", "'": "&#39;"}[c];
-    });
-  }
+{% macro script(this, kwargs) %}"""
+    + _SCRIPT_OPEN
+    + """  var values = JSON.parse(document.getElementById("geoexp-result-values").textContent);
   function num(v) { return (v === null || v === undefined) ? "n/a" : String(v); }
   function signed(v) {
     if (v === null || v === undefined) return "n/a";
     return (v > 0 ? "+" : "") + String(v);
   }
-  function fmt(p) { return (p === null || p === undefined) ? "n/a" : Number(p).toFixed(3); }
   function unitTip(meta) {
     return function (layer) {
       var p = layer.feature.properties, i = p.i, rows = [["unit", p.id]];
@@ -818,76 +764,19 @@ _RESULT_TEMPLATE = """
         return "<tr><td><b>" + esc(r[0]) + "</b></td><td>" + esc(r[1]) + "</td></tr>"; }).join("") + "</table>";
     };
   }
-  function expand(u) {
-    var ox = u.origin[0], oy = u.origin[1], s = u.scale, feats = [];
-    function dec(a) { return typeof a[0] === "number" ? [(a[0] + ox) * s, (a[1] + oy) * s] : a.map(dec); }
-    for (var i = 0; i < u.id.length; i++) {
-      var p = {id: u.id[i], e: u.e[i], i: i};
-      if (u.d) p.d = u.d[i];
-      if (u.ds) p.ds = u.dsn[u.ds[i]];
-      if (u.c) p.c = u.cn[u.c[i]];
-      if (u.p) p.p = u.p[i].map(function (v) { return v === null ? null : v / 1000; });
-      feats.push({type: "Feature", properties: p,
-                  geometry: {type: typeof u.t === "string" ? u.t : u.t[i], coordinates: dec(u.g[i])}});
-    }
-    return {type: "FeatureCollection", features: feats};
-  }
-  Object.keys(datasets).forEach(function (k) {
-    if (datasets[k].compact) { datasets[k].data = expand(datasets[k].compact); delete datasets[k].compact; }
-  });
-  var handle = {map: map, layers: {}, groups: {}, expected: {}, legend: null, values: values};
-  cfg.layers.forEach(function (lay) {
-    var ds = datasets[lay.data], filter = null, style;
-    if (lay.kind === "condition") {
-      filter = function (f) { return f.properties.c === lay.code; };
-    }
-    if (lay.coloured) {
-      style = function (f) {
-        var out = Object.assign({}, lay.style);
-        out.color = values.palette[values.colour[f.properties.i]];
-        return out;
-      };
-    } else {
-      style = function () { return lay.style; };
-    }
-    var gj = L.geoJSON(ds.data, {filter: filter, style: style, interactive: lay.tip !== "none"});
-    if (lay.tip === "unit") {
-      gj.bindTooltip(unitTip(ds.meta), {sticky: true});
-    } else if (lay.tip === "name") {
-      gj.eachLayer(function (l) { l.bindTooltip(esc(l.feature.properties.name), {sticky: true}); });
-    }
-    if (lay.labels) {
-      gj.eachLayer(function (l) {
-        var pt = l.feature.properties.label_at;
-        if (pt) {
-          L.tooltip({permanent: true, direction: "center", className: "geoexp-district-label",
-                     interactive: false})
-            .setLatLng([pt[1], pt[0]]).setContent(esc(l.feature.properties.name)).addTo(groups[lay.group]);
-        }
-      });
-    }
-    gj.addTo(groups[lay.group]);
-    handle.layers[lay.key] = gj;
-    handle.groups[lay.key] = groups[lay.group];
-    handle.expected[lay.key] = lay.expected;
-  });
-
-  var Legend = L.Control.extend({
-    options: {position: "bottomright"},
-    onAdd: function () {
-      var div = L.DomUtil.create("div", "geoexp-legend");
-      div.id = "geoexp-legend";
-      div.innerHTML = {{ this.legend_html }};
-      L.DomEvent.disableClickPropagation(div);
-      L.DomEvent.disableScrollPropagation(div);
-      return div;
-    }
-  });
-  handle.legend = new Legend().addTo(map);
-  window.geoexpMap = handle;
-})();
-{% endmacro %}
-"""
+  function layerStyle(lay) {
+    if (!lay.coloured) return function () { return lay.style; };
+    return function (f) {
+      var out = Object.assign({}, lay.style);
+      out.color = values.palette[values.colour[f.properties.i]];
+      return out;
+    };
+  }"""
+    + _SCRIPT_EXPAND
+    + """  var handle = {map: map, layers: {}, groups: {}, expected: {}, legend: null, values: values};"""
+    + _SCRIPT_LAYERS
+    + _SCRIPT_CLOSE
+)
 
 
 def save_result_map(
