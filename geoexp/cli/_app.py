@@ -58,9 +58,11 @@ def draw_command(
     from geoexp.design import Design, DesignSpec
     from geoexp.trialfile import export_assignment_csv, write_trial
 
-    design = Design.from_spec(DesignSpec.from_toml(spec))
+    loaded = DesignSpec.from_toml(spec)
+    # the number of Monte Carlo draws is part of the locked design (the analysis reuses it)
+    design = Design.from_spec(loaded if draws is None else loaded.replace(draws=draws))
     assignment = design.draw()
-    probs = design.probabilities(draws)
+    probs = design.probabilities()
     tf = write_trial(trial, design, assignment, probs, replace=replace, reason=reason)
     console.print(str(assignment))
     console.print(f"Trial file written and locked: {tf.path}")
