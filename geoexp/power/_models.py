@@ -20,7 +20,9 @@ OutcomeMeasure = Literal["change", "post"]
 
 def _frozen_effects(effects: Mapping[str, float], what: str) -> Mapping[str, float]:
     if not isinstance(effects, Mapping):
-        raise InputError(f"{what} must map condition names to numbers, got {type(effects).__name__}")
+        raise InputError(
+            f"{what} must map condition names to numbers, got {type(effects).__name__}"
+        )
     out = {}
     for key, value in effects.items():
         try:
@@ -78,7 +80,9 @@ def _per_unit(value, design: Design, what: str, *, smooth: bool) -> np.ndarray:
     if array.ndim == 0:
         return np.full(n, float(array))
     if array.shape != (n,):
-        raise InputError(f"{what} must give one value per unit of the layer ({n}), got {array.shape}")
+        raise InputError(
+            f"{what} must give one value per unit of the layer ({n}), got {array.shape}"
+        )
     return array
 
 
