@@ -9,7 +9,10 @@ The public objects, in the order the job uses them:
 - :class:`geoexp.exposure.ExposureMapping` and
   :func:`geoexp.exposure.exposure_probabilities` — conditions and their
   probabilities;
-- :mod:`geoexp.trialfile` — the trial's GeoPackage.
+- :func:`geoexp.power.simulate_power` — power by simulation, before the trial;
+- :mod:`geoexp.trialfile` — the trial's GeoPackage;
+- :func:`geoexp.outcomes.count_incidents` and :func:`geoexp.analysis.analyse` —
+  after the trial: counts, effects, randomization tests, verdicts.
 
 geoexp supports, but does not replace, ethics review, legal advice, community
 consultation and the judgement of the agencies involved; local law governs.
@@ -28,6 +31,9 @@ _PUBLIC = {
     "ExposureMapping": "geoexp.exposure",
     "exposure_probabilities": "geoexp.exposure",
     "TrialFile": "geoexp.trialfile",
+    "count_incidents": "geoexp.outcomes",
+    "analyse": "geoexp.analysis",
+    "simulate_power": "geoexp.power",
     "load_sample_region": "geoexp.sampleregion",
 }
 
