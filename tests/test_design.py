@@ -305,3 +305,15 @@ def test_distances_in_feet_are_converted_to_metres(region_path):
     data["exposure"]["bands_m"] = [1]
     with pytest.raises(DesignError, match="not both"):
         DesignSpec.from_dict(data)
+
+
+def test_check_reports_spatial_autocorrelation_of_the_baseline(region_path, units, graph):
+    design = make(region_path, units, graph)
+    check = check_design(design, n_draws=200)
+    moran = check.autocorrelation
+    assert moran is not None and moran.distance == 150.0
+    again = graph.moran(
+        units.frame["incidents_y1"].to_numpy(dtype=float), distance=150.0, permutations=9, rng=0
+    )
+    assert moran.statistic == pytest.approx(again.statistic)
+    assert "Moran's I" in str(check)

@@ -63,6 +63,7 @@ class DesignCheck:
     verdict: tuple[str, ...]
     notes: tuple[str, ...]
     probabilities: ExposureProbabilities
+    autocorrelation: object = None
 
     def __str__(self) -> str:
         fmt = {"float_format": lambda v: f"{v:.3f}"}
@@ -78,6 +79,8 @@ class DesignCheck:
             self.probability_summary.to_string(**fmt),
             "",
             str(self.positivity),
+            "",
+            str(self.autocorrelation) if self.autocorrelation is not None else "",
             "",
             "Balance (standardized differences; |d| > 0.1 is flagged):",
             self.balance.to_string(**fmt) if len(self.balance) else "  (no covariates)",
@@ -191,7 +194,16 @@ def check_design(
     positivity = probs.positivity()
 
     balance = _balance(design, probs, x, cols, assignment)
+    moran = _autocorrelation(design, x, cols)
     verdict = _verdict(design, probs, expected, positivity, balance)
+    if moran is not None and moran.p_value <= 0.05 and moran.statistic > 0:
+        verdict.insert(
+            len(verdict) - 1,
+            f"{cols[0]} is spatially autocorrelated (Moran's I = {moran.statistic:+.2f} among "
+            f"units within {moran.distance:g} m, p = {moran.p_value:.3f}): nearby units are "
+            "alike, so methods that treat units as independent would misstate the uncertainty; "
+            "geoexp's tests redraw the design itself and stay valid.",
+        )
     return DesignCheck(
         name=design.spec.name,
         spec_hash=design.spec.hash,
@@ -205,7 +217,20 @@ def check_design(
         verdict=tuple(verdict),
         notes=design.notes,
         probabilities=probs,
+        autocorrelation=moran,
     )
+
+
+def _autocorrelation(design: Design, x: np.ndarray, cols: list[str]):
+    """Moran's I of the first balance column within the first band, if it varies."""
+    if not cols or np.ptp(x[:, 0]) == 0:
+        return None
+    try:
+        return design.graph.moran(
+            x[:, 0], distance=design.mapping.band_edges[0], permutations=199, rng=design.stream(40)
+        )
+    except ValueError:
+        return None
 
 
 def _balance(design, probs, x, cols, assignment) -> pd.DataFrame:
