@@ -45,6 +45,32 @@ def band_codes(g_dist: np.ndarray, edges: np.ndarray) -> np.ndarray:
     return (np.searchsorted(edges, g_dist, side="left") + 1).astype(np.int8)
 
 
+def _spread_impl(start, stop, d_indices, g_indptr, g_indices, g_code, best, touched, pc):
+    """One draw: the smallest band code reached at each untreated neighbour of its treated units.
+
+    Treated units are marked with code 0, which no band reaches below. Units
+    reached for the first time are listed in ``touched``; returns how many.
+    """
+    for a in range(start, stop):
+        best[d_indices[a]] = 0
+    n_touched = 0
+    for a in range(start, stop):
+        t_unit = d_indices[a]
+        for b in range(g_indptr[t_unit], g_indptr[t_unit + 1]):
+            j = g_indices[b]
+            c = g_code[b]
+            if c < best[j]:
+                if best[j] == pc:
+                    touched[n_touched] = j
+                    n_touched += 1
+                best[j] = c
+    return n_touched
+
+
+if HAVE_NUMBA:
+    _spread = numba.njit(cache=True, inline="always")(_spread_impl)
+
+
 def _scatter_numba_impl(
     d_indptr, d_indices, g_indptr, g_indices, g_code, counts_t, cov, cov_sums, cond_counts
 ):
@@ -65,20 +91,9 @@ def _scatter_numba_impl(
         r1 = n_draws * (t + 1) // n_threads
         for r in range(r0, r1):
             start, stop = d_indptr[r], d_indptr[r + 1]
-            # treated units are marked with code 0, which no band reaches below
-            for a in range(start, stop):
-                best[d_indices[a]] = 0
-            n_touched = 0
-            for a in range(start, stop):
-                t_unit = d_indices[a]
-                for b in range(g_indptr[t_unit], g_indptr[t_unit + 1]):
-                    j = g_indices[b]
-                    c = g_code[b]
-                    if c < best[j]:
-                        if best[j] == pc:
-                            touched[n_touched] = j
-                            n_touched += 1
-                        best[j] = c
+            n_touched = _spread(
+                start, stop, d_indices, g_indptr, g_indices, g_code, best, touched, pc
+            )
             for a in range(start, stop):
                 t_unit = d_indices[a]
                 counts[t_unit, 0] += 1
@@ -342,19 +357,9 @@ def _bits_numba_impl(
             w = g // 64
             bit = np.uint64(1) << np.uint64(g % 64)
             start, stop = d_indptr[r], d_indptr[r + 1]
-            for a in range(start, stop):
-                best[d_indices[a]] = 0
-            n_touched = 0
-            for a in range(start, stop):
-                t_unit = d_indices[a]
-                for b in range(g_indptr[t_unit], g_indptr[t_unit + 1]):
-                    j = g_indices[b]
-                    c = g_code[b]
-                    if c < best[j]:
-                        if best[j] == pc:
-                            touched[n_touched] = j
-                            n_touched += 1
-                        best[j] = c
+            n_touched = _spread(
+                start, stop, d_indices, g_indptr, g_indices, g_code, best, touched, pc
+            )
             for a in range(start, stop):
                 t_unit = d_indices[a]
                 col = column[t_unit]
