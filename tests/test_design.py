@@ -300,8 +300,13 @@ def test_distances_in_feet_are_converted_to_metres(region_path):
     assert spec.exposure.bands_m == pytest.approx((152.4, 304.8))
     assert spec.assignment.gap_m == pytest.approx(152.4)
     metres = spec_dict(region_path, gap_m=152.4)
-    metres["exposure"] = {"bands_m": [152.4, 304.8]}
+    metres["exposure"] = {"bands_m": [152.4, 304.8], "unit": "ft"}
     assert DesignSpec.from_dict(metres).hash == spec.hash
+    # outputs speak the unit the spec was written in
+    from geoexp.exposure import ExposureMapping
+
+    mapping = ExposureMapping(spec.exposure.bands_m, unit=spec.exposure.unit)
+    assert mapping.labels[1:3] == ("spillover 0-500 ft", "spillover 500-1000 ft")
     data["exposure"]["bands_m"] = [1]
     with pytest.raises(DesignError, match="not both"):
         DesignSpec.from_dict(data)

@@ -44,7 +44,8 @@ def distance_decay_plot(analysis: Analysis, ax=None):
         import matplotlib.pyplot as plt  # interactive use only; reports draw on plain Figures
 
         _, ax = plt.subplots(figsize=(6.4, 3.6))
-    edges = (0.0, *analysis.band_edges)
+    scale = 1.0 if analysis.distance_unit == "m" else 1 / 0.3048
+    edges = (0.0, *(e * scale for e in analysis.band_edges))
     mids = [(a + b) / 2 for a, b in zip(edges[:-1], edges[1:], strict=True)]
     spill = analysis.effects[1:]
     est = np.array([e.estimate for e in spill])
@@ -72,7 +73,7 @@ def distance_decay_plot(analysis: Analysis, ax=None):
         capsize=4,
         label="treated vs pure control",
     )
-    ax.set_xlabel("distance to the nearest treated unit (m)")
+    ax.set_xlabel(f"distance to the nearest treated unit ({analysis.distance_unit})")
     ax.set_ylabel("effect (incidents per unit)")
     ax.set_title("Effect by distance from treated units")
     ax.legend(loc="best", fontsize=8)
@@ -166,7 +167,7 @@ def write_report(
         "estimator": f"{analysis.estimator} (Horvitz–Thompson twin in the results layer)",
         "probability draws": str(analysis.n_draws_probabilities),
         "test draws": str(analysis.n_draws_tests),
-        "distances": "metres",
+        "distances": "metres" if analysis.distance_unit == "m" else "feet (international)",
     }
     css = (
         "body{font-family:sans-serif;max-width:60em;margin:2em auto;line-height:1.45;color:#222}"

@@ -64,6 +64,7 @@ class Analysis:
     notes: tuple[str, ...] = field(default=())
     band_edges: tuple[float, ...] = ()
     saturation: pd.DataFrame | None = None
+    distance_unit: str = "m"
 
     def to_frame(self) -> pd.DataFrame:
         """One row per contrast: estimates, intervals, p-values and verdicts."""
@@ -319,6 +320,7 @@ def analyse(
         notes=tuple(notes),
         band_edges=mapping.band_edges,
         saturation=_saturation_table(design, assignment, y),
+        distance_unit=mapping.unit,
     )
 
 

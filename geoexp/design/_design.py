@@ -85,7 +85,9 @@ class Design:
             raise InfeasibleDesignError(
                 f"no unit of {units.source!r} is eligible after the rules in [eligible]"
             )
-        mapping = ExposureMapping(tuple(spec.exposure.bands_m), spec.exposure.metric)
+        mapping = ExposureMapping(
+            tuple(spec.exposure.bands_m), spec.exposure.metric, spec.exposure.unit
+        )
         gap = spec.assignment.gap_m or 0.0
         reach = max(mapping.reach, gap)
         if graph is None:

@@ -82,6 +82,8 @@ class ExposureSpec:
     bands_m: tuple[float, ...] = (150.0, 300.0)
     metric: Literal["euclidean", "network"] = "euclidean"
     snap_tolerance_m: float = 1.0
+    # the unit outputs show distances in: "ft" when the spec gave bands_ft
+    unit: Literal["m", "ft"] = "m"
 
 
 @dataclass(frozen=True)
@@ -267,6 +269,8 @@ def _feet_to_metres(data: dict[str, Any], source: str) -> dict[str, Any]:
             )
         except (TypeError, ValueError):
             raise DesignError(f"{source}: [{table}] {key}_ft must be numbers of feet") from None
+        if table == "exposure":
+            section.setdefault("unit", "ft")
         data[table] = section
     return data
 
@@ -368,6 +372,8 @@ def _validate(spec: DesignSpec) -> None:
         if a.method == "saturation":
             raise DesignError("[rerandomize] cannot be combined with a saturation design")
     x = spec.exposure
+    if x.unit not in ("m", "ft"):
+        raise DesignError(f"[exposure] unit must be 'm' or 'ft', got {x.unit!r}")
     if x.metric not in ("euclidean", "network"):
         raise DesignError(f"[exposure] metric must be 'euclidean' or 'network', got {x.metric!r}")
     bands = list(x.bands_m)

@@ -29,10 +29,14 @@ class ExposureMapping:
     metric
         Distance the bands are measured in: straight line between geometries
         or along the street network.
+    unit
+        Unit the labels show the band edges in: ``"m"`` (metres) or ``"ft"``
+        (international feet). The edges themselves are always metres.
     """
 
     band_edges: tuple[float, ...] = (150.0, 300.0)
     metric: str = "euclidean"
+    unit: str = "m"
 
     def __post_init__(self) -> None:
         edges = tuple(float(e) for e in self.band_edges)
@@ -44,6 +48,8 @@ class ExposureMapping:
             raise InputError(f"spillover band edges must increase strictly, got {list(edges)}")
         if self.metric not in ("euclidean", "network"):
             raise InputError(f"metric must be 'euclidean' or 'network', got {self.metric!r}")
+        if self.unit not in ("m", "ft"):
+            raise InputError(f"unit must be 'm' or 'ft', got {self.unit!r}")
         object.__setattr__(self, "band_edges", edges)
 
     @classmethod
@@ -79,9 +85,11 @@ class ExposureMapping:
     @property
     def labels(self) -> tuple[str, ...]:
         """Human labels of the conditions, stating their distances in metres."""
-        lows = (0.0, *self.band_edges[:-1])
+        scale = 1.0 if self.unit == "m" else 1 / 0.3048
+        edges = tuple(round(e * scale, 2) for e in self.band_edges)
+        lows = (0.0, *edges[:-1])
         bands = tuple(
-            f"spillover {lo:g}-{hi:g} m" for lo, hi in zip(lows, self.band_edges, strict=True)
+            f"spillover {lo:g}-{hi:g} {self.unit}" for lo, hi in zip(lows, edges, strict=True)
         )
         return ("treated", *bands, "pure control")
 
