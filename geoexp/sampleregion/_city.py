@@ -893,6 +893,15 @@ def _incidents(
     # only a mild year-to-year wobble (Gamma(25) multipliers, CV 0.2), so hot
     # spots are stable across the two years.
     risk = rng.gamma(0.17, 1.0, len(geom)) * (length / length.mean()) ** 0.7 * _USE_RISK[use]
+    # Hot spots cluster around a few invented activity centres (a smooth field of
+    # Gaussian bumps, about 500 m across), so nearby segments are alike, as in
+    # real cities: risk is up to e^1.5 (about 4.5) times higher at a centre, fading
+    # with distance. Top 5% of segments then hold about 54% of incidents.
+    mid = shapely.get_coordinates(shapely.line_interpolate_point(geom, 0.5, normalized=True))
+    lo, hi = mid.min(axis=0), mid.max(axis=0)
+    centres = lo + rng.uniform(0.1, 0.9, (6, 2)) * (hi - lo)
+    d2 = ((mid[:, None, :] - centres[None, :, :]) ** 2).sum(axis=2)
+    risk *= np.exp(1.5 * np.exp(-d2 / (2 * 500.0**2)).sum(axis=1))
     risk *= per_year / risk.sum()
     counts = [rng.poisson(risk * rng.gamma(25.0, 1 / 25.0, len(geom))) for _ in range(2)]
 
