@@ -194,7 +194,10 @@ def write_report(
         "<p>Effects are in incidents per unit; a reduction is negative, and more incidents "
         "next to treated units (displacement) is positive. Rejecting “no effect at all” is not "
         "evidence of spillover; the spillover verdicts rest on the conditional test of no "
-        "spillover.</p>",
+        "spillover, which is exact but uses only the focal units that are never treated. The "
+        "interval by test inversion uses every unit in the band under a constant-effect model, "
+        "and the conservative interval uses the Aronow–Samii variance bound, so the three can "
+        "disagree near the edge of significance.</p>",
         "<h2>Design</h2>",
         html_table(pd.DataFrame({"value": design_rows})),
         "<h2>Estimates</h2>",
