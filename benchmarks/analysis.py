@@ -20,8 +20,11 @@ Two cases, each run in its own subprocess so that its peak resident memory
 The analysis (estimates, Fisher tests, conditional spillover tests and
 test-inversion intervals, ``--draws`` draws each) is split into its parts by
 timing the functions :func:`geoexp.analysis.analyse` calls. Memory is the peak
-RSS of the subprocess up to the end of each stage (it never decreases). The
-machine is shared, so repeat a run before reading much into one number.
+RSS of the subprocess up to the end of each stage (it never decreases); for
+the parts of the analysis, up to the end of the part's first call. ``--results``
+keeps every column of the result table at full precision, to check that a
+change left the results alone. The machine is shared, so repeat a run before
+reading much into one number.
 """
 
 from __future__ import annotations
@@ -40,6 +43,7 @@ import numpy as np
 import pandas as pd
 
 N_TREATED = 2_000
+_RESULTS_PATH: str | None = None
 EFFECTS = {"treated": 0.8, "spillover_1": 1.1}
 
 
@@ -53,18 +57,24 @@ class Stages:
     def __init__(self) -> None:
         self.start = time.perf_counter()
 
-    def done(self, name: str, seconds: float | None = None) -> None:
+    def done(self, name: str, seconds: float | None = None, peak_mb: float | None = None) -> None:
         now = time.perf_counter()
         took = now - self.start if seconds is None else seconds
-        print(json.dumps({"stage": name, "seconds": took, "peak_mb": _peak_mb()}), flush=True)
+        peak = _peak_mb() if peak_mb is None else peak_mb
+        print(json.dumps({"stage": name, "seconds": took, "peak_mb": peak}), flush=True)
         self.start = now
 
 
-def _instrument_analysis() -> dict[str, float]:
-    """Wrap the parts ``analyse`` calls so their seconds add up per part."""
+def _instrument_analysis() -> tuple[dict[str, float], dict[str, float]]:
+    """Wrap the parts ``analyse`` calls so their seconds add up per part.
+
+    Also returns the peak RSS at the end of each part's first call: the parts
+    first run in the order listed, so a jump there belongs to that part.
+    """
     import geoexp.analysis._run as run
 
     spent: dict[str, float] = defaultdict(float)
+    peak: dict[str, float] = {}
     parts = {
         "condition_bits": "joint-probability bits (condition_bits)",
         "_near_pairs": "near pairs (graph to the dependence radius)",
@@ -82,22 +92,27 @@ def _instrument_analysis() -> dict[str, float]:
                 return _f(*args, **kwargs)
             finally:
                 spent[_label] += time.perf_counter() - t0
+                peak.setdefault(_label, _peak_mb())
 
         setattr(run, attr, wrapper)
-    return spent
+    return spent, peak
 
 
 def _analyse(trial_path: Path, outcomes, n_draws: int, stages: Stages) -> None:
     from geoexp.analysis import analyse
 
-    spent = _instrument_analysis()
+    spent, peak = _instrument_analysis()
     t0 = time.perf_counter()
     result = analyse(trial_path, outcomes, n_draws=n_draws)
     total = time.perf_counter() - t0
     for label, seconds in spent.items():
-        stages.done(f"  {label}", seconds)
+        stages.done(f"  {label}", seconds, peak[label])
     stages.done("analysis (total)", total)
-    frame = result.to_frame()[["estimate", "std_error", "p_value", "p_value_no_spillover"]]
+    frame = result.to_frame()
+    if _RESULTS_PATH is not None:
+        # every column at full precision, to compare runs before and after a change
+        frame.to_pickle(_RESULTS_PATH)
+    frame = frame[["estimate", "std_error", "p_value", "p_value_no_spillover"]]
     print(json.dumps({"result": frame.reset_index().to_dict(orient="records")}), flush=True)
 
 
@@ -207,11 +222,13 @@ def child(case: str, n_units: int, n_draws: int) -> None:
             city_case(Path(tmp), n_units, n_draws)
 
 
-def parent(case: str, n_units: int, n_draws: int) -> None:
+def parent(case: str, n_units: int, n_draws: int, results: str | None = None) -> None:
     title = "sample region" if case == "region" else f"generated city, {n_units:,} segments"
     print(f"\n== {title}: {n_draws:,} draws per test ==")
     print(f"{'stage':<58}{'seconds':>9}{'peak RSS MB':>13}")
     cmd = [sys.executable, __file__, "--child", case, "--n", str(n_units), "--draws", str(n_draws)]
+    if results is not None:
+        cmd += ["--results", f"{results}.{case}.pkl"]
     start = time.perf_counter()
     proc = subprocess.Popen(cmd, stdout=subprocess.PIPE, text=True)
     for line in proc.stdout:
@@ -237,13 +254,19 @@ def main() -> None:
     parser.add_argument("--case", choices=["region", "city", "both"], default="both")
     parser.add_argument("--n", type=int, default=100_000, help="segments of the generated city")
     parser.add_argument("--draws", type=int, default=2_000, help="draws per test")
+    parser.add_argument(
+        "--results",
+        help="write each case's full result table (pickle) to RESULTS.<case>.pkl",
+    )
     parser.add_argument("--child", choices=["region", "city"], help=argparse.SUPPRESS)
     args = parser.parse_args()
     if args.child:
+        global _RESULTS_PATH
+        _RESULTS_PATH = args.results
         child(args.child, args.n, args.draws)
         return
     for case in ("region", "city") if args.case == "both" else (args.case,):
-        parent(case, args.n, args.draws)
+        parent(case, args.n, args.draws, args.results)
 
 
 if __name__ == "__main__":

@@ -206,3 +206,51 @@ def test_saturation_total_is_direct_plus_spillover():
     # and each is a plain difference of group means
     s = level == 1
     assert table.loc[0.3, "direct"] == pytest.approx(y[s & treated].mean() - y[s & ~treated].mean())
+
+
+@pytest.mark.parametrize("k", [0, 1, 2])
+def test_near_pairs_in_blocks_give_the_same_variance(monkeypatch, k):
+    conds, po = path_enumeration()
+    bits = bits_of(conds, 4)
+    pi = bits.probabilities()
+    # units at most two apart on the path, both orders: a strict subset of all pairs
+    a, b = np.array([(i, j) for i in range(6) for j in range(6) if 0 < abs(i - j) <= 2]).T
+    monkeypatch.setattr(_horvitz, "DENSE_LIMIT", 0)
+    checked = 0
+    for d in conds[::2]:
+        y = po[np.arange(6), d]
+        for estimator in ("hajek", "horvitz-thompson"):
+            monkeypatch.setattr(_horvitz, "NEAR_BLOCK", 1 << 20)
+            whole = estimate_contrast(
+                y, d, pi, k, 3, bits, labels=LABELS, estimator=estimator, near=(a, b)
+            )
+            for block in (1, 3, 7):
+                monkeypatch.setattr(_horvitz, "NEAR_BLOCK", block)
+                part = estimate_contrast(
+                    y, d, pi, k, 3, bits, labels=LABELS, estimator=estimator, near=(a, b)
+                )
+                # the pair terms are summed once in the same order: the same float, not just close
+                assert part.std_error == whole.std_error
+                checked += part.std_error > 0
+    assert checked
+
+
+def test_near_pairs_in_blocks_match_the_textbook_variance(monkeypatch):
+    # CHECKS.md section 1: with every pair near, the blocked sums are the pair-by-pair formula
+    conds, po = path_enumeration()
+    bits = bits_of(conds, 4)
+    pi = bits.probabilities()
+    indicator = np.stack([(conds == c) for c in range(4)]).astype(float)
+
+    def joint(p, q):
+        return indicator[p].T @ indicator[q] / conds.shape[0]
+
+    a, b = np.array([(i, j) for i in range(6) for j in range(6) if i != j]).T
+    monkeypatch.setattr(_horvitz, "DENSE_LIMIT", 0)
+    monkeypatch.setattr(_horvitz, "NEAR_BLOCK", 4)
+    for d in conds:
+        y = po[np.arange(6), d]
+        e = estimate_contrast(
+            y, d, pi, 0, 3, bits, labels=LABELS, estimator="horvitz-thompson", near=(a, b)
+        )
+        assert e.std_error**2 == pytest.approx(textbook_variance(0, 3, y, d, pi, joint), rel=1e-10)

@@ -269,3 +269,56 @@ def test_pair_popcounts_engines_agree_exactly():
     p = 17
     expected = sum(int(x).bit_count() for x in (a[first[p]] & b[second[p]]))
     assert fast[p] == expected
+
+
+@pytest.mark.parametrize("engine", ["numpy", "numba"])
+def test_condition_bits_in_odd_chunks_match_distances(engine):
+    if engine == "numba" and not HAVE_NUMBA:
+        pytest.skip("numba engine needs numba")
+    from geoexp.exposure._kernels import band_codes, condition_bits_chunk
+    from geoexp.exposure._probabilities import reach_csr
+
+    rng = np.random.default_rng(8)
+    n = 120
+    points = rng.uniform(0, 1500, size=(n, 2))
+    graph = point_graph(points, 300.0)
+    mapping = ExposureMapping((100.0, 200.0, 300.0))
+    g_indptr, g_indices, g_dist = reach_csr(graph, mapping)
+    g_code = band_codes(g_dist, np.asarray(mapping.band_edges))
+    n_draws = 150
+    treated = [
+        np.sort(rng.choice(n, size=rng.integers(0, 6), replace=False)) for _ in range(n_draws)
+    ]
+    indptr = np.concatenate(([0], np.cumsum([t.size for t in treated])))
+    indices = np.concatenate(treated)
+    held = rng.permutation(n)[:70]  # held rows in no particular order
+    column = np.full(n, -1)
+    column[held] = np.arange(held.size)
+    n_cond = mapping.n_conditions
+    words = np.zeros((n_cond, 3, held.size), dtype=np.uint64)
+    # chunks that start inside 32- and 64-draw words, one of a single draw
+    for lo, hi in [(0, 5), (5, 40), (40, 41), (41, 100), (100, 150)]:
+        condition_bits_chunk(
+            indptr[lo : hi + 1] - indptr[lo],
+            indices[indptr[lo] : indptr[hi]],
+            g_indptr,
+            g_indices,
+            g_code,
+            column,
+            lo,
+            words,
+            engine=engine,
+        )
+    # reference from scipy's cdist: treated, else the band (0-100, 100-200, 200-300 m) of the
+    # nearest treated unit; pure-control bits are the caller's (complement), so none here
+    dist = cdist(points, points)
+    expected = np.zeros_like(words)
+    for r, t in enumerate(treated):
+        nearest = dist[:, t].min(axis=1) if t.size else np.full(n, np.inf)
+        cond = 1 + (nearest > 100) + (nearest > 200) + (nearest > 300)
+        cond[t] = 0
+        for row, unit in enumerate(held):
+            if cond[unit] < n_cond - 1:
+                expected[cond[unit], r // 64, row] |= np.uint64(1) << np.uint64(r % 64)
+    assert expected[1:3].any()  # the bands are reached, so the check has teeth
+    np.testing.assert_array_equal(words, expected)

@@ -122,11 +122,17 @@ class Analysis:
 
 
 def _near_pairs(design: Design) -> tuple[np.ndarray, np.ndarray]:
-    """Pairs within the dependence radius: conditions of units farther apart share no treated unit."""
+    """Pairs within the dependence radius: conditions of units farther apart share no treated unit.
+
+    Built once per analysis and shared by every contrast and estimator. Positions
+    are int32 (the graph's own index type), so tens of millions of pairs stay in
+    a few hundred megabytes; the distances are not kept.
+    """
     radius = 2 * design.mapping.reach + (design.spec.assignment.gap_m or 0.0)
     graph = ExposureGraph.from_units(design.units, radius, metric=design.mapping.metric)
-    rows = np.repeat(np.arange(graph.n), np.diff(graph.indptr))
-    return rows, graph.indices.astype(np.int64)
+    index_type = np.int32 if graph.n < 2**31 else np.int64
+    rows = np.repeat(np.arange(graph.n, dtype=index_type), np.diff(graph.indptr))
+    return rows, graph.indices.astype(index_type, copy=False)
 
 
 def analyse(

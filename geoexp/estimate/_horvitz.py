@@ -18,6 +18,8 @@ Estimator = Literal["hajek", "horvitz-thompson"]
 # Above this many entries in a dense block of joint probabilities, the estimator
 # uses only the pairs of units within the dependence radius (see variance_terms).
 DENSE_LIMIT = 40_000_000
+# Near pairs handled at once by the pairwise sums (memory: a few arrays of this length).
+NEAR_BLOCK = 1 << 20
 
 
 @dataclass(frozen=True)
@@ -148,52 +150,102 @@ def variance_terms(
     pos_k[sk] = np.arange(sk.size)
     pos_l = np.full(n, -1)
     pos_l[sl] = np.arange(sl.size)
+    # The pairs go through in blocks (memory: a few arrays of one block). Counts add up
+    # exactly; the pair terms are kept in order and summed once, so every sum is the very
+    # same floating-point sum as over all pairs at once.
+    terms = np.empty(a.size, dtype=np.float64)
     for s, p, c, pos in ((sk, pk, k, pos_k), (sl, pl, l, pos_l)):
         if not s.size:
             continue
-        # one popcount pass over the pairs leaving s serves both sums below
-        sel = pos[a] >= 0
-        ia, ib = a[sel], b[sel]
-        jz = bits.joint_pairs(c, rows[ia], c, rows[ib])
-        zero = np.bincount(ia[jz == 0], minlength=n)[s]
-        both = pos[ib] >= 0
-        ia, ib, jj = ia[both], ib[both], jz[both]
-        prod = p[ia] * p[ib]
-        with np.errstate(invalid="ignore", divide="ignore"):
-            term = np.where(jj > 0, (jj - prod) / jj, 0.0) * (y[ia] / p[ia]) * (y[ib] / p[ib])
-        young = float((y[s] ** 2 / p[s] * zero).sum())
+        zero = np.zeros(n, dtype=np.int64)
+        filled = 0
+        for ba, bb in _blocks(a, b):
+            # one popcount pass over the pairs leaving s serves both sums below
+            sel = pos[ba] >= 0
+            ia, ib = ba[sel], bb[sel]
+            jz = bits.joint_pairs(c, rows[ia], c, rows[ib])
+            zero += np.bincount(ia[jz == 0], minlength=n)
+            both = pos[ib] >= 0
+            ia, ib, jj = ia[both], ib[both], jz[both]
+            prod = p[ia] * p[ib]
+            with np.errstate(invalid="ignore", divide="ignore"):
+                term = np.where(jj > 0, (jj - prod) / jj, 0.0) * (y[ia] / p[ia]) * (y[ib] / p[ib])
+            terms[filled : filled + term.size] = term
+            filled += term.size
+        young = float((y[s] ** 2 / p[s] * zero[s]).sum())
         if c == k:
-            vk += float(term.sum()) + young
+            vk += float(terms[:filled].sum()) + young
         else:
-            vl += float(term.sum()) + young
+            vl += float(terms[:filled].sum()) + young
     cov = 0.0
     # pi_ij(k, l) once for every near pair with i in k or j in l; the sums take subsets
-    in_k, in_l = pos_k[a] >= 0, pos_l[b] >= 0
-    either = np.flatnonzero(in_k | in_l)
-    j_either = bits.joint_pairs(k, rows[a[either]], l, rows[b[either]])
-    sel = in_k[either] & in_l[either]
-    ia, ib = a[either[sel]], b[either[sel]]
-    jkl = j_either[sel]
-    with np.errstate(invalid="ignore", divide="ignore"):
-        cov += float(
-            (
+    zk = np.zeros(n, dtype=np.int64)
+    zl = np.zeros(n, dtype=np.int64)
+    filled = 0
+    for ba, bb in _blocks(a, b):
+        in_k, in_l = pos_k[ba] >= 0, pos_l[bb] >= 0
+        either = np.flatnonzero(in_k | in_l)
+        j_either = bits.joint_pairs(k, rows[ba[either]], l, rows[bb[either]])
+        sel = in_k[either] & in_l[either]
+        ia, ib = ba[either[sel]], bb[either[sel]]
+        jkl = j_either[sel]
+        with np.errstate(invalid="ignore", divide="ignore"):
+            term = (
                 np.where(jkl > 0, (jkl - pk[ia] * pl[ib]) / jkl, 0.0)
                 * y[ia]
                 / pk[ia]
                 * y[ib]
                 / pl[ib]
-            ).sum()
-        )
-    # zero joint probabilities: near pairs, plus the unit with itself (pi_ii(k, l) = 0)
-    sel = in_k[either]
-    z = j_either[sel] == 0
-    zk = np.bincount(a[either[sel]][z], minlength=n)[sk] + 1
+            )
+        terms[filled : filled + term.size] = term
+        filled += term.size
+        # zero joint probabilities of near pairs
+        sel = in_k[either]
+        zk += np.bincount(ba[either[sel]][j_either[sel] == 0], minlength=n)
+        sel = in_l[either]
+        zl += np.bincount(bb[either[sel]][j_either[sel] == 0], minlength=n)
+    cov += float(terms[:filled].sum())
+    del terms
+    # plus the unit with itself (pi_ii(k, l) = 0)
+    zk = zk[sk] + 1
     cov -= float((y[sk] ** 2 / (2 * pk[sk]) * zk).sum())
-    sel = in_l[either]
-    z = j_either[sel] == 0
-    zl = np.bincount(b[either[sel]][z], minlength=n)[sl] + 1
+    zl = zl[sl] + 1
     cov -= float((y[sl] ** 2 / (2 * pl[sl]) * zl).sum())
     return vk, vl, cov, joint
+
+
+def _blocks(a: np.ndarray, b: np.ndarray):
+    """The pairs (a, b) in consecutive blocks of :data:`NEAR_BLOCK`."""
+    for s in range(0, a.size, NEAR_BLOCK):
+        yield a[s : s + NEAR_BLOCK], b[s : s + NEAR_BLOCK]
+
+
+def _near_in_population(
+    near: tuple[np.ndarray, np.ndarray], pop: np.ndarray, n_units: int
+) -> tuple[np.ndarray, np.ndarray]:
+    """The near pairs with both units in ``pop``, as positions into ``pop`` (int32 when it fits).
+
+    Two passes over blocks of pairs (count, then fill), so that the only
+    full-length arrays are the result.
+    """
+    dtype = np.int32 if n_units < 2**31 else np.int64
+    where = np.full(n_units, -1, dtype=dtype)
+    where[pop] = np.arange(pop.size, dtype=dtype)
+    first, second = near
+    total = 0
+    for ba, bb in _blocks(first, second):
+        total += int(np.count_nonzero((where[ba] >= 0) & (where[bb] >= 0)))
+    out_a = np.empty(total, dtype=dtype)
+    out_b = np.empty(total, dtype=dtype)
+    filled = 0
+    for ba, bb in _blocks(first, second):
+        wa, wb = where[ba], where[bb]
+        keep = (wa >= 0) & (wb >= 0)
+        m = int(np.count_nonzero(keep))
+        out_a[filled : filled + m] = wa[keep]
+        out_b[filled : filled + m] = wb[keep]
+        filled += m
+    return out_a, out_b
 
 
 def estimate_contrast(
@@ -269,11 +321,7 @@ def estimate_contrast(
         raise InputError(f"estimator must be 'hajek' or 'horvitz-thompson', got {estimator!r}")
     near_pop = None
     if near is not None:
-        where = np.full(y.size, -1)
-        where[pop] = np.arange(n)
-        a, b = where[near[0]], where[near[1]]
-        keep = (a >= 0) & (b >= 0)
-        near_pop = (a[keep], b[keep])
+        near_pop = _near_in_population(near, pop, y.size)
     vk, vl, cov, joint = variance_terms(resid, d, k, l, qk, ql, bits, rows, near_pop)
     var = max((vk + vl - 2 * cov) / max(n, 1) ** 2, 0.0)
     est = mk - ml

@@ -2,15 +2,17 @@
 
 Two engines compute exactly the same integers: a numba loop (fast, the
 default when numba imports) and a pure-numpy twin that processes a chunk of
-draws at once by sorting (draw, neighbour, distance) triples. Both visit, for
-each draw, only the graph rows of that draw's treated units, so the work per
-draw is proportional to the treated units' neighbour lists, never to the
-number of units.
+draws at once (the counts by writing (draw, neighbour, band) triples into a
+scratch, the condition bits by sparse products of the draws with the graph's
+bands, see :func:`_condition_bits_numpy`). Both visit, for each draw, only the
+graph rows of that draw's treated units, so the work per draw is proportional
+to the treated units' neighbour lists, never to the number of units.
 """
 
 from __future__ import annotations
 
 import numpy as np
+import scipy.sparse as sp
 
 try:  # numba is a core dependency, but the numpy twin keeps geoexp usable without it
     import numba
@@ -435,28 +437,79 @@ def condition_bits_chunk(
             d_indptr, d_indices, g_indptr, g_indices, g_code, column, int(draw0), bits, threads
         )
         return
-    n_cond, n_words, n_held = bits.shape
-    flat = bits.reshape(-1)
+    _condition_bits_numpy(d_indptr, d_indices, g_indptr, g_indices, g_code, column, draw0, bits)
+
+
+# Draws per step of the numpy twin of the condition-bits kernel: half a 64-bit word, so
+# that a float64 bincount adds distinct powers of two below 2**32, which it does exactly.
+_HALF_WORD = 32
+
+
+def _band_matrices(
+    g_indptr: np.ndarray, g_indices: np.ndarray, g_code: np.ndarray, n_units: int, n_cond: int
+) -> list:
+    """The reach graph split by band: one 0/1 CSR (n_units, n_units) per band code 1..K."""
+    row = np.repeat(np.arange(n_units, dtype=g_indices.dtype), np.diff(g_indptr))
+    out = []
+    for c in range(1, n_cond - 1):
+        keep = g_code == c
+        indptr = np.zeros(n_units + 1, dtype=np.int64)
+        np.cumsum(np.bincount(row[keep], minlength=n_units), out=indptr[1:])
+        ones = np.ones(int(indptr[-1]), dtype=np.int32)  # int32: no count wraps to zero
+        out.append(sp.csr_array((ones, g_indices[keep], indptr), shape=(n_units, n_units)))
+    return out
+
+
+def _half_word(
+    weight: np.ndarray, indptr: np.ndarray, units: np.ndarray, n_units: int
+) -> np.ndarray:
+    """Per unit, the sum of ``weight[r]`` over the rows r of a CSR that list it (as uint64)."""
+    total = np.bincount(units, weights=np.repeat(weight, np.diff(indptr)), minlength=n_units)
+    return total.astype(np.uint64)
+
+
+def _condition_bits_numpy(d_indptr, d_indices, g_indptr, g_indices, g_code, column, draw0, bits):
+    """Numpy twin of the condition-bits kernel: sparse products and bincounts, no scatter.
+
+    For a step of at most 32 draws within one half-word, the product of the
+    draws' treatment indicators (draws x units) with the band-c part of the
+    graph lists, per draw, each unit with a treated unit in band c once (the
+    product adds duplicates up). So the bits of a half-word are the bincount
+    of those units with weight 2**bit, exact in float64. A unit's condition is
+    the nearest band reached, so band c keeps the units reached in band c and
+    neither treated nor reached in a nearer band: the same bits as the loop.
+    """
+    n_cond, _, n_held = bits.shape
+    n_units = column.size
     n_draws = d_indptr.size - 1
-    max_draws = max(1, _SCRATCH_ENTRIES // max(n_units, 1))
-    scratch = _Scratch(min(max_draws, max(n_draws, 1)) * n_units, n_cond - 1)
-    for start in range(0, n_draws, max_draws):
-        stop = min(start + max_draws, n_draws)
-        sub_indptr = d_indptr[start : stop + 1] - d_indptr[start]
-        sub_indices = d_indices[d_indptr[start] : d_indptr[stop]].astype(np.int64)
-        draw, unit, code = touched_codes_numpy(
-            sub_indptr, sub_indices, g_indptr, g_indices, g_code, n_units, n_cond, scratch
+    bands = _band_matrices(g_indptr, g_indices, g_code, n_units, n_cond)
+    held = column >= 0
+    every = n_held == n_units and np.array_equal(column, np.arange(n_units))
+    units_of_rows = np.empty(n_held, dtype=np.int64)
+    units_of_rows[column[held]] = np.flatnonzero(held)
+    start = 0
+    while start < n_draws:
+        g0 = draw0 + start
+        stop = min(n_draws, start + _HALF_WORD - g0 % _HALF_WORD)
+        word, shift = divmod(g0, 2 * _HALF_WORD)
+        shift = np.uint64(shift - shift % _HALF_WORD)
+        weight = np.ldexp(1.0, (np.arange(start, stop) + draw0) % _HALF_WORD)
+        indptr = d_indptr[start : stop + 1] - d_indptr[start]
+        treated = d_indices[d_indptr[start] : d_indptr[stop]]
+        draws = sp.csr_array(
+            (np.ones(treated.size, dtype=np.int32), treated, indptr), shape=(stop - start, n_units)
         )
-        tdraw = np.repeat(np.arange(stop - start, dtype=np.int64), np.diff(sub_indptr))
-        draw = np.concatenate((draw, tdraw))
-        unit = np.concatenate((unit, sub_indices))
-        code = np.concatenate((code, np.zeros(sub_indices.size, dtype=np.int64)))
-        col = column[unit]
-        held = col >= 0
-        g = draw[held] + (draw0 + start)
-        where = (code[held] * n_words + g // 64) * n_held + col[held]
-        # every (condition, unit, draw) occurs once, so OR-ing the bits in loses nothing
-        np.bitwise_or.at(flat, where, np.left_shift(np.uint64(1), (g % 64).astype(np.uint64)))
+        # a draw lists each treated unit once (Draws: ascending positions), so this adds no bit twice
+        seen = _half_word(weight, indptr, treated, n_units)
+        found = [seen]
+        for band in bands:
+            reached = draws @ band
+            now = _half_word(weight, reached.indptr, reached.indices, n_units)
+            found.append(now & ~seen)
+            seen = seen | now  # not in place: found[0] is the treated half-word
+        for c, half in enumerate(found):
+            bits[c, word] |= (half if every else half[units_of_rows]) << shift
+        start = stop
 
 
 def pair_popcounts(
