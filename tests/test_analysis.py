@@ -218,3 +218,17 @@ def test_all_units_eligible_uses_random_focal_units(tmp_path):
     assert test is not None and test.n_focal >= 10
     assert any("focal units chosen at random" in n for n in result.notes)
     assert isinstance(gpd.read_file(tmp_path / "t.gpkg", layer="units"), gpd.GeoDataFrame)
+
+
+def test_linked_pairs_path_runs_on_a_whole_trial(demo_outputs, monkeypatch):
+    # Force the path big trials take (linked pairs only): same estimates, similar SEs.
+    from geoexp.estimate import _horvitz
+
+    dense = analyse(demo_outputs["trial"], n_draws=100, intervals=False)
+    monkeypatch.setattr(_horvitz, "DENSE_LIMIT", 0)
+    linked = analyse(demo_outputs["trial"], n_draws=100, intervals=False)
+    for a, b in zip(dense.effects, linked.effects, strict=True):
+        assert a.estimate == b.estimate
+        assert b.joint.startswith("linked pairs")
+        assert 0.7 < b.std_error / a.std_error < 1.3
+    assert any("linked" not in n and "hinge" in n for n in linked.notes)

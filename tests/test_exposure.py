@@ -322,3 +322,42 @@ def test_condition_bits_in_odd_chunks_match_distances(engine):
                 expected[cond[unit], r // 64, row] |= np.uint64(1) << np.uint64(r % 64)
     assert expected[1:3].any()  # the bands are reached, so the check has teeth
     np.testing.assert_array_equal(words, expected)
+
+
+@pytest.mark.parametrize("gap", [None, 150.0])
+def test_dependence_pairs_match_a_brute_force_search(gap):
+    # Independent construction with scipy.spatial.distance.cdist: i and j are linked when
+    # eligible k1 within the reach of i and eligible k2 within the reach of j are the same
+    # unit, or (kept-apart designs) closer than the gap.
+    from geoexp.exposure import dependence_pairs
+
+    rng = np.random.default_rng(8)
+    points = rng.uniform(0, 1500, size=(120, 2))
+    graph = point_graph(points, 300.0)
+    mapping = ExposureMapping((100.0, 250.0))
+    eligible = rng.uniform(size=120) < 0.3
+    first, second = dependence_pairs(graph, mapping, eligible, gap=gap)
+    got = set(zip(first.tolist(), second.tolist(), strict=True))
+    d = cdist(points, points)
+    reach = (d <= 250.0) & eligible[None, :]  # reach[i, k]: eligible k within the reach of i
+    link = np.eye(120, dtype=bool)
+    if gap is not None:
+        link |= (d < gap) & eligible[:, None] & eligible[None, :]
+    linked = (reach.astype(int) @ link.astype(int) @ reach.T.astype(int)) > 0
+    np.fill_diagonal(linked, False)
+    expected = set(zip(*np.nonzero(linked), strict=True))
+    assert got == {(int(a), int(b)) for a, b in expected}
+    assert len(got) > 0
+
+
+def test_dependence_pairs_join_units_of_a_saturation_cluster():
+    from geoexp.exposure import dependence_pairs
+
+    graph = ExposureGraph.from_pairs(np.arange(6), [0, 3], [1, 4], [10.0, 10.0], max_distance=50.0)
+    eligible = np.array([True, False, True, True, False, False])
+    clusters = np.array(["a", "", "a", "b", "", ""], dtype=object)
+    first, second = dependence_pairs(graph, ExposureMapping((20.0,)), eligible, clusters=clusters)
+    pairs = set(zip(first.tolist(), second.tolist(), strict=True))
+    # 0 and 2 share cluster a; 1 is reached by 0, so 1-2 are linked too; 5 is linked to none
+    assert {(0, 2), (2, 0), (1, 2), (0, 1), (3, 4)} <= pairs
+    assert not any(5 in p for p in pairs)

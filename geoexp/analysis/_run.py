@@ -20,8 +20,7 @@ from geoexp.estimate import (
     saturation_effects,
     weighted_displacement_quotient,
 )
-from geoexp.exposure import condition_bits
-from geoexp.graph import ExposureGraph
+from geoexp.exposure import condition_bits, dependence_pairs
 from geoexp.inference import (
     ContrastSpec,
     RandomizationTest,
@@ -122,17 +121,27 @@ class Analysis:
 
 
 def _near_pairs(design: Design) -> tuple[np.ndarray, np.ndarray]:
-    """Pairs within the dependence radius: conditions of units farther apart share no treated unit.
+    """Pairs of units whose conditions can hinge on a common treatment decision.
 
-    Built once per analysis and shared by every contrast and estimator. Positions
-    are int32 (the graph's own index type), so tens of millions of pairs stay in
-    a few hundred megabytes; the distances are not kept.
+    See :func:`geoexp.exposure.dependence_pairs`: units sharing an eligible unit
+    within their reach, linked through the design's gap, or (randomized
+    saturation) through a shared cluster. Built once per analysis and shared by
+    every contrast and estimator, as int32 positions.
     """
-    radius = 2 * design.mapping.reach + (design.spec.assignment.gap_m or 0.0)
-    graph = ExposureGraph.from_units(design.units, radius, metric=design.mapping.metric)
-    index_type = np.int32 if graph.n < 2**31 else np.int64
-    rows = np.repeat(np.arange(graph.n, dtype=index_type), np.diff(graph.indptr))
-    return rows, graph.indices.astype(index_type, copy=False)
+    sampler = design.sampler
+    while not isinstance(sampler, SaturationSampler) and hasattr(sampler, "base"):
+        sampler = sampler.base
+    clusters = None
+    if isinstance(sampler, SaturationSampler):
+        clusters = np.empty(design.units.n, dtype=object)
+        clusters[np.asarray(sampler.eligible)] = np.asarray(sampler.clusters)
+    return dependence_pairs(
+        design.graph,
+        design.mapping,
+        design.eligible,
+        gap=design.spec.assignment.gap_m,
+        clusters=clusters,
+    )
 
 
 def analyse(
@@ -214,11 +223,16 @@ def analyse(
             )
     # Units far apart can need pairs beyond the dense limit in big trials
     n_big = max(int(((probs[:, k] > 0) & (probs[:, pc] > 0)).sum()) for k in range(pc))
-    near = _near_pairs(design) if n_big * n_big > _horvitz.DENSE_LIMIT else None
-    if near is not None:
+    # the linked pairs tell structural zero joint probabilities from Monte Carlo zeros, and
+    # carry the variance alone when the trial is too big for all pairs
+    near = _near_pairs(design)
+    if n_big * n_big > _horvitz.DENSE_LIMIT:
         notes.append(
-            "joint exposure probabilities are computed for pairs of units within the dependence "
-            "radius; farther pairs are treated as independent, which keeps the variance conservative"
+            "joint exposure probabilities are computed for the pairs of units whose conditions can "
+            "hinge on a common treatment decision; other pairs depend on each other only through "
+            "the design's fixed totals and are taken as independent (conservative for the "
+            "Horvitz-Thompson estimator; for the Hajek estimator it omits a term of relative size "
+            "about one over the units per condition)"
         )
     unit = "incidents"
     words = OUTCOME_WORDS[outcome]

@@ -16,7 +16,7 @@ from geoexp.exposure import ConditionBits
 Estimator = Literal["hajek", "horvitz-thompson"]
 
 # Above this many entries in a dense block of joint probabilities, the estimator
-# uses only the pairs of units within the dependence radius (see variance_terms).
+# uses only the linked pairs of units (see variance_terms).
 DENSE_LIMIT = 40_000_000
 # Near pairs handled at once by the pairwise sums (memory: a few arrays of this length).
 NEAR_BLOCK = 1 << 20
@@ -66,8 +66,19 @@ class ContrastEstimate:
         return pd.DataFrame([self.__dict__]).assign(contrast=self.contrast).set_index("contrast")
 
 
-def _zero_counts(block: np.ndarray) -> np.ndarray:
-    return (block == 0).sum(axis=1)
+def _structural_zeros(near: tuple[np.ndarray, np.ndarray] | None, n: int):
+    """Sparse boolean matrix of the pairs whose zero joint probability can be structural.
+
+    The linked pairs, plus every unit with itself (pi_ii(k, l) = 0 for k != l).
+    None when the linked pairs are not known.
+    """
+    if near is None:
+        return None
+    import scipy.sparse as sp
+
+    a = np.concatenate([np.asarray(near[0], dtype=np.int64), np.arange(n)])
+    b = np.concatenate([np.asarray(near[1], dtype=np.int64), np.arange(n)])
+    return sp.csr_array((np.ones(a.size, dtype=bool), (a, b)), shape=(n, n))
 
 
 def variance_terms(
@@ -90,10 +101,14 @@ def variance_terms(
 
     When the dense blocks of joint probabilities would exceed
     :data:`DENSE_LIMIT` entries, only the pairs listed in ``near`` (positions
-    into U, both orders) enter the pairwise terms, and pairs farther apart
-    are taken as independent (pi_ij = pi_i pi_j). For designs that fix the
-    number treated, far pairs are negatively associated, so this drops
-    negative terms and the variance stays conservative.
+    into U, both orders; see :func:`geoexp.exposure.dependence_pairs`) enter
+    the pairwise terms, and the other pairs are taken as independent
+    (pi_ij = pi_i pi_j). Those pairs depend on each other only through the
+    design's fixed totals. For the Horvitz–Thompson estimator of counts the
+    dropped terms are negative for designs that fix the number treated, so the
+    variance stays conservative; for the Hajek estimator (residuals summing to
+    zero) the dropped terms add up to a small positive amount, of relative size
+    about one over the number of units in a condition.
     """
     sk = np.flatnonzero(observed == k)
     sl = np.flatnonzero(observed == l)
@@ -106,6 +121,17 @@ def variance_terms(
     if dense:
         joint = "all pairs"
         everyone = rows
+        # With the design's linked pairs known, a zero joint probability of an unlinked pair
+        # is Monte Carlo noise, not a structural zero: such pairs get no Young's term (they
+        # are taken as independent). Without them, every zero counts, as published.
+        structural = _structural_zeros(near, n)
+
+        def zero_mask(block: np.ndarray, r: np.ndarray, c: np.ndarray) -> np.ndarray:
+            zeros = block == 0
+            if structural is not None:
+                zeros &= structural[r][:, c].toarray()
+            return zeros
+
         for s, p, w, c in ((sk, pk, wk, k), (sl, pl, wl, l)):
             if not s.size:
                 continue
@@ -115,10 +141,8 @@ def variance_terms(
             with np.errstate(invalid="ignore", divide="ignore"):
                 term = np.where(jj > 0, (jj - prod) / jj, 0.0) * np.outer(w, w)
             pair = float(np.nansum(term))
-            full = bits.joint_block(c, rows[s], c, everyone)
-            zero = _zero_counts(
-                full
-            )  # the unit with itself has pi_ii(k,k) = pi_i(k) > 0: not counted
+            # the unit with itself has pi_ii(k,k) = pi_i(k) > 0: never a zero
+            zero = zero_mask(bits.joint_block(c, rows[s], c, everyone), s, np.arange(n)).sum(1)
             young = float((y[s] ** 2 / p[s] * zero).sum())
             if c == k:
                 vk += pair + young
@@ -133,10 +157,10 @@ def variance_terms(
                     np.where(jkl > 0, (jkl - prod) / jkl, 0.0).__mul__(np.outer(wk, wl)).sum()
                 )
         if sk.size:
-            zk = _zero_counts(bits.joint_block(k, rows[sk], l, everyone))
+            zk = zero_mask(bits.joint_block(k, rows[sk], l, everyone), sk, np.arange(n)).sum(1)
             cov -= float((y[sk] ** 2 / (2 * pk[sk]) * zk).sum())
         if sl.size:
-            zl = _zero_counts(bits.joint_block(l, rows[sl], k, everyone))
+            zl = zero_mask(bits.joint_block(l, rows[sl], k, everyone), sl, np.arange(n)).sum(1)
             cov -= float((y[sl] ** 2 / (2 * pl[sl]) * zl).sum())
         return vk, vl, cov, joint
 
@@ -144,7 +168,7 @@ def variance_terms(
         raise InputError(
             f"{n} units are too many for all-pairs joint probabilities; pass the near pairs"
         )
-    joint = "pairs within the dependence radius; farther pairs taken as independent"
+    joint = "linked pairs only; the others taken as independent"
     a, b = near
     pos_k = np.full(n, -1)
     pos_k[sk] = np.arange(sk.size)
@@ -290,7 +314,7 @@ def estimate_contrast(
     bit_rows
         Row of each unit in ``bits`` (default: the unit's position).
     near
-        Pairs of positions within the dependence radius, used when the
+        Linked pairs of positions (:func:`geoexp.exposure.dependence_pairs`), used when the
         population is too large for all pairs.
     """
     y = np.asarray(y, dtype=np.float64)

@@ -13,6 +13,7 @@ from geoexp.exposure._joint import (
     ConditionIndicators,
     condition_bits,
     condition_indicators,
+    dependence_pairs,
 )
 from geoexp.exposure._mapping import ExposureMapping
 from geoexp.exposure._probabilities import (
@@ -26,6 +27,7 @@ from geoexp.exposure._probabilities import (
 __all__ = [
     "ConditionBits",
     "condition_bits",
+    "dependence_pairs",
     "ConditionIndicators",
     "ContrastPositivity",
     "ExposureMapping",

@@ -262,3 +262,74 @@ def _condition_bits(
     bits = np.ascontiguousarray(words.transpose(0, 2, 1))
     del words
     return ConditionBits(ids=graph.ids[positions], positions=positions, bits=bits, n_draws=n_draws)
+
+
+# Above this many linked pairs the pairwise terms would not fit in memory.
+MAX_DEPENDENT_PAIRS = 300_000_000
+
+
+def dependence_pairs(
+    graph: ExposureGraph,
+    mapping: ExposureMapping,
+    eligible: np.ndarray,
+    *,
+    gap: float | None = None,
+    clusters: np.ndarray | None = None,
+) -> tuple[np.ndarray, np.ndarray]:
+    """Pairs of units whose exposure conditions can hinge on the same treatment decision.
+
+    Unit i's condition is decided by the treatment of the eligible units within
+    the outermost band of i (itself included, if eligible). Two units are
+    linked when those sets share a unit; when they hold two eligible units
+    closer than ``gap`` (in a kept-apart design treating one forbids the
+    other); or, with ``clusters`` (a label per unit, randomized-saturation
+    designs), when they hold eligible units of the same cluster, whose drawn
+    saturation they share. Units not linked in any of these ways depend on
+    each other only through the design's fixed totals (the number treated,
+    block quotas), which makes them negatively associated. Returns both
+    orders of every linked pair, without self pairs, as int32 (int64 beyond
+    2**31 units) positions.
+    """
+    import scipy.sparse as sp
+
+    n = graph.n
+    eligible = np.asarray(eligible, dtype=bool)
+    rows = np.repeat(np.arange(n, dtype=np.int64), np.diff(graph.indptr))
+    cols = graph.indices.astype(np.int64)
+    own = np.flatnonzero(eligible)
+    sel = (graph.distances <= mapping.reach) & eligible[cols]
+    a = sp.csr_array(
+        (
+            np.ones(int(sel.sum()) + own.size, dtype=np.float32),
+            (np.concatenate([rows[sel], own]), np.concatenate([cols[sel], own])),
+        ),
+        shape=(n, n),
+    )
+    link = sp.identity(n, dtype=np.float32, format="csr")
+    if gap is not None and gap > 0:
+        if gap > graph.max_distance + 1e-9:
+            raise InputError(f"the graph holds pairs up to {graph.max_distance:g} m, not {gap:g} m")
+        g_sel = (graph.distances < gap) & eligible[rows] & eligible[cols]
+        link = link + sp.csr_array(
+            (np.ones(int(g_sel.sum()), dtype=np.float32), (rows[g_sel], cols[g_sel])), shape=(n, n)
+        )
+    near = (a @ link @ a.T).tocsr()
+    if clusters is not None:
+        labels, codes = np.unique(np.asarray(clusters)[own], return_inverse=True)
+        member = sp.csr_array(
+            (np.ones(own.size, dtype=np.float32), (own, codes)), shape=(n, labels.size)
+        )
+        touched = (a @ member).tocsc()
+        linked = int(sum(np.diff(touched.indptr) ** 2))
+        if linked > MAX_DEPENDENT_PAIRS:
+            raise InputError(
+                f"units share saturation clusters in about {linked:,} pairs, too many for joint "
+                "probabilities; use smaller clusters or fewer units"
+            )
+        near = near + (touched @ touched.T).tocsr()
+    if near.nnz > MAX_DEPENDENT_PAIRS:
+        raise InputError(f"{near.nnz:,} linked pairs are too many for joint probabilities")
+    near = near.tocoo()
+    off = near.row != near.col
+    index_type = np.int32 if n < 2**31 else np.int64
+    return near.row[off].astype(index_type), near.col[off].astype(index_type)
