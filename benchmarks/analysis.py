@@ -77,7 +77,7 @@ def _instrument_analysis() -> tuple[dict[str, float], dict[str, float]]:
     peak: dict[str, float] = {}
     parts = {
         "condition_bits": "joint-probability bits (condition_bits)",
-        "_near_pairs": "near pairs (graph to the dependence radius)",
+        "_near_pairs": "linked pairs (dependence_pairs)",
         "estimate_contrast": "estimates + Aronow-Samii variances",
         "fisher_test": "Fisher tests",
         "spillover_test": "conditional spillover tests",

@@ -324,13 +324,14 @@ def test_condition_bits_in_odd_chunks_match_distances(engine):
     np.testing.assert_array_equal(words, expected)
 
 
-@pytest.mark.parametrize("gap", [None, 150.0])
-def test_dependence_pairs_match_a_brute_force_search(gap):
+@pytest.mark.parametrize(("gap", "rows_per_block"), [(None, 8192), (150.0, 8192), (150.0, 7)])
+def test_dependence_pairs_match_a_brute_force_search(gap, rows_per_block, monkeypatch):
     # Independent construction with scipy.spatial.distance.cdist: i and j are linked when
     # eligible k1 within the reach of i and eligible k2 within the reach of j are the same
     # unit, or (kept-apart designs) closer than the gap.
-    from geoexp.exposure import dependence_pairs
+    from geoexp.exposure import _joint, dependence_pairs
 
+    monkeypatch.setattr(_joint, "_DEPENDENCE_ROWS", rows_per_block)
     rng = np.random.default_rng(8)
     points = rng.uniform(0, 1500, size=(120, 2))
     graph = point_graph(points, 300.0)

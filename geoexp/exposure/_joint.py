@@ -266,6 +266,8 @@ def _condition_bits(
 
 # Above this many linked pairs the pairwise terms would not fit in memory.
 MAX_DEPENDENT_PAIRS = 300_000_000
+# Rows of units whose linked pairs are found at once.
+_DEPENDENCE_ROWS = 8_192
 
 
 def dependence_pairs(
@@ -313,7 +315,27 @@ def dependence_pairs(
         link = link + sp.csr_array(
             (np.ones(int(g_sel.sum()), dtype=np.float32), (rows[g_sel], cols[g_sel])), shape=(n, n)
         )
-    near = (a @ link @ a.T).tocsr()
+    # rows in blocks, so that the sparse products never hold more than a block's pairs
+    a_t = a.T.tocsr()
+    index_type = np.int32 if n < 2**31 else np.int64
+    firsts, seconds = [], []
+    total = 0
+    for start in range(0, n, _DEPENDENCE_ROWS):
+        block = (a[start : start + _DEPENDENCE_ROWS] @ link @ a_t).tocoo()
+        off = block.row + start != block.col
+        firsts.append((block.row[off] + start).astype(index_type))
+        seconds.append(block.col[off].astype(index_type))
+        total += int(off.sum())
+        if total > MAX_DEPENDENT_PAIRS:
+            raise InputError(
+                f"more than {MAX_DEPENDENT_PAIRS:,} linked pairs: too many for joint probabilities"
+            )
+    first = np.concatenate(firsts) if firsts else np.zeros(0, index_type)
+    second = np.concatenate(seconds) if seconds else np.zeros(0, index_type)
+    if clusters is None:
+        return first, second
+    near = sp.csr_array((np.ones(first.size, dtype=np.float32), (first, second)), shape=(n, n))
+    del first, second
     if clusters is not None:
         labels, codes = np.unique(np.asarray(clusters)[own], return_inverse=True)
         member = sp.csr_array(
@@ -331,5 +353,4 @@ def dependence_pairs(
         raise InputError(f"{near.nnz:,} linked pairs are too many for joint probabilities")
     near = near.tocoo()
     off = near.row != near.col
-    index_type = np.int32 if n < 2**31 else np.int64
     return near.row[off].astype(index_type), near.col[off].astype(index_type)
