@@ -260,6 +260,21 @@ def _scatter_numpy(
         start = stop
 
 
+def _kernel_arrays(n_units, d_indptr, d_indices, g_indptr, g_indices, g_code):
+    """The draws and graph arrays in the types the kernels read.
+
+    Positions stay int32 when they fit, so the graph is not copied per chunk.
+    """
+    index_type = np.int32 if max(n_units, 1) < 2**31 else np.int64
+    return (
+        np.ascontiguousarray(d_indptr, dtype=np.int64),
+        np.ascontiguousarray(d_indices, dtype=index_type),
+        np.ascontiguousarray(g_indptr, dtype=np.int64),
+        np.ascontiguousarray(g_indices, dtype=index_type),
+        np.ascontiguousarray(g_code, dtype=np.int8),
+    )
+
+
 def scatter_counts(
     d_indptr: np.ndarray,
     d_indices: np.ndarray,
@@ -294,13 +309,9 @@ def scatter_counts(
         cov_arr = np.ascontiguousarray(cov, dtype=np.float64)
         cov_sums = np.zeros((n_draws, n_cond, cov_arr.shape[1]))
         cond_counts = np.zeros((n_draws, n_cond), dtype=np.int64)
-    # int32 positions are read as they are (no copy of the graph per chunk)
-    index_type = np.int32 if max(n_units, 1) < 2**31 else np.int64
-    d_indptr = np.ascontiguousarray(d_indptr, dtype=np.int64)
-    d_indices = np.ascontiguousarray(d_indices, dtype=index_type)
-    g_indptr = np.ascontiguousarray(g_indptr, dtype=np.int64)
-    g_indices = np.ascontiguousarray(g_indices, dtype=index_type)
-    g_code = np.ascontiguousarray(g_code, dtype=np.int8)
+    d_indptr, d_indices, g_indptr, g_indices, g_code = _kernel_arrays(
+        n_units, d_indptr, d_indices, g_indptr, g_indices, g_code
+    )
     if resolve_engine(engine) == "numba":
         n_threads = max(1, min(numba.get_num_threads(), n_draws))
         counts_t = np.zeros((n_threads, n_units, n_cond), dtype=np.int64)
@@ -424,12 +435,9 @@ def condition_bits_chunk(
     caller's scratch). Both engines set exactly the same bits.
     """
     n_units = column.size
-    index_type = np.int32 if max(n_units, 1) < 2**31 else np.int64
-    d_indptr = np.ascontiguousarray(d_indptr, dtype=np.int64)
-    d_indices = np.ascontiguousarray(d_indices, dtype=index_type)
-    g_indptr = np.ascontiguousarray(g_indptr, dtype=np.int64)
-    g_indices = np.ascontiguousarray(g_indices, dtype=index_type)
-    g_code = np.ascontiguousarray(g_code, dtype=np.int8)
+    d_indptr, d_indices, g_indptr, g_indices, g_code = _kernel_arrays(
+        n_units, d_indptr, d_indices, g_indptr, g_indices, g_code
+    )
     column = np.ascontiguousarray(column, dtype=np.int64)
     if resolve_engine(engine) == "numba":
         threads = numba.get_num_threads()
