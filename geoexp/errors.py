@@ -16,6 +16,7 @@ __all__ = [
     "CRSError",
     "GeometryError",
     "DesignError",
+    "RuleError",
     "InfeasibleDesignError",
     "LockedTrialError",
     "describe_rows",
@@ -40,6 +41,10 @@ class GeometryError(InputError):
 
 class DesignError(InputError):
     """A design spec is malformed."""
+
+
+class RuleError(InputError):
+    """An eligibility rule cannot be read or evaluated; the message points at the token."""
 
 
 class InfeasibleDesignError(DesignError):

@@ -5,7 +5,9 @@ Shapefile) or takes a GeoDataFrame, checks ids and geometry, brings the layer
 to a projected CRS (see ``geoexp.units._crs`` for the policy) and keys every
 unit by the user's id. Its eligibility methods (:meth:`UnitSet.select`,
 :meth:`UnitSet.top`, :meth:`UnitSet.exclude`, :meth:`UnitSet.subset`) return
-new UnitSets whose ``notes`` record each step in plain words.
+new UnitSets whose ``notes`` record each step in plain words. Attribute rules
+are written in a small language of their own (:func:`parse_rule`), so a rule
+can compare columns but never run code.
 """
 
 from __future__ import annotations
@@ -23,9 +25,10 @@ import pyproj
 from geoexp.errors import InputError
 from geoexp.units._eligibility import exclude_mask, select_mask, subset_positions, top_positions
 from geoexp.units._read import read_layer
+from geoexp.units._rules import Rule, parse_rule
 from geoexp.units._validate import prepare
 
-__all__ = ["UnitSet"]
+__all__ = ["Rule", "UnitSet", "parse_rule"]
 
 Kind = Literal["segment", "parcel"]
 
@@ -210,8 +213,9 @@ class UnitSet:
         Parameters
         ----------
         where : str, pandas.Series or numpy.ndarray
-            A pandas query expression over the unit attributes and the id
-            (e.g. ``"land_use == 'retail' and incidents_y1 > 0"``), or a boolean
+            A rule over the unit attributes and the id in geoexp's own rule
+            language (see :func:`parse_rule`; e.g. ``"land_use == 'retail' and
+            incidents_y1 > 0"``; missing values compare false), or a boolean
             mask: a Series indexed by the ids or an array in unit order.
 
         Returns
