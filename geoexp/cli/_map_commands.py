@@ -16,12 +16,12 @@ def _tiles(value: str) -> str | None:
 
 def _draw_only_map(spec_path: Path, districts: Path | None, tiles: str | None):
     """Units of a spec with their eligibility so far, before any design is drawn."""
-    from geoexp.design import DesignSpec
+    from geoexp.design import DesignSpec, eligible_for, units_for
     from geoexp.maps import drawing_map
 
     spec = DesignSpec.from_toml(spec_path)
-    units = spec.read_units()
-    eligible = spec.eligible_units(units)
+    units = units_for(spec)
+    eligible = eligible_for(spec, units)
     return drawing_map(
         units,
         eligible=eligible.ids,
