@@ -11,6 +11,7 @@ expected and what was received. Rules of the check:
 * a number of metres or a share may be an integer or a float, finite, within
   its interval; it is kept as written, so the spec's hash does not change;
 * lists hold elements of one stated type;
+* an ``[eligible] where`` rule must parse (its columns are checked on the layer);
 * ``None`` (from a dict built in Python) means the key was not given.
 """
 
@@ -22,7 +23,7 @@ from collections.abc import Callable
 from typing import Any
 
 from geoexp.design._limits import MAX_DRAWS, MIN_DRAWS
-from geoexp.errors import DesignError
+from geoexp.errors import DesignError, RuleError
 
 __all__ = ["checked"]
 
@@ -128,6 +129,16 @@ def _quotas(value: Any, where: str) -> dict[str, int]:
     return {text(k, f"{where} key"): count(v, f"{where}.{k}") for k, v in value.items()}
 
 
+def _rule(value: Any, where: str) -> str:
+    from geoexp.units import parse_rule
+
+    try:
+        parse_rule(text(value, where))
+    except RuleError as err:
+        raise DesignError(f"{where} is not a rule: {err}") from None
+    return value
+
+
 def _crs(value: Any, where: str) -> Any:
     if isinstance(value, str):
         return text(value, where)
@@ -145,7 +156,7 @@ SCHEMA: dict[str, dict[str, Check]] = {
         "crs": _crs,
     },
     "eligible": {
-        "where": text,
+        "where": _rule,
         "top_column": text,
         "top_k": whole(1, _MAX_COUNT, "a number of units"),
         "top_share": _share,
