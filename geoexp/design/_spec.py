@@ -37,7 +37,7 @@ class UnitsSpec:
     path: str
     id_column: str
     layer: str | None = None
-    crs: str | None = None
+    crs: str | int | None = None  # text pyproj reads, or an EPSG code
 
 
 @dataclass(frozen=True)
