@@ -15,6 +15,16 @@ from geoexp.design._assignment import Assignment
 from geoexp.design._check import DesignCheck, check_design
 from geoexp.design._design import Design
 from geoexp.design._draws import Draws
+from geoexp.design._fingerprint import (
+    DesignFingerprint,
+    design_fingerprint,
+    frame_digest,
+    spec_identity,
+    tool_version,
+    unit_digests,
+    used_columns,
+    zone_digest,
+)
 from geoexp.design._floor import PureControlFloor
 from geoexp.design._samplers import (
     BlockedSampler,
@@ -45,6 +55,7 @@ __all__ = [
     "CompleteSampler",
     "Design",
     "DesignCheck",
+    "DesignFingerprint",
     "DesignSpec",
     "Draws",
     "PureControlFloor",
@@ -52,4 +63,11 @@ __all__ = [
     "SaturationSampler",
     "SeparatedSampler",
     "check_design",
+    "design_fingerprint",
+    "frame_digest",
+    "spec_identity",
+    "tool_version",
+    "unit_digests",
+    "used_columns",
+    "zone_digest",
 ]
