@@ -394,3 +394,14 @@ def test_a_changed_zone_file_is_named(drawn):
     found = verify_trial(path, strict=False)
     assert not found.ok
     assert any("exclusion zone file" in p and "zone.geojson" in p for p in found.problems)
+
+
+def test_removed_units_are_named(drawn):
+    path, _ = drawn
+    tf = TrialFile.open(path)
+    units = tf.units().drop(index=[3, 4])
+    tf.write_layers({"units": units})
+    found = verify_trial(path, strict=False)
+    assert any("unit ids" in p and "2 removed (3, 4)" in p for p in found.problems)
+    with pytest.raises(TrialIntegrityError, match="unit ids of the units layer changed"):
+        verify_trial(path)

@@ -19,7 +19,7 @@ from pathlib import Path
 import filelock
 
 from geoexp._atomic import temporary_paths
-from geoexp.errors import TrialBusyError
+from geoexp.errors import TrialBusyError, TrialWriteError
 
 __all__ = ["DEFAULT_WAIT_S", "Notify", "lock_path", "trial_lock"]
 
@@ -71,25 +71,15 @@ def trial_lock(
     """
     trial = Path(trial)
     wait_s = DEFAULT_WAIT_S if wait_s is None else float(wait_s)
-    trial.parent.mkdir(parents=True, exist_ok=True)
     lock = filelock.FileLock(lock_path(trial), thread_local=False)
     try:
-        lock.acquire(blocking=False)
-    except filelock.Timeout:
-        _say(
-            notify,
-            f"waiting for another geoexp command to finish writing {trial.name} "
-            f"(up to {wait_s:g} s)",
-        )
-        try:
-            lock.acquire(timeout=wait_s, poll_interval=0.05)
-        except filelock.Timeout:
-            raise TrialBusyError(
-                f"another geoexp command is still writing trial file {str(trial)!r} after "
-                f"{wait_s:g} s of waiting; try again when it has finished (its lock file is "
-                f"{str(lock_path(trial))!r}; the lock is released when that command ends, "
-                "even if it is killed)"
-            ) from None
+        trial.parent.mkdir(parents=True, exist_ok=True)
+        _acquire(lock, trial, wait_s, notify)
+    except OSError as err:  # a folder that cannot be written, say
+        raise TrialWriteError(
+            f"cannot take the write lock of trial file {str(trial)!r} "
+            f"({str(lock_path(trial))!r}): {err}"
+        ) from err
     try:
         removed = _remove_stale(trial)
         if removed:
@@ -101,6 +91,29 @@ def trial_lock(
         yield removed
     finally:
         lock.release()
+
+
+def _acquire(
+    lock: filelock.BaseFileLock, trial: Path, wait_s: float, notify: Notify | None
+) -> None:
+    try:
+        lock.acquire(blocking=False)
+        return
+    except filelock.Timeout:
+        pass
+    _say(
+        notify,
+        f"waiting for another geoexp command to finish writing {trial.name} (up to {wait_s:g} s)",
+    )
+    try:
+        lock.acquire(timeout=wait_s, poll_interval=0.05)
+    except filelock.Timeout:
+        raise TrialBusyError(
+            f"another geoexp command is still writing trial file {str(trial)!r} after "
+            f"{wait_s:g} s of waiting; try again when it has finished (its lock file is "
+            f"{str(lock_path(trial))!r}; the lock is released when that command ends, "
+            "even if it is killed)"
+        ) from None
 
 
 def _remove_stale(trial: Path) -> list[Path]:
