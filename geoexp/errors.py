@@ -19,6 +19,9 @@ __all__ = [
     "RuleError",
     "InfeasibleDesignError",
     "LockedTrialError",
+    "TrialBusyError",
+    "TrialWriteError",
+    "TrialIntegrityError",
     "describe_rows",
 ]
 
@@ -53,6 +56,18 @@ class InfeasibleDesignError(DesignError):
 
 class LockedTrialError(GeoexpError):
     """A trial's assignment is locked and would be overwritten."""
+
+
+class TrialBusyError(GeoexpError):
+    """Another geoexp command kept writing a trial file for longer than the wait allowed."""
+
+
+class TrialWriteError(GeoexpError, OSError):
+    """Writing a trial file failed (e.g. no space left); the file was left as it was."""
+
+
+class TrialIntegrityError(InputError):
+    """A trial file's contents no longer match the fingerprints recorded when they were written."""
 
 
 def describe_rows(rows: Iterable[object], limit: int = 10) -> str:

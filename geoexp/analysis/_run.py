@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Literal
@@ -31,7 +32,13 @@ from geoexp.inference import (
 )
 from geoexp.inference._conditional import MIN_FOCAL
 from geoexp.outcomes import OutcomeTable, load_outcomes
-from geoexp.trialfile import TrialFile
+from geoexp.trialfile import (
+    TrialFile,
+    design_from_trial,
+    outcomes_fingerprint,
+    store_results,
+    verify_trial,
+)
 
 Outcome = Literal["change", "post"]
 OUTCOME_WORDS = {
@@ -64,6 +71,9 @@ class Analysis:
     band_edges: tuple[float, ...] = ()
     saturation: pd.DataFrame | None = None
     distance_unit: str = "m"
+    # what the analysis was computed from (see geoexp.trialfile.verify_trial)
+    design_fingerprint: str = ""
+    outcomes_fingerprint: str = ""
 
     def to_frame(self) -> pd.DataFrame:
         """One row per contrast: estimates, intervals, p-values and verdicts."""
@@ -191,8 +201,13 @@ def analyse(
         Whether to invert tests for constant-effect intervals.
     """
     tf = trial if isinstance(trial, TrialFile) else TrialFile.open(trial)
-    design, assignment = Design.from_trial(tf)
+    integrity = verify_trial(tf)  # refuses a trial whose design or outcomes changed
+    design, assignment = design_from_trial(tf)
+    outcomes_fp = integrity.outcomes_fingerprint if outcomes is None else ""
     outcomes = load_outcomes(tf) if outcomes is None else outcomes
+    if not outcomes_fp:
+        counted = outcomes.counts.reindex(design.units.ids)
+        outcomes_fp = outcomes_fingerprint(counted, outcomes.pre, outcomes.post)
     if outcome not in OUTCOME_WORDS:
         raise InputError(f"outcome must be 'change' or 'post', got {outcome!r}")
     counts = outcomes.counts.reindex(design.units.ids)
@@ -341,6 +356,8 @@ def analyse(
         band_edges=mapping.band_edges,
         saturation=_saturation_table(design, assignment, y),
         distance_unit=mapping.unit,
+        design_fingerprint=integrity.design_fingerprint,
+        outcomes_fingerprint=outcomes_fp,
     )
 
 
@@ -383,16 +400,35 @@ def _reference_level(
     return float((post[hit] * w).sum() / w.sum()) if hit.any() else float("nan")
 
 
-def save_results(trial: TrialFile | str | Path, analysis: Analysis) -> TrialFile:
-    """Store the analysis in the trial file: a ``results`` layer and ``results_*`` meta keys."""
-    tf = trial if isinstance(trial, TrialFile) else TrialFile.open(trial)
+def save_results(
+    trial: TrialFile | str | Path,
+    analysis: Analysis,
+    *,
+    wait_s: float | None = None,
+    notify: Callable[[str], None] | None = None,
+) -> TrialFile:
+    """Store the analysis in the trial file: a ``results`` layer and ``results_*`` meta keys.
+
+    The write holds the trial's lock and refuses results computed for another
+    design or other outcomes than the trial holds at that moment (a redraw or a
+    new count in between). The results record the design and outcomes
+    fingerprints they were computed from; earlier results are kept in
+    ``superseded_results``.
+    """
+    path = trial.path if isinstance(trial, TrialFile) else trial
     table = analysis.to_frame().reset_index()
-    return tf.write_layers(
-        {"results": table},
-        meta={
+    return store_results(
+        path,
+        table,
+        {
             "results_outcome": analysis.outcome_words,
             "results_estimator": analysis.estimator,
             "results_n_draws": str(analysis.n_draws_tests),
             "results_spec_hash": analysis.spec_hash,
         },
+        design_fingerprint=analysis.design_fingerprint,
+        outcomes_fingerprint=analysis.outcomes_fingerprint,
+        spec_hash=analysis.spec_hash,
+        wait_s=wait_s,
+        notify=notify,
     )

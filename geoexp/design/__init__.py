@@ -18,6 +18,16 @@ from geoexp.design._build import SAMPLER_BUILDERS, build_sampler, eligible_for, 
 from geoexp.design._check import DesignCheck, check_design
 from geoexp.design._design import Design
 from geoexp.design._draws import Draws
+from geoexp.design._fingerprint import (
+    DesignFingerprint,
+    design_fingerprint,
+    frame_digest,
+    spec_identity,
+    tool_version,
+    unit_digests,
+    used_columns,
+    zone_digest,
+)
 from geoexp.design._floor import PureControlFloor
 from geoexp.design._limits import MAX_DRAWS, check_draws, memory_cap_bytes, monte_carlo_bytes
 from geoexp.design._protocol import Sampler, fixed_treated
@@ -60,6 +70,7 @@ __all__ = [
     "CompleteSampler",
     "Design",
     "DesignCheck",
+    "DesignFingerprint",
     "DesignSpec",
     "Draws",
     "PureControlFloor",
@@ -67,4 +78,11 @@ __all__ = [
     "SaturationSampler",
     "SeparatedSampler",
     "check_design",
+    "design_fingerprint",
+    "frame_digest",
+    "spec_identity",
+    "tool_version",
+    "unit_digests",
+    "used_columns",
+    "zone_digest",
 ]

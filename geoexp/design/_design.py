@@ -12,6 +12,7 @@ import pandas as pd
 from geoexp._rng import RngLike, child_sequence
 from geoexp.design._assignment import Assignment
 from geoexp.design._build import build_sampler, eligible_for, units_for
+from geoexp.design._fingerprint import DesignFingerprint, design_fingerprint
 from geoexp.design._limits import MIN_DRAWS, check_draws
 from geoexp.design._protocol import Sampler, fixed_treated
 from geoexp.design._spec import DesignSpec
@@ -36,7 +37,8 @@ class Design:
     sampler, seeded from the spec's seed: the first child stream of
     ``SeedSequence(seed)`` draws the assignment, the second the Monte Carlo.
 
-    Build it with :meth:`from_spec`.
+    Build it with :meth:`from_spec` (or from a trial file with
+    :func:`geoexp.trialfile.design_from_trial`).
     """
 
     spec: DesignSpec
@@ -129,48 +131,10 @@ class Design:
         """Child stream ``purpose`` of the spec's seed (0 assignment, 1 Monte Carlo, 2+ tests)."""
         return child_sequence(np.random.SeedSequence(self.spec.seed), purpose)
 
-    @classmethod
-    def from_trial(cls, trial) -> tuple[Design, Assignment]:
-        """Rebuild a trial's design from its trial file, with its stored assignment.
-
-        The units, their eligibility and the spec come from the file itself, so
-        the analysis does not depend on the original layer still being around.
-        The spec's seed is drawn again and must give the stored assignment;
-        if it does not, the file was altered or the environment differs, and
-        the analysis refuses rather than use probabilities of another design.
-        """
-        from geoexp.trialfile import TrialFile
-
-        tf = trial if isinstance(trial, TrialFile) else TrialFile.open(trial)
-        if not tf.is_locked:
-            raise DesignError(f"trial file {str(tf.path)!r} holds no drawn assignment yet")
-        frame = tf.units()
-        eligible = frame["eligible"].astype(bool).to_numpy()
-        units = UnitSet.from_frame(
-            frame.drop(columns=["eligible"]), None, source=f"{tf.path} (units layer)"
-        )
-        design = cls.from_spec(tf.spec(), units=units, eligible=eligible)
-        stored = tf.assignment().reindex(units.ids)
-        treated = stored["treated"].astype(bool).to_numpy()
-        again = design.draw()
-        if not np.array_equal(again.treated, treated):
-            raise DesignError(
-                f"the assignment stored in {str(tf.path)!r} is not the one its spec and seed "
-                f"draw ({int((again.treated != treated).sum())} units differ). The file may have "
-                "been edited by hand; geoexp will not analyse it with another design's probabilities."
-            )
-        assignment = Assignment(
-            ids=units.ids,
-            treated=treated,
-            conditions=again.conditions,
-            eligible=eligible,
-            mapping=design.mapping,
-            spec_hash=design.spec.hash,
-            seed=design.spec.seed,
-            drawn_at=tf.meta.get("drawn_at", ""),
-            extra=again.extra,
-        )
-        return design, assignment
+    @property
+    def fingerprint(self) -> DesignFingerprint:
+        """The design's identity over its spec, units, used columns, zones and tool version."""
+        return design_fingerprint(self.spec, self.units, self.eligible)
 
     @property
     def eligible_ids(self) -> pd.Index:

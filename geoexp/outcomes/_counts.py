@@ -20,6 +20,7 @@ import json
 import math
 import os
 import re
+from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Literal
@@ -624,8 +625,20 @@ def _write_dropped(rows: IncidentRows, reason: np.ndarray, path: str) -> None:
 # ------------------------------------------------------------ trial file
 
 
-def save_outcomes(trial: TrialFile | str | os.PathLike, table: OutcomeTable) -> TrialFile:
+def save_outcomes(
+    trial: TrialFile | str | os.PathLike,
+    table: OutcomeTable,
+    *,
+    wait_s: float | None = None,
+    notify: Callable[[str], None] | None = None,
+) -> TrialFile:
     """Store an outcome table in the trial file: layer ``outcomes`` and ``outcomes_*`` meta keys.
+
+    The write holds the trial's lock and checks the ids against the units the
+    file holds at that moment. The table's fingerprint (over the counts and the
+    periods) is recorded, so that an edit of the stored counts is noticed. Earlier
+    outcomes, and results computed from them, are kept in ``superseded_outcomes``
+    and ``superseded_results``.
 
     Parameters
     ----------
@@ -633,24 +646,18 @@ def save_outcomes(trial: TrialFile | str | os.PathLike, table: OutcomeTable) -> 
         The trial GeoPackage.
     table : OutcomeTable
         Counts for exactly the trial's units.
+    wait_s : float, optional
+        Seconds to wait for another command writing the same trial.
+    notify : callable, optional
+        Receives notes such as "waiting for another geoexp command ...".
 
     Returns
     -------
     TrialFile
-        The re-opened trial file. An earlier outcomes layer is replaced.
+        The re-opened trial file.
     """
-    trial = trial if isinstance(trial, TrialFile) else TrialFile.open(trial)
-    unit_ids = trial.units().index
-    unknown = table.ids[~table.ids.isin(unit_ids)]
-    absent = unit_ids[~unit_ids.isin(table.ids)]
-    if len(unknown) or len(absent):
-        raise InputError(
-            f"the outcome table does not match the units of trial file '{trial.path}': "
-            f"{len(unknown):,} ids not in the trial ({describe_rows(list(unknown))}) and "
-            f"{len(absent):,} trial units without counts ({describe_rows(list(absent))})"
-        )
-    frame = table.counts.reindex(unit_ids)
-    frame.index.name = trial.id_column
+    from geoexp.trialfile import store_outcomes
+
     d = table.drops
     meta = {
         "outcomes_pre": f"{table.pre[0]}/{table.pre[1]}",
@@ -660,9 +667,9 @@ def save_outcomes(trial: TrialFile | str | os.PathLike, table: OutcomeTable) -> 
         "outcomes_drops": json.dumps({**d.counts(), "n_incidents": d.n_incidents, "ties": d.ties}),
         "outcomes_source": table.source,
         "outcomes_dropped_path": d.dropped_path or "",
-        "outcomes_saved_at": dt.datetime.now(dt.UTC).replace(microsecond=0).isoformat(),
     }
-    return trial.write_layers({_LAYER: frame}, meta=meta)
+    path = trial.path if isinstance(trial, TrialFile) else trial
+    return store_outcomes(path, table.counts, meta, wait_s=wait_s, notify=notify)
 
 
 def load_outcomes(trial: TrialFile | str | os.PathLike) -> OutcomeTable:
@@ -676,8 +683,16 @@ def load_outcomes(trial: TrialFile | str | os.PathLike) -> OutcomeTable:
     Returns
     -------
     OutcomeTable
+
+    Raises
+    ------
+    geoexp.errors.TrialIntegrityError
+        The stored counts or periods were edited after they were saved.
     """
-    trial = trial if isinstance(trial, TrialFile) else TrialFile.open(trial)
+    from geoexp.errors import TrialIntegrityError
+    from geoexp.trialfile import outcomes_fingerprint
+
+    trial = TrialFile.open(trial.path if isinstance(trial, TrialFile) else trial)
     if _LAYER not in trial.layers or "outcomes_pre" not in trial.meta:
         raise InputError(
             f"trial file '{trial.path}' holds no outcomes yet; count them and save them with "
@@ -685,6 +700,15 @@ def load_outcomes(trial: TrialFile | str | os.PathLike) -> OutcomeTable:
         )
     meta = trial.meta
     frame = pd.DataFrame(trial.read(_LAYER)).drop(columns="geometry", errors="ignore")
+    recorded = meta.get("outcomes_fingerprint")
+    if recorded and outcomes_fingerprint(frame, meta["outcomes_pre"], meta["outcomes_post"]) != (
+        recorded
+    ):
+        raise TrialIntegrityError(
+            f"the outcomes stored in trial file '{trial.path}' (layer {_LAYER!r} and its periods) "
+            f"were edited after they were saved on {meta.get('outcomes_saved_at', '?')}; count "
+            "them again, or restore the file from a copy"
+        )
     counts = frame.astype(np.int64)
     pre = tuple(dt.date.fromisoformat(s) for s in meta["outcomes_pre"].split("/"))
     post = tuple(dt.date.fromisoformat(s) for s in meta["outcomes_post"].split("/"))
