@@ -4,12 +4,11 @@ import sys
 from pathlib import Path
 from typing import Annotated
 
-import click
 import typer
 from rich.console import Console
 
 from geoexp._paths import check_outputs, writing
-from geoexp.cli._failures import GeoexpGroup, UserError, as_click_error
+from geoexp.cli._failures import ClickException, GeoexpGroup, UserError, as_click_error
 from geoexp.cli._inputs import load_spec, read_counts_csv, spec_inputs
 from geoexp.cli._options import (
     MAX_DRAWS,
@@ -33,6 +32,9 @@ app = typer.Typer(
     no_args_is_help=True,
     add_completion=False,
     pretty_exceptions_enable=False,
+    # Plain help and error text: help and messages hold square brackets ("[units]") and user
+    # text that must print as written, and an error stays one plain line.
+    rich_markup_mode=None,
 )
 # Everything printed holds user text (spec names, paths, unit ids) and geoexp's own text with
 # square brackets ("[units]"): neither may be read as console markup or emoji codes.
@@ -44,7 +46,7 @@ def main() -> None:
     """Entry point: mistakes give a message and exit status 2, defects one line and status 1."""
     try:
         app()
-    except click.ClickException as err:  # raised outside a command (not in standalone mode)
+    except ClickException as err:  # raised outside a command (not in standalone mode)
         err.show()
         sys.exit(err.exit_code)
     except Exception as err:  # noqa: BLE001  (last resort: a user never sees a traceback)

@@ -3,7 +3,7 @@
 * geoexp's own errors (:class:`~geoexp.errors.GeoexpError`) and operating-system
   errors on a named file (no such file, no permission, a full disk) are the
   user's to fix: one message, exit status 2.
-* click's usage errors (a bad option value, a missing argument) keep click's
+* Usage errors (a bad option value, a missing argument) keep click's
   message and exit status 2.
 * Anything else is a defect of geoexp: one line saying so and where the full
   traceback was written, exit status 1. The log folder is the user's cache
@@ -21,32 +21,36 @@ import tempfile
 import traceback
 from pathlib import Path
 
-import click
+import typer
 from typer.core import TyperGroup
 
 from geoexp.errors import GeoexpError
+
+# The click exception base as typer uses it (recent typer releases carry their own copy of
+# click, so the class is found from typer's own BadParameter rather than imported).
+ClickException = next(c for c in typer.BadParameter.__mro__ if c.__name__ == "ClickException")
 
 USER_ERROR = 2
 UNEXPECTED = 1
 
 
-class UserError(click.ClickException):
+class UserError(ClickException):
     """A mistake in the user's input: printed as ``error: <message>``, exit status 2."""
 
     exit_code = USER_ERROR
 
     def show(self, file=None) -> None:  # noqa: D102  (click's interface)
         # Plain text: the message holds user text (names, paths) that must print as written.
-        click.echo(f"error: {self.format_message()}", file=file or sys.stderr)
+        typer.echo(f"error: {self.format_message()}", file=file or sys.stderr)
 
 
-class UnexpectedError(click.ClickException):
+class UnexpectedError(ClickException):
     """A defect of geoexp: one line naming the log file, exit status 1."""
 
     exit_code = UNEXPECTED
 
     def show(self, file=None) -> None:  # noqa: D102  (click's interface)
-        click.echo(self.format_message(), file=file or sys.stderr)
+        typer.echo(self.format_message(), file=file or sys.stderr)
 
 
 def log_folders() -> list[Path]:
@@ -91,7 +95,7 @@ def unexpected(err: BaseException) -> UnexpectedError:
     )
 
 
-def as_click_error(err: BaseException) -> click.ClickException:
+def as_click_error(err: BaseException) -> ClickException:
     """Translate any exception raised by a command into the click exception to show."""
     if isinstance(err, GeoexpError):
         return UserError(str(err))
@@ -106,10 +110,10 @@ def as_click_error(err: BaseException) -> click.ClickException:
 class GeoexpGroup(TyperGroup):
     """The command group: every command's failures go through :func:`as_click_error`."""
 
-    def invoke(self, ctx: click.Context):  # noqa: D102  (click's interface)
+    def invoke(self, ctx):  # noqa: D102  (click's interface)
         try:
             return super().invoke(ctx)
-        except (click.ClickException, click.exceptions.Exit, click.Abort):
+        except (ClickException, typer.Exit, typer.Abort):
             raise
         except Exception as err:  # noqa: BLE001  (the last resort: nothing may escape as a traceback)
             raise as_click_error(err) from err
