@@ -77,15 +77,28 @@ def trial(files, tmp_path):
 # ------------------------------------------------------------ output overwrites
 
 
+def renamed(trial: Path, name: str) -> Path:
+    """A copy of the trial under another name in the same folder."""
+    path = trial.with_name(name)
+    shutil.copy(trial, path)
+    return path
+
+
 def overwrite_cases():
     # (name, build args from (trial, files, tmp), the file that must stay unchanged, words)
     return [
         ("analyse-report-trial", lambda t, f, d: ["analyse", t, "--report", t], "trial", "--report"),
         (
             "analyse-report-md-twin-trial",
-            lambda t, f, d: ["analyse", t, "--report", t.with_suffix(".html")],
-            "trial",
+            lambda t, f, d: ["analyse", renamed(t, "study.md"), "--report", d / "study.html"],
+            "study.md",
             "markdown twin",
+        ),
+        (
+            "analyse-report-map-trial",
+            lambda t, f, d: ["analyse", renamed(t, "r_map.html"), "--report", d / "r.html"],
+            "r_map.html",
+            "results map",
         ),
         ("export-csv-trial", lambda t, f, d: ["export", t, "--csv", t], "trial", "--csv"),
         ("map-out-trial", lambda t, f, d: ["map", t, "--out", t], "trial", "--out"),
@@ -150,10 +163,12 @@ def overwrite_cases():
 )
 def test_output_never_overwrites_the_trial_or_an_input(build, keep, word, trial, files, tmp_path):
     guarded = {"trial": trial, "spec": files["spec"], "incidents": files["incidents"], None: trial}
-    before = digest(guarded[keep])
-    result = invoke(*build(trial, files, tmp_path))
+    args = build(trial, files, tmp_path)
+    kept = guarded.get(keep, tmp_path / str(keep))
+    before = digest(kept if kept.exists() else trial)
+    result = invoke(*args)
     assert_refused(result, word)
-    assert digest(guarded[keep]) == before
+    assert digest(kept) == before
 
 
 @pytest.mark.parametrize("kind", ["symlink", "hardlink", "symlink-to-symlink"])
