@@ -71,8 +71,9 @@ def count_and_store(
         CSV of the incidents not counted, with a ``reason`` column.
     max_dropped_share : float
         Largest share of incidents that may be dropped (default 0.5); see
-        :func:`geoexp.outcomes.count_incidents`. A different value is
-        recorded in the drop report.
+        :func:`geoexp.outcomes.count_incidents`. The value is recorded in the
+        drop report and in the trial file's meta key
+        ``outcomes_max_dropped_share``.
 
     Returns
     -------
@@ -108,7 +109,13 @@ def count_and_store(
         max_dropped_share=max_dropped_share,
     )
     with writing(trial, "trial file"):
-        save_outcomes(trial, table)
+        stored = save_outcomes(trial, table)
+        # A limit other than the default is a deliberate choice: keep it with the counts (and
+        # replace one kept from an earlier count).
+        key = "outcomes_max_dropped_share"
+        if max_dropped_share != MAX_DROPPED_SHARE or key in stored.meta:
+            value = "" if max_dropped_share is None else repr(float(max_dropped_share))
+            stored.write_layers({}, meta={key: value})
     return table
 
 

@@ -446,6 +446,9 @@ def test_allow_dropped_overrides_knowingly_and_is_recorded(files, trial, tmp_pat
     result = invoke("count", trial, "--incidents", path, *options, "--allow-dropped", "1")
     assert result.exit_code == 0, result.output
     assert "set to 100%" in " ".join(result.output.split())
+    from geoexp.trialfile import TrialFile
+
+    assert TrialFile.open(trial).meta["outcomes_max_dropped_share"] == "1.0"
 
 
 # ------------------------------------------------------------ user text is text
