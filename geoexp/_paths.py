@@ -9,7 +9,8 @@ anything is written, any output that
   the same file reached another way (a hard link or a second symlink), which
   is seen by comparing ``os.stat`` device and inode numbers;
 * names an existing folder;
-* lies under a path that is a regular file (``report.html/out.html``);
+* lies under a path that is a regular file (``report.html/out.html``) or
+  under a link that leads nowhere;
 * is named twice (two outputs on the same file).
 
 :func:`writing` turns an operating-system error raised while writing (a full
@@ -108,6 +109,15 @@ def check_outputs(
             raise InputError(
                 f"{out.label} '{out.path}' is a folder; give a file name, e.g. "
                 f"'{out.path / ('out' + (out.path.suffix or '.txt'))}'"
+            )
+        broken = next(
+            (p for p in (out.path, *out.path.parents) if p.is_symlink() and not p.exists()),
+            None,
+        )
+        if broken is not None and broken != out.path:
+            raise InputError(
+                f"{out.label} '{out.path}' cannot be written: '{broken}' is a link that leads "
+                "nowhere (a missing target or a loop)"
             )
         blocker = _first_file_parent(out.path)
         if blocker is not None:
