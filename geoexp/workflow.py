@@ -50,7 +50,7 @@ def count_and_store(
     layer: str | None = None,
     tolerance_m: float = 30.0,
     dropped_path: PathLike | None = None,
-    max_dropped_share: float = MAX_DROPPED_SHARE,
+    max_dropped_share: float | None = MAX_DROPPED_SHARE,
 ) -> OutcomeTable:
     """Count incidents per unit and period and store the counts in the trial file.
 
@@ -69,7 +69,7 @@ def count_and_store(
         segments (common practice).
     dropped_path : path, optional
         CSV of the incidents not counted, with a ``reason`` column.
-    max_dropped_share : float
+    max_dropped_share : float or None
         Largest share of incidents that may be dropped (default 0.5); see
         :func:`geoexp.outcomes.count_incidents`. The value is recorded in the
         drop report and in the trial file's meta key

@@ -70,8 +70,3 @@ def non_negative(value: float | None) -> float | None:
     if value < 0:
         raise typer.BadParameter(f"must be a number >= 0, got {value!r}")
     return value
-
-
-def draws_option(help: str) -> typer.models.OptionInfo:  # noqa: A002  (typer's name)
-    """An option for a number of Monte Carlo draws: a whole number from 1 to MAX_DRAWS."""
-    return typer.Option(help=help, min=1, max=MAX_DRAWS)
