@@ -50,6 +50,8 @@ REASONS = (
 _FIELDS = tuple(r.replace(" ", "_") for r in REASONS)
 UNTYPED = "untyped"
 _LAYER = "outcomes"
+# Above this share of dropped incidents counting stops with an error (see count_incidents).
+MAX_DROPPED_SHARE = 0.5
 _META_PREFIX = "outcomes_"
 
 
@@ -144,6 +146,7 @@ class DropReport:
     tolerance_m: float | None = None
     source: str = ""
     dropped_path: str | None = None
+    max_dropped_share: float | None = MAX_DROPPED_SHARE
 
     def counts(self) -> dict[str, int]:
         """Dropped incidents by reason (plain-words keys, as in the side file)."""
@@ -190,6 +193,13 @@ class DropReport:
             text += (
                 " No incident was near any unit: check that the incidents' CRS (crs=, or "
                 "x/y against lon/lat) is right."
+            )
+        if self.max_dropped_share is None:
+            text += " No limit was set on the share of incidents dropped."
+        elif self.max_dropped_share != MAX_DROPPED_SHARE:
+            text += (
+                f" The limit on dropped incidents was set to {self.max_dropped_share:.0%} "
+                f"(default {MAX_DROPPED_SHARE:.0%}) on purpose."
             )
         if self.dropped_path:
             text += f" The dropped rows, with a 'reason' column, are in '{self.dropped_path}'."
@@ -449,6 +459,7 @@ def count_incidents(
     date_format: DateFormat | None = None,
     layer: str | None = None,
     dropped_path: str | os.PathLike | None = None,
+    max_dropped_share: float | None = MAX_DROPPED_SHARE,
 ) -> OutcomeTable:
     """Count incidents per unit in a pre-period and a post-period.
 
@@ -491,6 +502,19 @@ def count_incidents(
         Layer of a multi-layer incidents file.
     dropped_path : path, optional
         Write the dropped rows here as CSV, with a ``reason`` column.
+    max_dropped_share : float or None
+        Largest share of incidents that may be dropped, in [0, 1]; default
+        0.5. When more are dropped the counts are not a picture of the
+        incidents but of a mistake in reading them (longitude and latitude
+        swapped, a wrong CRS, the wrong date format or periods), and an
+        analysis of such counts would report "no effect" with confidence.
+        Half is a generous limit: in a correct extract, incidents far from
+        every unit or outside both periods are the exception. Raise it
+        knowingly (it is recorded in the drop report) when, for example,
+        the extract covers a whole city and the trial only a district.
+        With any number, counting also stops when no incident at all is
+        counted or when a period holds no incident. ``None`` turns every
+        stop off: the caller must then read the drop report itself.
 
     Returns
     -------
@@ -500,7 +524,12 @@ def count_incidents(
     ------
     geoexp.errors.InputError
         Bad periods, missing columns, day/month dates without
-        ``date_format``, a date column with no readable date.
+        ``date_format``, a date column with no readable date; no incident
+        counted at all; a period with no incident dated in it; more than
+        ``max_dropped_share`` of the incidents dropped. These are raised
+        before anything (the dropped rows' CSV) is written, and say how many
+        incidents were read, how many were dropped for each reason and the
+        likely cause.
     geoexp.errors.CRSError
         Coordinates without a CRS, or a CRS that contradicts the layer.
     geoexp.errors.GeometryError
@@ -508,6 +537,16 @@ def count_incidents(
     """
     units = _as_units(units)
     pre_d, post_d = parse_periods(pre, post)
+    if max_dropped_share is not None and (
+        isinstance(max_dropped_share, bool)
+        or not (
+            isinstance(max_dropped_share, (int, float, np.integer, np.floating))
+            and 0 <= max_dropped_share <= 1
+        )
+    ):
+        raise InputError(
+            f"max_dropped_share must be a share between 0 and 1, got {max_dropped_share!r}"
+        )
     if isinstance(tolerance_m, bool) or not (
         isinstance(tolerance_m, (int, float, np.integer, np.floating))
         and math.isfinite(tolerance_m)
@@ -585,6 +624,10 @@ def count_incidents(
     counts.index.name = units.id_column
 
     per_reason = np.bincount(reason, minlength=len(REASONS) + 1)[1:]
+    if max_dropped_share is not None:
+        _stop_if_mostly_dropped(
+            rows, units, per_reason, in_pre, in_post, (pre_d, post_d), float(max_dropped_share)
+        )
     written = None
     if dropped_path is not None:
         written = os.fspath(dropped_path)
@@ -596,8 +639,107 @@ def count_incidents(
         tolerance_m=float(tolerance_m),
         source=rows.source,
         dropped_path=written,
+        max_dropped_share=None if max_dropped_share is None else float(max_dropped_share),
     )
     return OutcomeTable(counts, pre_d, post_d, float(tolerance_m), drops, types, rows.source)
+
+
+def _likely_cause(
+    rows: IncidentRows,
+    units: UnitSet,
+    per_reason: np.ndarray,
+    periods: tuple[tuple[dt.date, dt.date], ...],
+) -> str:
+    """Plain words on why most incidents were dropped, from the biggest reason."""
+    top = REASONS[int(np.argmax(per_reason))]
+    if top == "outside tolerance":
+        located = np.isfinite(rows.x) & np.isfinite(rows.y)
+        ux0, uy0, ux1, uy1 = (float(v) for v in units.geometry.total_bounds)
+        px0, px1 = float(np.min(rows.x[located])), float(np.max(rows.x[located]))
+        py0, py1 = float(np.min(rows.y[located])), float(np.max(rows.y[located]))
+        inside = (
+            (rows.x[located] >= ux0)
+            & (rows.x[located] <= ux1)
+            & (rows.y[located] >= uy0)
+            & (rows.y[located] <= uy1)
+        )
+        share_in = float(inside.mean())
+        extent = (
+            f"the incidents span x {px0:,.0f} to {px1:,.0f}, y {py0:,.0f} to {py1:,.0f} and the "
+            f"units x {ux0:,.0f} to {ux1:,.0f}, y {uy0:,.0f} to {uy1:,.0f} (in the units' CRS)"
+        )
+        if share_in < 0.5:
+            return (
+                f"{1 - share_in:.0%} of the located incidents fall outside the units' extent "
+                f"({extent}): are longitude and latitude swapped, or is the CRS wrong?"
+            )
+        return (
+            f"the incidents lie within the units' extent ({extent}) but not within the "
+            "snapping tolerance of a unit: is the tolerance too small for this layer?"
+        )
+    if top == "missing coordinates":
+        return (
+            "most incidents have no usable coordinates: are the coordinate columns the right "
+            "ones, and do they hold plain numbers (a decimal point, not a comma)?"
+        )
+    if top in ("missing date", "unparseable date"):
+        return (
+            "most incidents have no readable date: is the date column right, and does "
+            "date_format match how the dates are written?"
+        )
+    dated = rows.dates[~np.isnat(rows.dates)]
+    span = f"the incidents are dated {dated.min()} to {dated.max()}" if len(dated) else ""
+    return (
+        f"most incidents are dated outside both periods ({span}; pre {periods[0][0]} to "
+        f"{periods[0][1]}, post {periods[1][0]} to {periods[1][1]}): are the periods right?"
+    )
+
+
+def _stop_if_mostly_dropped(
+    rows: IncidentRows,
+    units: UnitSet,
+    per_reason: np.ndarray,
+    in_pre: np.ndarray,
+    in_post: np.ndarray,
+    periods: tuple[tuple[dt.date, dt.date], ...],
+    max_share: float,
+) -> None:
+    """Refuse counts that would silently make a wrong analysis (see ``max_dropped_share``)."""
+    n = rows.n
+    n_dropped = int(per_reason.sum())
+    where = f"the incidents '{rows.source}'"
+    by_reason = "; ".join(f"{int(k):,} {r}" for r, k in zip(REASONS, per_reason, strict=True) if k)
+    tally = f"{n:,} read, {n - n_dropped:,} counted, {n_dropped:,} dropped" + (
+        f" ({by_reason})" if by_reason else ""
+    )
+    if n == 0:
+        raise InputError(f"{where} hold no incidents (no rows below the header): nothing to count")
+    dated = ~np.isnat(rows.dates)
+    for name, period, inside in (("pre", periods[0], in_pre), ("post", periods[1], in_post)):
+        if not (inside & dated).any():
+            span = ""
+            if dated.any():
+                span = f" (the incidents are dated {rows.dates[dated].min()} to "
+                span += f"{rows.dates[dated].max()})"
+            raise InputError(
+                f"no incident in {where} is dated in the {name}-period {period[0]} to "
+                f"{period[1]}{span}; an empty period would be analysed as zero incidents "
+                f"everywhere. Check --{name} and the date column ({tally})"
+            )
+    if n_dropped == n:
+        raise InputError(
+            f"no incident in {where} could be counted: {tally}. Likely cause: "
+            f"{_likely_cause(rows, units, per_reason, periods)}"
+        )
+    share = n_dropped / n
+    if share > max_share:
+        raise InputError(
+            f"{share:.0%} of the incidents in {where} were dropped, more than the limit of "
+            f"{max_share:.0%}: {tally}. Likely cause: "
+            f"{_likely_cause(rows, units, per_reason, periods)} If the drops are expected, "
+            "raise the limit knowingly (max_dropped_share=, on the command line "
+            "--allow-dropped); the choice is recorded."
+        )
 
 
 def _write_dropped(rows: IncidentRows, reason: np.ndarray, path: str) -> None:
