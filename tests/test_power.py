@@ -12,7 +12,7 @@ from hypothesis import strategies as st
 from scipy.stats import nbinom
 from statsmodels.stats.power import NormalIndPower, TTestIndPower
 
-from geoexp._rng import child_sequence
+from geoexp._rng import Stream, child_sequence
 from geoexp.design import Design, DesignSpec
 from geoexp.errors import InputError
 from geoexp.exposure import assign_conditions, condition_bits
@@ -183,7 +183,11 @@ def test_probabilities_are_the_designs_own(lattice):
     )
     # the analysis computes them this way (geoexp.analysis._run): the spec's draws, stream 1
     again = condition_bits(
-        lattice.sampler, lattice.graph, lattice.mapping, lattice.spec.draws, lattice.stream(1)
+        lattice.sampler,
+        lattice.graph,
+        lattice.mapping,
+        lattice.spec.draws,
+        lattice.stream(Stream.MONTE_CARLO),
     ).probabilities()
     np.testing.assert_array_equal(details["probabilities"], again)
     # [A] complete randomization of 10 of 40 eligible units: sum_i pi_i(treated) = 10 per draw
@@ -249,7 +253,11 @@ def test_spillover_test_size_and_power_on_a_lattice(lattice):
     # [A] counts, outcome "change": planted = mean over the focal units of mu_i (RR - 1)
     mu = NegativeBinomialOutcome("past", 0.3).unit_means(lattice)
     probs = condition_bits(
-        lattice.sampler, lattice.graph, lattice.mapping, lattice.spec.draws, lattice.stream(1)
+        lattice.sampler,
+        lattice.graph,
+        lattice.mapping,
+        lattice.spec.draws,
+        lattice.stream(Stream.MONTE_CARLO),
     ).probabilities()
     focal = default_focal_units(lattice, probs, 1)
     assert strong.contrasts[1].n_units == focal.size

@@ -8,6 +8,7 @@ from typing import TYPE_CHECKING
 import numpy as np
 import pandas as pd
 
+from geoexp._rng import Stream
 from geoexp._tables import markdown_table
 from geoexp.errors import DesignError
 from geoexp.exposure import ExposureProbabilities, PositivityReport
@@ -227,7 +228,10 @@ def _autocorrelation(design: Design, x: np.ndarray, cols: list[str]):
         return None
     try:
         return design.graph.moran(
-            x[:, 0], distance=design.mapping.band_edges[0], permutations=199, rng=design.stream(40)
+            x[:, 0],
+            distance=design.mapping.band_edges[0],
+            permutations=199,
+            rng=design.stream(Stream.MORAN),
         )
     except ValueError:
         return None

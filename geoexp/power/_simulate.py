@@ -26,7 +26,7 @@ from typing import TYPE_CHECKING
 import numpy as np
 import pandas as pd
 
-from geoexp._rng import RngLike, as_seed_sequence, child_sequence
+from geoexp._rng import RngLike, Stream, as_seed_sequence, child_sequence
 from geoexp.errors import InputError
 from geoexp.exposure import condition_bits
 from geoexp.inference import default_focal_units, significance
@@ -41,7 +41,6 @@ _WORD = 64
 # unpacked bits and their products are float64: significance() counts ties within a
 # relative 1e-9, which float32 sums of thousands of weights would not honour
 _BLOCK_BYTES = 32 * 2**20
-_STREAM = 30  # child stream of the spec's seed used by power (0-29 are the design's and tests')
 
 
 @dataclass(frozen=True)
@@ -337,7 +336,7 @@ def _simulate(
     n_prob = int(n_draws_probabilities or design.spec.draws)
     # the very probabilities the analysis will use: the design's Monte Carlo stream
     probs = condition_bits(
-        design.sampler, design.graph, mapping, n_prob, design.stream(1)
+        design.sampler, design.graph, mapping, n_prob, design.stream(Stream.MONTE_CARLO)
     ).probabilities()
 
     notes: list[str] = []
@@ -362,7 +361,7 @@ def _simulate(
         plan.append((k, population, test))
 
     used = np.unique(np.concatenate([p for _, p, _ in plan])) if plan else np.zeros(0, np.int64)
-    seed = design.stream(_STREAM) if rng is None else as_seed_sequence(rng)
+    seed = design.stream(Stream.POWER) if rng is None else as_seed_sequence(rng)
     details: dict = {"probabilities": probs, "used": used}
     results: list[ContrastPower] = []
     if used.size:
