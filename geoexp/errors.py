@@ -18,6 +18,7 @@ __all__ = [
     "DesignError",
     "InfeasibleDesignError",
     "LockedTrialError",
+    "MissingPackageError",
     "describe_rows",
 ]
 
@@ -48,6 +49,10 @@ class InfeasibleDesignError(DesignError):
 
 class LockedTrialError(GeoexpError):
     """A trial's assignment is locked and would be overwritten."""
+
+
+class MissingPackageError(GeoexpError, ImportError):
+    """An optional Python package that a requested feature needs is not installed."""
 
 
 def describe_rows(rows: Iterable[object], limit: int = 10) -> str:

@@ -8,6 +8,7 @@ import pytest
 from scipy.spatial.distance import cdist
 from scipy.stats import hypergeom
 
+from geoexp._engine import numba_module
 from geoexp.design import CompleteSampler, Draws
 from geoexp.errors import InputError
 from geoexp.exposure import (
@@ -16,8 +17,10 @@ from geoexp.exposure import (
     condition_indicators,
     exposure_probabilities,
 )
-from geoexp.exposure._kernels import HAVE_NUMBA, scatter_counts
+from geoexp.exposure._kernels import scatter_counts
 from geoexp.graph import ExposureGraph
+
+HAVE_NUMBA = numba_module() is not None
 
 
 def star_graph(n: int, band1: int, band2: int) -> ExposureGraph:

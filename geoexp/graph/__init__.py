@@ -28,6 +28,7 @@ import pyproj
 import scipy.sparse as sp
 import shapely
 
+from geoexp._engine import ENGINES, Engine
 from geoexp.errors import CRSError, GeometryError, InputError, describe_rows
 from geoexp.graph import _bands, _euclidean, _io, _moran, _network
 
@@ -37,7 +38,6 @@ if TYPE_CHECKING:
 __all__ = ["ExposureGraph"]
 
 Metric = Literal["euclidean", "network"]
-Engine = Literal["auto", "numba", "numpy"]
 
 
 @dataclass(frozen=True, eq=False)
@@ -185,7 +185,7 @@ class ExposureGraph:
         _check_distance(max_distance)
         if metric not in ("euclidean", "network"):
             raise InputError(f"metric must be 'euclidean' or 'network', got {metric!r}")
-        if engine not in ("auto", "numba", "numpy"):
+        if engine not in ENGINES:
             raise InputError(f"engine must be 'auto', 'numba' or 'numpy', got {engine!r}")
         if not (math.isfinite(snap_tolerance) and snap_tolerance >= 0):
             raise InputError(f"snap_tolerance must be >= 0 metres, got {snap_tolerance!r}")
