@@ -226,8 +226,11 @@ def _autocorrelation(design: Design, x: np.ndarray, cols: list[str]):
     """Moran's I of the first balance column within the first band, if it varies."""
     if not cols or np.ptp(x[:, 0]) == 0:
         return None
+    from geoexp.inference import moran  # inference needs the design package: import on use
+
     try:
-        return design.graph.moran(
+        return moran(
+            design.graph,
             x[:, 0],
             distance=design.mapping.band_edges[0],
             permutations=199,

@@ -30,7 +30,7 @@ import shapely
 
 from geoexp._engine import ENGINES, Engine
 from geoexp.errors import CRSError, GeometryError, InputError, describe_rows
-from geoexp.graph import _bands, _euclidean, _io, _moran, _network
+from geoexp.graph import _bands, _euclidean, _io, _network
 
 if TYPE_CHECKING:
     from geoexp.units import UnitSet
@@ -454,26 +454,6 @@ class ExposureGraph:
         rows = _bands.source_positions(sources, self.n)
         near = _bands.nearest_distance(self.indptr, self.indices, self.distances, rows, self.n)
         return np.flatnonzero(_bands.band_mask(near, rows, float(low), float(high)))
-
-    def moran(
-        self,
-        values,
-        *,
-        distance: float | None = None,
-        permutations: int = 999,
-        rng=None,
-    ) -> _moran.MoranResult:
-        """Moran's I of ``values`` (one per unit) among units within ``distance`` metres.
-
-        Binary weights, row-standardised; permutation p-value (Moran 1950;
-        Cliff & Ord 1981). ``distance`` defaults to the graph's ``max_distance``.
-        """
-        d = self.max_distance if distance is None else float(distance)
-        if d > self.max_distance + 1e-9:
-            raise InputError(f"the graph holds pairs up to {self.max_distance:g} m, not {d:g} m")
-        return _moran.moran(
-            self.indptr, self.indices, self.distances, values, d, int(permutations), rng
-        )
 
     # --------------------------------------------------------------------- io
     def save(self, path: str | os.PathLike[str]) -> None:
