@@ -365,3 +365,31 @@ def test_dependence_pairs_join_units_of_a_saturation_cluster():
     # 0 and 2 share cluster a; 1 is reached by 0, so 1-2 are linked too; 5 is linked to none
     assert {(0, 2), (2, 0), (1, 2), (0, 1), (3, 4)} <= pairs
     assert not any(5 in p for p in pairs)
+
+
+def test_banded_reach_is_built_once_and_classifies_like_the_mapping():
+    from geoexp.exposure import BandedReach, band_codes
+
+    rng = np.random.default_rng(11)
+    xy = rng.uniform(0, 500, size=(80, 2))
+    d = cdist(xy, xy)
+    i, j = np.nonzero(np.triu(d <= 300.0, k=1))
+    graph = ExposureGraph.from_pairs(np.arange(80), i, j, d[i, j], max_distance=300.0)
+    mapping = ExposureMapping((100.0, 200.0))
+    reach = BandedReach.of(graph, mapping)
+    assert BandedReach.of(graph, mapping) is reach  # the graph is cut and classified once
+    assert not reach.codes.flags.writeable
+    # brute force from the full distance matrix: pairs within 200 m, bands closed on the right
+    rows = np.repeat(np.arange(80), np.diff(reach.indptr))
+    expected = {(a, b) for a, b in zip(*np.nonzero((d <= 200.0) & (d > 0)), strict=True)}
+    assert set(zip(rows.tolist(), reach.indices.tolist(), strict=True)) == expected
+    assert np.array_equal(reach.codes, np.where(d[rows, reach.indices] <= 100.0, 1, 2))
+    assert np.array_equal(reach.codes, mapping.band_of(reach.distances))
+    # an edge value belongs to the lower band, beyond the last edge is pure control
+    assert band_codes(np.array([0.0, 100.0, 100.5, 200.0, 250.0]), (100.0, 200.0)).tolist() == [
+        1,
+        1,
+        2,
+        2,
+        3,
+    ]

@@ -426,3 +426,10 @@ def test_synthetic_grid_parcels():
     assert set(np.round(graph.distances, 9)) == {10.0, round(10 * np.sqrt(2), 9)}
     with pytest.raises(InputError):
         synthetic_grid(-1)
+
+
+def test_within_open_drops_pairs_exactly_at_the_distance():
+    graph = ExposureGraph.from_pairs(np.arange(3), [0, 1], [1, 2], [50.0, 80.0], max_distance=100.0)
+    assert graph.within(50.0).indices.size == 2  # the pair 0-1, both directions
+    assert graph.within(50.0, closed=False).indices.size == 0
+    assert graph.within(80.0, closed=False).indices.size == 2

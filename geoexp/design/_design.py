@@ -247,11 +247,8 @@ def _quotas(spec: DesignSpec, blocks: np.ndarray) -> dict[str, int]:
 
 def _gap_csr(graph: ExposureGraph, gap: float) -> tuple[np.ndarray, np.ndarray]:
     """CSR of the pairs strictly closer than ``gap`` (a pair exactly at the gap is allowed)."""
-    keep = graph.distances < gap
-    rows = np.repeat(np.arange(graph.n), np.diff(graph.indptr))
-    counts = np.bincount(rows[keep], minlength=graph.n)
-    indptr = np.concatenate(([0], np.cumsum(counts))).astype(np.int64)
-    return indptr, graph.indices[keep]
+    near = graph.within(gap, closed=False)
+    return near.indptr, near.indices
 
 
 def _build_sampler(spec, units, eligible, graph, mapping):

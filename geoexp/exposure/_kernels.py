@@ -15,20 +15,10 @@ import numpy as np
 import scipy.sparse as sp
 
 from geoexp._engine import compile_kernels, compute_threads, jit, numba_module, resolve_engine
+from geoexp.exposure._reach import band_codes
 
 # Largest number of (draw, neighbour) triples the numpy twin holds at once.
 _TRIPLES_PER_CHUNK = 4_000_000
-
-
-def band_codes(g_dist: np.ndarray, edges: np.ndarray) -> np.ndarray:
-    """Condition code of every graph entry: 1 + the number of band edges below its distance.
-
-    Entries beyond the outermost band get ``edges.size + 1`` (pure control, i.e.
-    not reached). The code is monotone in the distance, so the nearest treated
-    unit's band is the smallest code among the treated neighbours: the kernels
-    take minima of these one-byte codes instead of float distances.
-    """
-    return (np.searchsorted(edges, g_dist, side="left") + 1).astype(np.int8)
 
 
 def _spread_impl(start, stop, d_indices, g_indptr, g_indices, g_code, best, touched, pc):
@@ -158,30 +148,6 @@ def touched_codes_numpy(
     best[reached] = pc
     best[treated_key] = pc
     return key // n_units, key % n_units, code.astype(np.int64)
-
-
-def touched_conditions_numpy(
-    d_indptr: np.ndarray,
-    d_indices: np.ndarray,
-    g_indptr: np.ndarray,
-    g_indices: np.ndarray,
-    g_dist: np.ndarray,
-    edges: np.ndarray,
-    n_units: int,
-) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Untreated units reached by a chunk of draws: (draw, unit, condition code), unique pairs.
-
-    Draws are rows of the CSR ``(d_indptr, d_indices)``, local to this chunk.
-    """
-    return touched_codes_numpy(
-        np.asarray(d_indptr, dtype=np.int64),
-        np.asarray(d_indices, dtype=np.int64),
-        np.asarray(g_indptr, dtype=np.int64),
-        g_indices,
-        band_codes(g_dist, edges),
-        n_units,
-        edges.size + 2,
-    )
 
 
 # Largest (draw, unit) scratch of the numpy twin, in entries (5 bytes each).

@@ -354,13 +354,20 @@ class ExposureGraph:
             }
         )
 
-    def within(self, distance: float) -> ExposureGraph:
-        """Keep only pairs at most ``distance`` metres apart.
+    def within(self, distance: float, *, closed: bool = True) -> ExposureGraph:
+        """Keep only pairs at most ``distance`` metres apart (strictly closer if not ``closed``).
+
+        The one way the project cuts the graph at a distance: the spillover
+        reach (closed: a unit exactly at the outermost edge is in the band),
+        the kept-apart gap (open: two units exactly the gap apart are allowed)
+        and the neighbours of Moran's I.
 
         Parameters
         ----------
         distance : float
             New maximum distance in metres, ``0 < distance <= max_distance``.
+        closed : bool
+            Keep pairs exactly ``distance`` apart (default) or drop them.
 
         Returns
         -------
@@ -372,7 +379,7 @@ class ExposureGraph:
                 f"cannot widen a graph built to {self.max_distance:g} m to {distance:g} m; "
                 "build it again with the larger distance"
             )
-        keep = self.distances <= distance
+        keep = self.distances <= distance if closed else self.distances < distance
         rows = np.repeat(np.arange(self.n, dtype=np.int64), self.degree)
         indptr = np.zeros(self.n + 1, dtype=np.int64)
         np.cumsum(np.bincount(rows[keep], minlength=self.n), out=indptr[1:])
