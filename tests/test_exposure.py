@@ -41,8 +41,9 @@ def point_graph(points: np.ndarray, max_distance: float) -> ExposureGraph:
 
 
 def test_complete_randomization_matches_hypergeometric():
-    # CHECKS.md section 1 [A]/[L]: with m of n treated, the number of treated units among a
-    # control unit's g band neighbours is hypergeometric(M = n - 1, n = g, N = m).
+    # [A]/[L] Aronow & Samii (2017) exposure probabilities: with m of n treated, the number of
+    # treated units among a control unit's g band neighbours is scipy.stats.hypergeom(M = n - 1,
+    # n = g, N = m); pi(control, none in band) = C(n-1-g, m)/C(n, m).
     n, m, g1, g2 = 10, 3, 2, 3
     graph = star_graph(n, g1, g2)
     mapping = ExposureMapping((150.0, 300.0))
@@ -60,7 +61,7 @@ def test_complete_randomization_matches_hypergeometric():
         ]
     )
     assert np.all(np.abs(p - expected) <= 4 * np.maximum(se, 1e-12))
-    # the worked example of CHECKS.md section 1 (n=10, m=3, g=2): control with a treated
+    # worked example (n=10, m=3, g=2; C(n-1-g, m)/C(n, m) and so on): control with a treated
     # neighbour 49/120, control with none 7/24 -- analytic, binomial coefficients
     one_band = exposure_probabilities(
         CompleteSampler(n, None, m), star_graph(n, 2, 0), ExposureMapping((150.0,)), r, rng=8
