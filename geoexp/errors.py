@@ -22,6 +22,7 @@ __all__ = [
     "TrialBusyError",
     "TrialWriteError",
     "TrialIntegrityError",
+    "MissingPackageError",
     "describe_rows",
 ]
 
@@ -68,6 +69,10 @@ class TrialWriteError(GeoexpError, OSError):
 
 class TrialIntegrityError(InputError):
     """A trial file's contents no longer match the fingerprints recorded when they were written."""
+
+
+class MissingPackageError(GeoexpError, ImportError):
+    """An optional Python package that a requested feature needs is not installed."""
 
 
 def describe_rows(rows: Iterable[object], limit: int = 10) -> str:

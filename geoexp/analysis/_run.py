@@ -10,6 +10,7 @@ from typing import Literal
 import numpy as np
 import pandas as pd
 
+from geoexp._rng import Stream
 from geoexp.analysis._verdict import Verdict, direct_verdict, spillover_verdict
 from geoexp.design import Assignment, CompleteSampler, Design, SaturationSampler
 from geoexp.errors import InputError
@@ -224,7 +225,9 @@ def analyse(
     pc = mapping.pure_control
     observed = assignment.conditions.astype(np.int64)
     r_prob = design.spec.draws
-    bits = condition_bits(design.sampler, design.graph, mapping, r_prob, design.stream(1))
+    bits = condition_bits(
+        design.sampler, design.graph, mapping, r_prob, design.stream(Stream.MONTE_CARLO)
+    )
     probs = bits.probabilities()
     notes = []
     stored = tf.read("probabilities") if "probabilities" in tf.layers else None
@@ -369,7 +372,7 @@ def _random_focal_units(design: Design, probs: np.ndarray, band: int) -> np.ndar
     """
     pc = design.mapping.pure_control
     candidates = np.flatnonzero((probs[:, band] > 0) & (probs[:, pc] > 0))
-    rng = np.random.default_rng(design.stream(20 + band))
+    rng = np.random.default_rng(design.stream(Stream.FOCAL_UNITS, band))
     return np.sort(rng.choice(candidates, size=candidates.size // 2, replace=False))
 
 

@@ -8,6 +8,7 @@ from typing import TYPE_CHECKING
 import numpy as np
 import pandas as pd
 
+from geoexp._rng import Stream
 from geoexp._tables import markdown_table
 from geoexp.errors import DesignError
 from geoexp.exposure import ExposureProbabilities, PositivityReport
@@ -225,9 +226,15 @@ def _autocorrelation(design: Design, x: np.ndarray, cols: list[str]):
     """Moran's I of the first balance column within the first band, if it varies."""
     if not cols or np.ptp(x[:, 0]) == 0:
         return None
+    from geoexp.inference import moran  # inference needs the design package: import on use
+
     try:
-        return design.graph.moran(
-            x[:, 0], distance=design.mapping.band_edges[0], permutations=199, rng=design.stream(40)
+        return moran(
+            design.graph,
+            x[:, 0],
+            distance=design.mapping.band_edges[0],
+            permutations=199,
+            rng=design.stream(Stream.MORAN),
         )
     except ValueError:
         return None

@@ -9,7 +9,7 @@ from typing import Literal
 import numpy as np
 import pandas as pd
 
-from geoexp._rng import RngLike, child_sequence
+from geoexp._rng import RngLike, Stream, purpose_sequence
 from geoexp.design._assignment import Assignment
 from geoexp.design._build import build_sampler, eligible_for, units_for
 from geoexp.design._fingerprint import DesignFingerprint, design_fingerprint
@@ -124,12 +124,11 @@ class Design:
     @property
     def seed_streams(self) -> tuple[np.random.SeedSequence, np.random.SeedSequence]:
         """(assignment stream, Monte Carlo stream), both children of the spec's seed."""
-        root = np.random.SeedSequence(self.spec.seed)
-        return child_sequence(root, 0), child_sequence(root, 1)
+        return self.stream(Stream.ASSIGNMENT), self.stream(Stream.MONTE_CARLO)
 
-    def stream(self, purpose: int) -> np.random.SeedSequence:
-        """Child stream ``purpose`` of the spec's seed (0 assignment, 1 Monte Carlo, 2+ tests)."""
-        return child_sequence(np.random.SeedSequence(self.spec.seed), purpose)
+    def stream(self, purpose: Stream, index: int = 0) -> np.random.SeedSequence:
+        """The spec seed's stream for ``purpose`` (and ``index``: a band, a contrast); see Stream."""
+        return purpose_sequence(np.random.SeedSequence(self.spec.seed), purpose, index)
 
     @property
     def fingerprint(self) -> DesignFingerprint:

@@ -14,6 +14,7 @@ from geoexp.exposure._joint import (
     condition_bits,
     condition_indicators,
     dependence_pairs,
+    unpack_bits,
 )
 from geoexp.exposure._mapping import ExposureMapping
 from geoexp.exposure._probabilities import (
@@ -21,10 +22,15 @@ from geoexp.exposure._probabilities import (
     ExposureProbabilities,
     PositivityReport,
     assign_conditions,
+    condition_sums,
     exposure_probabilities,
 )
+from geoexp.exposure._reach import BandedReach, band_codes
 
 __all__ = [
+    "BandedReach",
+    "band_codes",
+    "condition_sums",
     "ConditionBits",
     "condition_bits",
     "dependence_pairs",
@@ -36,4 +42,5 @@ __all__ = [
     "assign_conditions",
     "condition_indicators",
     "exposure_probabilities",
+    "unpack_bits",
 ]

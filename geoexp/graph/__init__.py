@@ -28,8 +28,9 @@ import pyproj
 import scipy.sparse as sp
 import shapely
 
+from geoexp._engine import ENGINES, Engine
 from geoexp.errors import CRSError, GeometryError, InputError, describe_rows
-from geoexp.graph import _bands, _euclidean, _io, _moran, _network
+from geoexp.graph import _bands, _euclidean, _io, _network
 
 if TYPE_CHECKING:
     from geoexp.units import UnitSet
@@ -37,7 +38,6 @@ if TYPE_CHECKING:
 __all__ = ["ExposureGraph"]
 
 Metric = Literal["euclidean", "network"]
-Engine = Literal["auto", "numba", "numpy"]
 
 
 @dataclass(frozen=True, eq=False)
@@ -185,7 +185,7 @@ class ExposureGraph:
         _check_distance(max_distance)
         if metric not in ("euclidean", "network"):
             raise InputError(f"metric must be 'euclidean' or 'network', got {metric!r}")
-        if engine not in ("auto", "numba", "numpy"):
+        if engine not in ENGINES:
             raise InputError(f"engine must be 'auto', 'numba' or 'numpy', got {engine!r}")
         if not (math.isfinite(snap_tolerance) and snap_tolerance >= 0):
             raise InputError(f"snap_tolerance must be >= 0 metres, got {snap_tolerance!r}")
@@ -354,13 +354,20 @@ class ExposureGraph:
             }
         )
 
-    def within(self, distance: float) -> ExposureGraph:
-        """Keep only pairs at most ``distance`` metres apart.
+    def within(self, distance: float, *, closed: bool = True) -> ExposureGraph:
+        """Keep only pairs at most ``distance`` metres apart (strictly closer if not ``closed``).
+
+        The one way the project cuts the graph at a distance: the spillover
+        reach (closed: a unit exactly at the outermost edge is in the band),
+        the kept-apart gap (open: two units exactly the gap apart are allowed)
+        and the neighbours of Moran's I.
 
         Parameters
         ----------
         distance : float
             New maximum distance in metres, ``0 < distance <= max_distance``.
+        closed : bool
+            Keep pairs exactly ``distance`` apart (default) or drop them.
 
         Returns
         -------
@@ -372,7 +379,7 @@ class ExposureGraph:
                 f"cannot widen a graph built to {self.max_distance:g} m to {distance:g} m; "
                 "build it again with the larger distance"
             )
-        keep = self.distances <= distance
+        keep = self.distances <= distance if closed else self.distances < distance
         rows = np.repeat(np.arange(self.n, dtype=np.int64), self.degree)
         indptr = np.zeros(self.n + 1, dtype=np.int64)
         np.cumsum(np.bincount(rows[keep], minlength=self.n), out=indptr[1:])
@@ -454,26 +461,6 @@ class ExposureGraph:
         rows = _bands.source_positions(sources, self.n)
         near = _bands.nearest_distance(self.indptr, self.indices, self.distances, rows, self.n)
         return np.flatnonzero(_bands.band_mask(near, rows, float(low), float(high)))
-
-    def moran(
-        self,
-        values,
-        *,
-        distance: float | None = None,
-        permutations: int = 999,
-        rng=None,
-    ) -> _moran.MoranResult:
-        """Moran's I of ``values`` (one per unit) among units within ``distance`` metres.
-
-        Binary weights, row-standardised; permutation p-value (Moran 1950;
-        Cliff & Ord 1981). ``distance`` defaults to the graph's ``max_distance``.
-        """
-        d = self.max_distance if distance is None else float(distance)
-        if d > self.max_distance + 1e-9:
-            raise InputError(f"the graph holds pairs up to {self.max_distance:g} m, not {d:g} m")
-        return _moran.moran(
-            self.indptr, self.indices, self.distances, values, d, int(permutations), rng
-        )
 
     # --------------------------------------------------------------------- io
     def save(self, path: str | os.PathLike[str]) -> None:

@@ -6,7 +6,7 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
-from geoexp._rng import RngLike
+from geoexp._rng import RngLike, Stream
 from geoexp.inference._draws import ContrastSpec, draw_sums, weight_columns
 
 if TYPE_CHECKING:
@@ -46,7 +46,7 @@ def invert_constant_effect(
     k, l = contrast.k, contrast.l
     n_cond = probabilities.shape[1]
     cols = weight_columns(y, probabilities, contrast, observed)
-    rng = design.stream(10 + k) if rng is None else rng
+    rng = design.stream(Stream.INVERSION, k) if rng is None else rng
     sums = draw_sums(design.sampler, design.graph, design.mapping, cols, n_draws, rng)
     obs_k = cols[observed == k].sum(axis=0)
     obs_l = cols[observed == l].sum(axis=0)

@@ -26,9 +26,9 @@ from typing import TYPE_CHECKING
 import numpy as np
 import pandas as pd
 
-from geoexp._rng import RngLike, as_seed_sequence, child_sequence
+from geoexp._rng import RngLike, Stream, as_seed_sequence, child_sequence
 from geoexp.errors import InputError
-from geoexp.exposure import condition_bits
+from geoexp.exposure import condition_bits, unpack_bits
 from geoexp.inference import default_focal_units, significance
 from geoexp.inference._conditional import MIN_FOCAL
 from geoexp.inference._significance import Alternative
@@ -41,7 +41,6 @@ _WORD = 64
 # unpacked bits and their products are float64: significance() counts ties within a
 # relative 1e-9, which float32 sums of thousands of weights would not honour
 _BLOCK_BYTES = 32 * 2**20
-_STREAM = 30  # child stream of the spec's seed used by power (0-29 are the design's and tests')
 
 
 @dataclass(frozen=True)
@@ -140,20 +139,12 @@ def _num(value: float, digits: int) -> str:
     return f"{value:.{digits}f}" if np.isfinite(value) else "-"
 
 
-def _unpack(words: np.ndarray) -> np.ndarray:
-    """(rows, 64 * n_words) uint8 indicators; bit r % 64 of word r // 64 is draw r."""
-    words = np.ascontiguousarray(words, dtype="<u8")
-    return np.unpackbits(
-        words.view(np.uint8).reshape(words.shape[0], -1), axis=1, bitorder="little"
-    )
-
-
 def _sim_conditions(bits: np.ndarray, n_sims: int) -> np.ndarray:
     """Condition code of every held unit in draws 0 .. n_sims - 1: (n_held, n_sims)."""
     n_words = -(-n_sims // _WORD)
     out = np.zeros((bits.shape[1], n_sims), dtype=np.intp)
     for c in range(bits.shape[0]):
-        out[_unpack(bits[c][:, :n_words])[:, :n_sims].astype(bool)] = c
+        out[unpack_bits(bits[c][:, :n_words])[:, :n_sims].astype(bool)] = c
     return out
 
 
@@ -201,8 +192,8 @@ def _contrast_draws(
         lo = max(first, w * _WORD) - w * _WORD
         hi = min(end, w_end * _WORD) - w * _WORD
         out = slice(w * _WORD + lo - first, w * _WORD + hi - first)
-        uk = _unpack(bits[k][rows, w:w_end])[:, lo:hi].astype(np.float64)
-        ul = _unpack(bits[l][rows, w:w_end])[:, lo:hi].astype(np.float64)
+        uk = unpack_bits(bits[k][rows, w:w_end])[:, lo:hi].astype(np.float64)
+        ul = unpack_bits(bits[l][rows, w:w_end])[:, lo:hi].astype(np.float64)
         sk = uk.T @ wk
         sl = ul.T @ wl
         null[out] = _hajek(sk[:, :n_sims], sk[:, n_sims:], sl[:, :n_sims], sl[:, n_sims:])
@@ -337,7 +328,7 @@ def _simulate(
     n_prob = int(n_draws_probabilities or design.spec.draws)
     # the very probabilities the analysis will use: the design's Monte Carlo stream
     probs = condition_bits(
-        design.sampler, design.graph, mapping, n_prob, design.stream(1)
+        design.sampler, design.graph, mapping, n_prob, design.stream(Stream.MONTE_CARLO)
     ).probabilities()
 
     notes: list[str] = []
@@ -362,7 +353,7 @@ def _simulate(
         plan.append((k, population, test))
 
     used = np.unique(np.concatenate([p for _, p, _ in plan])) if plan else np.zeros(0, np.int64)
-    seed = design.stream(_STREAM) if rng is None else as_seed_sequence(rng)
+    seed = design.stream(Stream.POWER) if rng is None else as_seed_sequence(rng)
     details: dict = {"probabilities": probs, "used": used}
     results: list[ContrastPower] = []
     if used.size:
