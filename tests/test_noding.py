@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import warnings
 
+import geopandas as gpd
 import networkx as nx
 import numpy as np
 import pytest
@@ -11,6 +12,7 @@ import shapely
 from shapely.ops import split
 
 from geoexp.graph import ExposureGraph, NetworkWarning, network_diagnostics
+from geoexp.sampleregion import synthetic_grid
 
 H, V = 4, 5  # long horizontal and vertical streets, 100 m apart
 BAND = 150.0
@@ -260,3 +262,60 @@ def test_network_record_survives_save_and_within(tmp_path):
     assert again.network == graph.network
     assert graph.within(100.0).network == graph.network
     assert "split where they cross" in graph.network.describe()
+
+
+def test_noded_grid_meets_only_at_shared_ends():
+    # A layer split at every junction: each pair of segments that intersects
+    # (shapely/GEOS ``intersection``, over all pairs here) meets at one shared
+    # end point, so every meeting is a shared end and nothing is added.
+    grid = synthetic_grid(300, jitter=5.0, seed=4)
+    geoms = np.asarray(grid.geometry.values, dtype=object)
+    i, j = np.triu_indices(len(geoms), k=1)
+    meet = shapely.intersection(geoms[i], geoms[j])
+    n_points = int(shapely.get_num_geometries(meet[~shapely.is_empty(meet)]).sum())
+    graph = ExposureGraph.from_geometries(geoms, 200.0, metric="network", split_at_crossings=True)
+    info = graph.network
+    assert info.shared_ends == n_points > 0
+    assert info.crossings == info.touches == info.nodes_added == 0
+
+
+def test_overlapping_segments_with_a_shared_end():
+    # Two straight segments from (0, 0) along the same ray overlap from 0 to 5:
+    # the overlap's far end (5, 0) is an end of the short one inside the long one.
+    geoms = shapely.linestrings([[(0, 0), (10, 0)], [(0, 0), (5, 0)], [(0, 0), (0, 7)]])
+    with pytest.warns(NetworkWarning, match="1 touches"):
+        graph = ExposureGraph.from_geometries(geoms, 50.0, metric="network", snap_tolerance=0.0)
+    info = graph.network
+    assert info.overlaps == 1
+    assert info.touches == 1  # (5, 0): end of the short segment, middle of the long one
+    assert info.shared_ends == 3  # (0, 0) for each of the three pairs
+
+
+def test_bridge_column_of_a_unit_set():
+    from geoexp.errors import InputError
+    from geoexp.units import UnitSet
+
+    geoms, marks = _layer()
+    frame = gpd.GeoDataFrame(
+        {"seg": np.arange(len(geoms)) * 10, "level": np.where(marks, 1, 0)},
+        geometry=list(geoms),
+        crs="EPSG:32633",
+    )
+    units = UnitSet.from_frame(frame, "seg")
+    graph = ExposureGraph.from_units(
+        units, BAND, metric="network", split_at_crossings=True, bridge_column="level"
+    )
+    plain = ExposureGraph.from_geometries(
+        geoms, BAND, metric="network", split_at_crossings=True, grade_separated=marks
+    )
+    np.testing.assert_array_equal(graph.distances, plain.distances)
+    assert graph.network == plain.network
+    found = network_diagnostics(units, BAND, split_at_crossings=True, bridge_column="level")
+    assert found.network.kept_apart == 2 and found.warnings == ()
+    with pytest.raises(InputError, match="'levle'"):
+        ExposureGraph.from_units(units, BAND, metric="network", bridge_column="levle")
+    holes = frame.assign(level=np.where(marks, 1.0, np.nan))
+    with pytest.raises(InputError, match="empty for ids 0, 10"):
+        ExposureGraph.from_units(
+            UnitSet.from_frame(holes, "seg"), BAND, metric="network", bridge_column="level"
+        )

@@ -165,10 +165,14 @@ def find_meetings(
     a, b = tree.query(geoms, predicate="intersects")
     keep = a < b
     a, b = a[keep], b[keep]
-    meet = shapely.intersection(geoms[a], geoms[b])
+    start = shapely.get_coordinates(shapely.get_point(geoms, 0))
+    stop = shapely.get_coordinates(shapely.get_point(geoms, -1))
+    fast, fast_xy = _shared_end_only(geoms, a, b, start, stop)
+    slow = np.flatnonzero(~fast)
+    meet = shapely.intersection(geoms[a[slow]], geoms[b[slow]])
     parts, owner = shapely.get_parts(meet, return_index=True)
     parts, second = shapely.get_parts(parts, return_index=True)
-    owner = owner[second]
+    owner = slow[owner[second]]
     kind = shapely.get_type_id(parts)
     linear = kind != 0
     overlaps = int(np.unique(owner[linear]).size)
@@ -184,11 +188,9 @@ def find_meetings(
     pair = np.column_stack([owner, xy])
     if len(pair):
         pair = np.unique(pair, axis=0)
-    owner, xy = pair[:, 0].astype(np.int64), pair[:, 1:]
+    owner = np.concatenate([np.flatnonzero(fast), pair[:, 0].astype(np.int64)])
+    xy = np.concatenate([fast_xy, pair[:, 1:]])
     la, lb = a[owner], b[owner]
-
-    start = shapely.get_coordinates(shapely.get_point(geoms, 0))
-    stop = shapely.get_coordinates(shapely.get_point(geoms, -1))
 
     def near_end(line: np.ndarray) -> np.ndarray:
         d0 = np.hypot(*(xy - start[line]).T)
@@ -224,6 +226,32 @@ def find_meetings(
         nodes_added=0,
     )
     return Meetings(info, node_line, node_xy)
+
+
+def _shared_end_only(geoms, a, b, start, stop) -> tuple[np.ndarray, np.ndarray]:
+    """Pairs of straight segments that meet only at one shared end point, and that point.
+
+    Most pairs of a layer split at junctions are such; they need no GEOS
+    intersection. Two straight segments with exactly one common end point P
+    meet elsewhere only when they overlap: other ends A and B on the same ray
+    from P (cross product 0, dot product > 0).
+    """
+    count = shapely.get_num_coordinates(geoms)
+    straight = (count[a] == 2) & (count[b] == 2)
+    sa, ea, sb, eb = start[a], stop[a], start[b], stop[b]
+    ss = (sa == sb).all(axis=1)
+    se = (sa == eb).all(axis=1)
+    es = (ea == sb).all(axis=1)
+    ee = (ea == eb).all(axis=1)
+    one = (ss.astype(np.int8) + se + es + ee) == 1
+    at_start_a = ss | se
+    p = np.where(at_start_a[:, None], sa, ea)
+    u = np.where(at_start_a[:, None], ea, sa) - p
+    v = np.where((ss | es)[:, None], eb, sb) - p
+    cross = u[:, 0] * v[:, 1] - u[:, 1] * v[:, 0]
+    dot = (u * v).sum(axis=1)
+    fast = straight & one & ~((cross == 0) & (dot > 0))
+    return fast, p[fast]
 
 
 def split_lines(
