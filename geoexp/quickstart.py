@@ -9,13 +9,14 @@ import geopandas as gpd
 import pandas as pd
 import shapely
 
-from geoexp.analysis import analyse, save_results, write_report
+from geoexp.analysis import analyse, save_results
 from geoexp.briefing import briefing_pack
 from geoexp.cautions import CAUTION
 from geoexp.design import Design, DesignSpec, check_design
 from geoexp.maps import planning_map, save_map
 from geoexp.outcomes import count_incidents, save_outcomes
 from geoexp.power import NegativeBinomialOutcome, simulate_power
+from geoexp.report import write_report
 from geoexp.sampleregion import DEMO_MULTIPLIERS, load_sample_region, simulate_trial_incidents
 from geoexp.trialfile import TrialFile, export_assignment_csv, write_trial
 

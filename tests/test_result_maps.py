@@ -240,8 +240,7 @@ def _images(text: str) -> dict[str, bytes]:
 def test_report_with_a_trial_embeds_the_result_map(analysis, trial, tmp_path):
     from PIL import Image
 
-    from geoexp.analysis import write_report
-    from geoexp.analysis._report import RESULT_MAP_TITLE
+    from geoexp.report import RESULT_MAP_TITLE, write_report
 
     link = save_result_map(analysis, trial, tmp_path / "results_map.html")
     report, md = write_report(analysis, tmp_path / "report.html", trial=trial, result_map_html=link)
@@ -258,8 +257,7 @@ def test_report_with_a_trial_embeds_the_result_map(analysis, trial, tmp_path):
 
 
 def test_report_without_a_trial_is_as_before(analysis, tmp_path):
-    from geoexp.analysis import write_report
-    from geoexp.analysis._report import RESULT_MAP_TITLE
+    from geoexp.report import RESULT_MAP_TITLE, write_report
 
     report, _ = write_report(analysis, tmp_path / "report.html")
     text = report.read_text(encoding="utf-8")

@@ -264,7 +264,8 @@ def analyse_command(
     With --incidents (and --pre, --post) the incidents are counted and stored
     first, so one command goes from the trial file and the incidents to the report.
     """
-    from geoexp.analysis import analyse, save_results, write_report
+    from geoexp.analysis import analyse, save_results
+    from geoexp.report import write_report
 
     if incidents is not None:
         if pre is None or post is None:
