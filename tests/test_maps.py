@@ -230,9 +230,9 @@ def test_save_map_atomic_and_fallback(trial, tmp_path, monkeypatch):
     assert out.read_text(encoding="utf-8").startswith("<!DOCTYPE html>")
     assert [p.name for p in out.parent.iterdir()] == ["plan.html"]  # no temporary left behind
 
-    # Without the package that ships Leaflet: a clear warning and content-network links.
+    # Without the shipped copies of Leaflet: a clear warning and content-network links.
     monkeypatch.setattr(_assets, "_find_bundle", lambda: None)
-    with pytest.warns(OfflineAssetWarning, match="django-leaflet"):
+    with pytest.warns(OfflineAssetWarning, match="shipped with geoexp"):
         save_map(planning_map(trial), tmp_path / "online.html")
     html = (tmp_path / "online.html").read_text(encoding="utf-8")
     assert re.search(r"<script src=\"https://[^\"]+/leaflet.js\"", html)

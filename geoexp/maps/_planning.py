@@ -999,11 +999,11 @@ def map_html(m) -> tuple[str, list[str]]:
 def save_map(m, path: str | os.PathLike) -> Path:
     """Write a map as one self-contained HTML page, atomically.
 
-    Leaflet and Leaflet.draw are inlined from the installed ``django-leaflet``
-    distribution, their stylesheet images become ``data:`` URIs, and folium's
-    unused links (jQuery, Bootstrap, icon fonts) are dropped, so the page
-    needs no network apart from base-map tiles. If that package is missing,
-    the page keeps content-network links and an ``OfflineAssetWarning`` says so.
+    Leaflet and Leaflet.draw are inlined from the copies shipped with geoexp,
+    their stylesheet images become ``data:`` URIs, and folium's unused links
+    (jQuery, Bootstrap, icon fonts) are dropped, so the page needs no network
+    apart from base-map tiles. If the shipped copies are missing, the page
+    keeps content-network links and an ``OfflineAssetWarning`` says so.
 
     Parameters
     ----------
