@@ -120,9 +120,15 @@ def run_demo(out: str | Path, *, n_draws: int = 2000, echo: Callable[[str], None
     echo(str(assignment))
     echo(f"Trial file (locked): {trial_path}")
     echo(f"Field list: {csv_path}")
-    map_path = save_map(planning_map(trial), out / "planning_map.html")
+    # The invented city lies in open ocean: a plain background instead of tiles, and its
+    # own district polygons, the same on the planning map, the pack and the result map.
+    map_path = save_map(
+        planning_map(trial, districts=region.districts, tiles=None), out / "planning_map.html"
+    )
     echo(f"Planning map (works offline): {map_path}")
-    pack_path = briefing_pack(trial, out / "briefing_a4.pdf", paper="a4")
+    pack_path = briefing_pack(
+        trial, out / "briefing_a4.pdf", paper="a4", district_polygons=region.districts
+    )
     echo(f"Briefing pack for field teams: {pack_path}")
 
     # After the trial. The sample city has invented incidents for 2024 and 2025; the trial
@@ -165,9 +171,15 @@ def run_demo(out: str | Path, *, n_draws: int = 2000, echo: Callable[[str], None
     from geoexp.maps import save_result_map
 
     finished = TrialFile.open(trial_path)
-    results_map = save_result_map(analysis, finished, out / "results_map.html")
+    results_map = save_result_map(
+        analysis, finished, out / "results_map.html", tiles=None, districts=region.districts
+    )
     report, report_md = write_report(
-        analysis, out / "report.html", trial=finished, result_map_html=results_map
+        analysis,
+        out / "report.html",
+        trial=finished,
+        result_map_html=results_map,
+        districts=region.districts,
     )
     echo(f"Interactive result map: {results_map}")
     echo(str(analysis))

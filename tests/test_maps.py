@@ -218,7 +218,7 @@ def test_sample_city_page_size(page):
 
 
 def test_sample_city_has_no_tiles_real_city_has(trial):
-    html, _ = map_html(planning_map(trial))
+    html, _ = map_html(planning_map(trial, tiles=None))
     assert "tile.openstreetmap.org" not in html
     html, _ = map_html(planning_map(trial, tiles="OpenStreetMap"))
     assert "tile.openstreetmap.org" in html

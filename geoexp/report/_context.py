@@ -13,6 +13,7 @@ import pandas as pd
 from matplotlib.figure import Figure
 
 from geoexp.cautions import CAUTION
+from geoexp.maps import PRINT_RC
 from geoexp.report._figures import distance_decay_plot, png_bytes
 
 if TYPE_CHECKING:
@@ -154,7 +155,7 @@ def _estimates(analysis: Analysis) -> pd.DataFrame:
 
 def _figure(draw: Callable, size: tuple[float, float]) -> bytes:
     # User text (trial names, labels) is text, never math: a "$" must not start a formula.
-    with matplotlib.rc_context({"text.parse_math": False}):
+    with matplotlib.rc_context({"text.parse_math": PRINT_RC["text.parse_math"]}):
         fig = Figure(figsize=size)
         draw(fig.subplots())
         return png_bytes(fig)
@@ -168,6 +169,7 @@ def report_context(
     extra_figures: dict[str, Callable] | None = None,
     result_map_html: str | Path | None = None,
     static_map: bool = True,
+    districts=None,
 ) -> ReportContext:
     """Gather the report of ``analysis`` into one :class:`ReportContext`.
 
@@ -186,7 +188,10 @@ def report_context(
         figures.append(
             ReportFigure(
                 RESULT_MAP_TITLE,
-                _figure(lambda ax: result_map_static(analysis, trial, ax=ax), (8.3, 8.3)),
+                _figure(
+                    lambda ax: result_map_static(analysis, trial, ax=ax, districts=districts),
+                    (8.3, 8.3),
+                ),
             )
         )
     for title, draw in (extra_figures or {}).items():

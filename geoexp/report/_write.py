@@ -60,6 +60,7 @@ def write_report(
     extra_figures: dict[str, Callable] | None = None,
     result_map_html: str | Path | None = None,
     static_map: bool = True,
+    districts=None,
 ) -> tuple[Path, Path]:
     """Write the report as HTML (plots embedded) and a Markdown twin beside it.
 
@@ -69,8 +70,10 @@ def write_report(
     ``static_map`` is true) the report also embeds the static result map of
     :func:`geoexp.maps.result_map_static`. ``result_map_html`` is the path of
     the interactive result map (from :func:`geoexp.maps.result_map`), linked
-    from both reports. Returns (html_path, markdown_path); the Markdown's
-    figures are PNG files beside it.
+    from both reports. ``districts`` (polygons, a path or GeoDataFrame) are
+    drawn on the static result map instead of outlines around each district's
+    units. Returns (html_path, markdown_path); the Markdown's figures are PNG
+    files beside it.
     """
     path = Path(path)
     md_path = path.with_suffix(".md")
@@ -81,6 +84,7 @@ def write_report(
         extra_figures=extra_figures,
         result_map_html=result_map_html,
         static_map=static_map,
+        districts=districts,
     )
     with atomic_path(path) as tmp:
         tmp.write_text(render_report(context, "html"), encoding="utf-8")
