@@ -65,7 +65,7 @@ class ReportFigure:
     png: bytes
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, eq=False)
 class ReportContext:
     """Everything the results report says; each format renders this one object.
 
