@@ -45,7 +45,9 @@ def map_axes(
     return ax
 
 
-def legend_handles(labels: dict[str, str], codes: Sequence[str]) -> list[Line2D]:
+def legend_handles(
+    labels: dict[str, str], codes: Sequence[str], district_label: str = "district (approx.)"
+) -> list[Line2D]:
     """Legend handles: each condition's print line, the numbered place, the district outline."""
     handles = [condition_handle(code, labels.get(code, code)) for code in codes]
     handles.append(
@@ -60,7 +62,7 @@ def legend_handles(labels: dict[str, str], codes: Sequence[str]) -> list[Line2D]
             label="numbered treated place",
         )
     )
-    handles.append(district_handle("district (approx.)"))
+    handles.append(district_handle(district_label))
     return handles
 
 

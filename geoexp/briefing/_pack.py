@@ -78,7 +78,14 @@ def briefing_pack(
     plan = plan_pages(data, paper, districts)
     printed_at = dt.datetime.now(dt.UTC).replace(microsecond=0).isoformat()
     found, _ = district_outlines(data.frame, "district", district_polygons)
-    outlines = gpd.GeoSeries(found.geometry.to_numpy(), index=found["name"], crs=found.crs)
+    # The series' name is the outlines' legend label: exact boundaries, or outlines drawn
+    # around each district's units.
+    outlines = gpd.GeoSeries(
+        found.geometry.to_numpy(),
+        index=found["name"],
+        crs=found.crs,
+        name="district" if district_polygons is not None else "district (approx.)",
+    )
     pages = Pages(data, plan, printed_at)
     path = Path(path)
     metadata = {

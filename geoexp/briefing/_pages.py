@@ -220,9 +220,9 @@ def overview(pages: Pages, outlines: gpd.GeoSeries) -> Figure:
         ax, crs=frame.crs, metres_per_unit=data.metres_per_unit, bounds=extent
     )
     handles = [
-        legend_handles(data.condition_labels, ["treated"])[0],
+        legend_handles(data.condition_labels, ["treated"], outlines.name)[0],
         Line2D([], [], color="0.6", linewidth=0.4, label="other units"),
-        *legend_handles(data.condition_labels, [])[-2:],
+        *legend_handles(data.condition_labels, [], outlines.name)[-2:],
     ]
     fig.legend(
         handles=handles,
@@ -455,7 +455,7 @@ def district_pages(pages: Pages, district: DistrictPages, outlines: gpd.GeoSerie
     )
     codes = condition_order(view["condition"].unique())
     fig.legend(
-        handles=legend_handles(data.condition_labels, codes),
+        handles=legend_handles(data.condition_labels, codes, outlines.name),
         loc="upper left",
         bbox_to_anchor=(lay.margin, map_bottom - 0.03),
         bbox_transform=fig.dpi_scale_trans,
