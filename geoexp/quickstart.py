@@ -118,9 +118,15 @@ def run_demo(out: str | Path, *, n_draws: int = 2000, echo: Callable[[str], None
     echo(str(assignment))
     echo(f"Trial file (locked): {trial_path}")
     echo(f"Field list: {csv_path}")
-    map_path = save_map(planning_map(trial), out / "planning_map.html")
+    # The invented city lies in open ocean: a plain background instead of tiles, and its
+    # own district polygons, the same on the planning map, the pack and the result map.
+    map_path = save_map(
+        planning_map(trial, districts=region.districts, tiles=None), out / "planning_map.html"
+    )
     echo(f"Planning map (works offline): {map_path}")
-    pack_path = briefing_pack(trial, out / "briefing_a4.pdf", paper="a4")
+    pack_path = briefing_pack(
+        trial, out / "briefing_a4.pdf", paper="a4", district_polygons=region.districts
+    )
     echo(f"Briefing pack for field teams: {pack_path}")
 
     # After the trial. The sample city has invented incidents for 2024 and 2025; the trial
@@ -162,6 +168,8 @@ def run_demo(out: str | Path, *, n_draws: int = 2000, echo: Callable[[str], None
         report=out / "report.html",
         result_map=out / "results_map.html",
         n_draws=n_draws,
+        districts=region.districts,
+        tiles=None,
     )
     analysis, report, report_md, results_map = (
         run.analysis,

@@ -22,8 +22,7 @@ from typing import Literal
 
 from geoexp._paths import check_outputs, writing
 from geoexp.analysis import Analysis
-from geoexp.outcomes import OutcomeTable
-from geoexp.outcomes._counts import MAX_DROPPED_SHARE
+from geoexp.outcomes import MAX_DROPPED_SHARE, OutcomeTable
 from geoexp.trialfile import TrialFile
 
 __all__ = ["AnalysisRun", "analyse_trial", "count_and_store", "report_outputs"]
@@ -166,6 +165,8 @@ def analyse_trial(
     estimator: Literal["hajek", "horvitz-thompson"] = "hajek",
     n_draws: int = 2000,
     level: float = 0.95,
+    districts=None,
+    tiles: str | None = "auto",
 ) -> AnalysisRun:
     """Analyse a trial file with stored outcomes; store the results; write map and report.
 
@@ -185,6 +186,11 @@ def analyse_trial(
         beside the report.
     outcome, estimator, n_draws, level
         As in :func:`geoexp.analysis.analyse`.
+    districts : path or GeoDataFrame, optional
+        District outlines drawn on the results map and the report's map.
+    tiles : str or None
+        Background tiles of the results map (``"auto"``: tiles only where the
+        units lie on land the tiles cover); ``None`` for a plain background.
 
     Returns
     -------
@@ -197,8 +203,9 @@ def analyse_trial(
         two outputs on the same file (checked before anything is written);
         a write that fails (the file and the reason are named).
     """
-    from geoexp.analysis import analyse, save_results, write_report
+    from geoexp.analysis import analyse, save_results
     from geoexp.maps import save_result_map
+    from geoexp.report import write_report
 
     outs = report_outputs(report, result_map)
     labels = {
@@ -211,9 +218,9 @@ def analyse_trial(
     with writing(trial, "trial file"):
         tf = save_results(trial, result)
     with writing(outs["result_map"], "results map"):
-        map_path = save_result_map(result, tf, outs["result_map"])
+        map_path = save_result_map(result, tf, outs["result_map"], tiles=tiles, districts=districts)
     with writing(outs["report"], "report"):
         html_path, md_path = write_report(
-            result, outs["report"], trial=tf, result_map_html=map_path
+            result, outs["report"], trial=tf, result_map_html=map_path, districts=districts
         )
     return AnalysisRun(result, Path(trial), Path(html_path), Path(md_path), Path(map_path))

@@ -12,7 +12,7 @@ import pyogrio
 import pyproj
 import pytest
 import shapely
-from hypothesis import HealthCheck, assume, given, settings
+from hypothesis import HealthCheck, assume, example, given, settings
 from hypothesis import strategies as st
 
 from geoexp.errors import CRSError, GeometryError, InputError
@@ -476,6 +476,7 @@ _JUNK = 10_000  # a day offset standing for an unreadable date
         max_size=60,
     )
 )
+@example(rows=[(0.0, 0.0, 366 + 365 - 1)])  # the last day of the post period is counted
 def test_counted_plus_dropped_is_every_incident(rows):
     # Two horizontal 100 m segments at y = 0 and y = 40 (metres above Y0).
     segs = _line_units(ids=(1, 2), ys=(0.0, 40.0))
@@ -516,7 +517,7 @@ def test_counted_plus_dropped_is_every_incident(rows):
     day = np.array([-(10**6) if v is None else v for *_, v in rows], dtype=np.int64)
     no_date = np.array([v is None for *_, v in rows], dtype=bool) & ~no_xy
     junk = (day == _JUNK) & ~no_xy
-    in_periods = (day >= 0) & (day <= 365 + 364)  # 2024 (366 days) and 2025 (365)
+    in_periods = (day >= 0) & (day <= 366 + 365 - 1)  # 2024 (366 days) and 2025 (365)
     outside = ~no_xy & ~no_date & ~junk & ~in_periods
     far = ~no_xy & ~no_date & ~junk & in_periods & (dist > 25.0)
     assert d.counts() == {
