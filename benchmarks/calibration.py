@@ -358,10 +358,15 @@ def _hajek_statistics(ind, y, observed, probs, k, pc, mask):
 # ---------------------------------------------------------------- outcomes and scenarios
 
 
-def potential_outcomes(ctx: Context, dispersion: float, seed: int):
-    """Potential changes (n, C, Q), scenario names, planted effect per scenario and row."""
+def potential_outcomes(ctx: Context, dispersion: float, seed: int, outcome: str = "change"):
+    """Potential outcomes (n, C, Q), scenario names, planted effect per scenario and row.
+
+    ``outcome`` is ``"change"`` (post minus pre, the analysis's default) or ``"post"``.
+    """
     frame = ctx.design.units.frame
     pre = frame["incidents_y2"].to_numpy(dtype=float)
+    if outcome == "post":
+        pre = np.zeros_like(pre)
     level = (frame["incidents_y1"] + frame["incidents_y2"]).to_numpy(dtype=float) / 2 + 0.05
     rng = np.random.default_rng(np.random.SeedSequence(seed, spawn_key=(99,)))
     if dispersion > 0:
@@ -448,8 +453,10 @@ def _rate(hits: np.ndarray) -> tuple[float, float]:
 # ---------------------------------------------------------------- the run
 
 
-def run_design(name, ctx, n_trials, n_full, n_draws, intervals, dispersion, seed, index, echo):
-    outcomes, names, planted = potential_outcomes(ctx, dispersion, seed)
+def run_design(
+    name, ctx, n_trials, n_full, n_draws, intervals, dispersion, seed, index, echo, outcome
+):
+    outcomes, names, planted = potential_outcomes(ctx, dispersion, seed, outcome)
     n_main = 3
     records: dict[str, list] = {}
     start = time.perf_counter()
@@ -464,7 +471,7 @@ def run_design(name, ctx, n_trials, n_full, n_draws, intervals, dispersion, seed
             n_main,
             full=t < n_full,
             intervals=intervals,
-            check=(t == 0),
+            check=(t == 0 < n_full),
         )
         for key, v in out.items():
             records.setdefault(key, []).append(v)
@@ -520,13 +527,16 @@ def main() -> None:
     parser.add_argument("--quick", action="store_true", help="a smoke run: 8 trials, 100 draws")
     parser.add_argument("--designs", default=",".join(DESIGNS), help="comma-separated kinds")
     parser.add_argument("--dispersion", type=float, default=0.5, help="NB2 dispersion (0: Poisson)")
+    parser.add_argument(
+        "--outcome", choices=["change", "post"], default="change", help="the analysed outcome"
+    )
     parser.add_argument("--seed", type=int, default=SEED, help="root seed")
     parser.add_argument("--no-intervals", action="store_true", help="skip test inversion")
     parser.add_argument("--out", default=str(Path(__file__).parent / "results"))
     args = parser.parse_args()
     if args.quick:
         args.trials, args.draws = min(args.trials, 8), min(args.draws, 100)
-    full = args.trials if args.full_trials is None else max(1, min(args.full_trials, args.trials))
+    full = args.trials if args.full_trials is None else max(0, min(args.full_trials, args.trials))
     args.full_trials = full
     kinds = [k.strip() for k in args.designs.split(",") if k.strip()]
     unknown = sorted(set(kinds) - set(DESIGNS))
@@ -575,13 +585,15 @@ def main() -> None:
                     args.seed,
                     index,
                     lambda s: print(s, flush=True),
+                    args.outcome,
                 )
             )
     table = pd.concat(tables, ignore_index=True)
     seconds = time.perf_counter() - total
     out = Path(args.out)
     out.mkdir(parents=True, exist_ok=True)
-    stem = f"calibration_{dt.date.today().isoformat()}_{commit}" + ("_quick" if args.quick else "")
+    stem = f"calibration_{dt.date.today().isoformat()}_{commit}"
+    stem += ("_post" if args.outcome == "post" else "") + ("_quick" if args.quick else "")
     table.to_csv(out / f"{stem}.csv", index=False, float_format="%.6g")
     text = markdown(table, args, commit, seconds)
     (out / f"{stem}.md").write_text(text, encoding="utf-8")
@@ -597,6 +609,10 @@ def _pct(x: float, se: float | None = None, digits: int = 1) -> str:
         return "-"
     s = f"{100 * x:.{digits}f}%"
     return s + (f" ± {100 * se:.{digits}f}" if se is not None and np.isfinite(se) else "")
+
+
+def _ratio(x: float) -> str:
+    return f"{x:.2f}" if np.isfinite(x) else "-"
 
 
 def _num(x: float, digits: int = 3) -> str:
@@ -617,8 +633,13 @@ def markdown(table: pd.DataFrame, args, commit: str, seconds: float) -> str:
         f"{args.trials} simulated trials per design ({args.full_trials} of them with standard "
         f"errors and intervals), {args.draws} randomization draws per test, "
         f"exposure probabilities from {args.prob_draws} draws of each design; NB2 dispersion "
-        f"{args.dispersion:g}; root seed {args.seed}; {seconds / 60:.1f} minutes. Outcome: change "
-        "in incidents per segment (post minus pre). Effects are incidents per segment; ± is one "
+        f"{args.dispersion:g}; root seed {args.seed}; {seconds / 60:.1f} minutes. Outcome: "
+        + (
+            "change in incidents per segment (post minus pre)"
+            if args.outcome == "change"
+            else "post-period incidents per segment"
+        )
+        + ". Effects are incidents per segment; ± is one "
         "Monte Carlo standard error. Rejection at alpha = 0.05; 'two-sided' is the library's rule "
         "(|T| >= |t|), 'eq-tailed' the equal-tailed rule from the same draws.",
         "",
@@ -632,7 +653,7 @@ def markdown(table: pd.DataFrame, args, commit: str, seconds: float) -> str:
         lines.append(
             f"| {r.design} | {r.scenario} | {r.row} | {_num(r.planted)} | {_num(r.mean_hajek)} "
             f"| {_bias(r, 'hajek')} | {_num(r.mean_ht)} | {_bias(r, 'ht')} "
-            f"| {r.se_over_sd_hajek:.2f} | {r.se_over_sd_ht:.2f} "
+            f"| {_ratio(r.se_over_sd_hajek)} | {_ratio(r.se_over_sd_ht)} "
             f"| {_pct(r.cover_hajek, r.mcse_cover_hajek, 0)} | {_pct(r.cover_ht, r.mcse_cover_ht, 0)} "
             f"| {_pct(r.cover_ri, r.mcse_cover_ri, 0)} |"
         )
@@ -721,7 +742,7 @@ def baseline_lines(table: pd.DataFrame) -> list[str]:
         )
     bands = table[table["scenario"].isin(["null", "additive", "rate ratio"])]
     bands = bands[bands["row"] != bands["row"].iloc[0]]
-    if len(bands):
+    if len(bands) and bands["se_over_sd_hajek"].notna().any():
         ratio = bands["se_over_sd_hajek"]
         out.append(
             f"- Before: {BASELINE['se_ratio']}. Now (Hajek, bands, all scenarios): "
