@@ -1,7 +1,8 @@
 """Calibration of the analysis: size, bias, coverage and power on the sample city.
 
-Run: python benchmarks/calibration.py [--trials 200] [--draws 500] [--quick]
-     [--designs complete,apart,blocked,saturation,rerandomized] [--out benchmarks/results]
+Run: PYTHONPATH=. python benchmarks/calibration.py [--trials 200] [--full-trials N]
+     [--draws 500] [--quick] [--outcome change|post] [--out benchmarks/results]
+     [--designs complete,apart,blocked,saturation,rerandomized]
 
 Five design kinds over the invented city's 150 hot-spot segments (the
 eligible units of :func:`geoexp.quickstart.demo_spec`, bands 150/300 m):
@@ -17,7 +18,8 @@ Outcomes are fixed potential outcomes (Neyman-Rubin): every segment's
 post-period count without treatment is drawn once from a negative binomial
 with the segment's mean over the city's two years of counts (dispersion
 ``--dispersion``); the pre-period is the city's second year. The analysed
-outcome is the change, post minus pre (the analysis's default). Scenarios:
+outcome is the change, post minus pre (the analysis's default), or with
+``--outcome post`` the post-period count. Scenarios:
 
 ``null``        no effect at all (sharp null);
 ``additive``    -5 incidents per treated segment, -0.5 in band 1, 0 in band 2;
