@@ -5,7 +5,7 @@ from __future__ import annotations
 import math
 from collections.abc import Mapping
 from dataclasses import dataclass, field
-from typing import Any, ClassVar
+from typing import Any, ClassVar, Literal
 
 import numpy as np
 import scipy.sparse
@@ -126,7 +126,7 @@ class SeparatedSampler(_Chunked):
     block_labels: np.ndarray = field(init=False, repr=False)
     pilot_success: float = field(init=False, repr=False)
     pilot_median: float = field(init=False, repr=False)
-    _engine: str = field(init=False, repr=False)
+    _engine: Literal["numba", "numpy"] = field(init=False, repr=False)
 
     def __post_init__(self) -> None:
         n_units, eligible = _layer(self.n_units, self.eligible)
