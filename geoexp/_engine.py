@@ -22,7 +22,7 @@ import warnings
 from collections.abc import Callable, Iterable, Iterator
 from contextlib import contextmanager
 from types import ModuleType
-from typing import Literal
+from typing import Any, Literal
 
 from geoexp.errors import InputError, MissingPackageError
 
@@ -30,7 +30,7 @@ Engine = Literal["auto", "numba", "numpy"]
 ENGINES = ("auto", "numba", "numpy")
 
 _UNSET = object()
-_numba: object = _UNSET
+_numba: Any = _UNSET
 _noted = False
 _compiled: dict = {}
 _controller: list = [None, -1]  # threadpoolctl controller and the module count it saw
@@ -46,7 +46,7 @@ def numba_module() -> ModuleType | None:
             _numba = None
         else:
             _numba = numba
-    return _numba  # type: ignore[return-value]
+    return _numba
 
 
 def resolve_engine(engine: Engine) -> Literal["numba", "numpy"]:
@@ -89,7 +89,8 @@ def jit(function: Callable, *, parallel: bool = False, inline: bool = False) -> 
         numba = numba_module()
         if numba is None:
             resolve_engine("numba")  # raises the error saying how to install it
-        options = {"cache": True}
+            raise AssertionError("unreachable: resolve_engine raised")
+        options: dict[str, Any] = {"cache": True}
         if inline:
             options["inline"] = "always"
         else:

@@ -1,4 +1,4 @@
-"""Tests of the invented sample city (geoexp.sampleregion._city)."""
+"""Tests of the invented sample city (geoexp.sampleregion: _city, _settings, _streets, _land)."""
 
 from __future__ import annotations
 
@@ -13,7 +13,7 @@ import shapely
 from scipy.stats import spearmanr
 
 from geoexp.errors import InputError
-from geoexp.sampleregion import SampleRegion, _city, load_sample_region, make_city
+from geoexp.sampleregion import SampleRegion, _city, _settings, load_sample_region, make_city
 
 SHIPPED = _city.DEFAULT_PATH
 
@@ -152,7 +152,7 @@ def test_segment_ids_unique_and_columns_filled(region):
     assert seg["segment_id"].str.fullmatch(r"S\d{5}").all()
     for col in ("street", "from_street", "to_street", "description", "district", "land_use"):
         assert (seg[col].str.len() > 0).all(), col
-    assert set(seg["land_use"]) <= set(_city.LAND_USES)
+    assert set(seg["land_use"]) <= set(_settings.LAND_USES)
     assert (seg.geometry.geom_type == "LineString").all()
     # geopandas computes length independently of the generator's column
     np.testing.assert_allclose(seg["length_m"], seg.geometry.length, rtol=1e-12)
@@ -237,7 +237,7 @@ def test_parcels(region):
     assert par["parcel_id"].is_unique and par["address"].is_unique
     assert (par.geometry.geom_type == "Polygon").all()
     assert par.geometry.is_valid.all()
-    assert set(par["land_use"]) == set(_city.LAND_USES)
+    assert set(par["land_use"]) == set(_settings.LAND_USES)
     assert set(par["district"]) <= set(region.districts["district"])
     assert par["address"].str.fullmatch(r"\d+ .+").all()
     # parcels tile blocks: several per block and none overlap (shapely STRtree)
@@ -258,7 +258,7 @@ def test_incident_columns(region):
     inc = region.incidents
     assert 12_000 <= len(inc) <= 20_000
     assert inc["incident_id"].is_unique
-    assert set(inc["incident_type"]) == set(_city.INCIDENT_TYPES)
+    assert set(inc["incident_type"]) == set(_settings.INCIDENT_TYPES)
     assert inc["date"].min() >= pd.Timestamp("2024-01-01")
     assert inc["date"].max() <= pd.Timestamp("2025-12-31")
     assert (inc["date"] == inc["date"].dt.normalize()).all()

@@ -209,12 +209,15 @@ def build_sampler(spec: DesignSpec, units: UnitSet, eligible: np.ndarray, graph,
     Parameters
     ----------
     spec : DesignSpec
+        The design spec (a pure value).
     units : UnitSet
+        The units the spec resolves to (:func:`units_for`).
     eligible : numpy.ndarray
         Boolean mask over the units.
     graph : ExposureGraph
         Wide enough for the bands and the gap.
     mapping : ExposureMapping
+        The exposure conditions (treated, spillover bands, pure control).
 
     Returns
     -------

@@ -95,10 +95,10 @@ def used_columns(spec: DesignSpec, columns: Sequence[str]) -> tuple[str, ...]:
         for quoted, plain in _NAME.findall(spec.eligible.where):
             names.append(quoted or plain)
     a, f = spec.assignment, spec.field
-    names += [spec.eligible.top_column, a.block_column, a.cluster_column]
+    names += [n for n in (spec.eligible.top_column, a.block_column, a.cluster_column) if n]
     if spec.rerandomize is not None:
         names += list(spec.rerandomize.covariates)
-    names += [f.district_column, f.description_column, f.instructions_column]
+    names += [n for n in (f.district_column, f.description_column, f.instructions_column) if n]
     out: list[str] = []
     for name in names:
         if name and name in present and name != "geometry" and name not in out:
@@ -221,6 +221,7 @@ def design_fingerprint(
     Parameters
     ----------
     spec : DesignSpec
+        The design spec (a pure value).
     units : UnitSet
         The units in the CRS the design works in.
     eligible : numpy.ndarray of bool

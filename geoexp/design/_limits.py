@@ -121,8 +121,8 @@ def check_draws(
         )
     if isinstance(n_draws, numbers.Integral):
         n = int(n_draws)
-    elif math.isfinite(n_draws) and float(n_draws).is_integer():
-        n = int(n_draws)
+    elif math.isfinite(float(n_draws)) and float(n_draws).is_integer():
+        n = int(float(n_draws))
     else:
         raise DesignError(f"{what} must be a whole number of Monte Carlo draws, got {n_draws!r}")
     if not minimum <= n <= MAX_DRAWS:

@@ -117,6 +117,11 @@ def condition_indicators(
         Number of draws and their seed.
     units
         Positions of the units to hold (default: all).
+
+    Returns
+    -------
+    ConditionIndicators
+        The packed indicators, one bit per draw, for the held units.
     """
     target = np.asarray(target, dtype=np.int64)
     if target.shape != (graph.n,):

@@ -14,7 +14,14 @@ from __future__ import annotations
 import numpy as np
 import scipy.sparse as sp
 
-from geoexp._engine import compile_kernels, compute_threads, jit, numba_module, resolve_engine
+from geoexp._engine import (
+    Engine,
+    compile_kernels,
+    compute_threads,
+    jit,
+    numba_module,
+    resolve_engine,
+)
 from geoexp.exposure._reach import band_codes
 
 # Largest number of (draw, neighbour) triples the numpy twin holds at once.
@@ -227,7 +234,7 @@ def scatter_counts(
     n_units: int,
     cov: np.ndarray | None = None,
     *,
-    engine: str = "auto",
+    engine: Engine = "auto",
     g_code: np.ndarray | None = None,
 ) -> tuple[np.ndarray, np.ndarray | None, np.ndarray | None]:
     """Count, over a chunk of draws, how often each unit is treated or in each band.
@@ -375,7 +382,7 @@ def condition_bits_chunk(
     draw0: int,
     bits: np.ndarray,
     *,
-    engine: str = "auto",
+    engine: Engine = "auto",
 ) -> None:
     """Set the bits of draws ``draw0 ..`` of a chunk in ``bits`` (n_conditions, n_words, n_held).
 
@@ -480,7 +487,7 @@ def pair_popcounts(
     first: np.ndarray,
     second: np.ndarray,
     *,
-    engine: str = "auto",
+    engine: Engine = "auto",
     block: int = 65_536,
 ) -> np.ndarray:
     """popcount(a_bits[first[p]] & b_bits[second[p]]) for every pair p, as int64.

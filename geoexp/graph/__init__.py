@@ -600,17 +600,20 @@ def network_diagnostics(
         Street segments in a projected CRS (or planar coordinates).
     max_distance : float
         The outer band, metres.
-    snap_tolerance, split_at_crossings, bridge_column, grade_separated, engine
+    snap_tolerance, split_at_crossings, bridge_column, grade_separated
         As in :meth:`ExposureGraph.from_units` / :meth:`ExposureGraph.from_geometries`.
     graph : ExposureGraph, optional
         An along-street graph of the same units built with the same settings
         to at least ``max_distance``; reused instead of building one.
     metres_per_unit : float, optional
         For bare geometries: metres per coordinate unit.
+    engine : {"auto", "numba", "numpy"}
+        As in :meth:`ExposureGraph.from_units`.
 
     Returns
     -------
     NetworkDiagnostics
+        Components, isolated units, the pair ratio, meeting points and warnings.
     """
     _check_distance(max_distance)
     if hasattr(units, "frame") and hasattr(units, "metres_per_unit"):

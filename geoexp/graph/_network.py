@@ -28,7 +28,7 @@ import shapely
 from scipy.sparse.csgraph import connected_components, dijkstra
 from scipy.spatial import cKDTree
 
-from geoexp._engine import compile_kernels, compute_threads, resolve_engine
+from geoexp._engine import Engine, compile_kernels, compute_threads, resolve_engine
 
 _KERNELS = ("_sources", "_grow_int", "_grow_float", "_bounded_walks")
 # Dense Dijkstra rows per chunk in the numpy engine (rows x nodes float64 values).
@@ -114,7 +114,7 @@ def _as_lines(geoms: np.ndarray) -> np.ndarray:
 
 
 def network_pairs(
-    geoms: np.ndarray, max_distance: float, scale: float, snap_tolerance: float, engine: str
+    geoms: np.ndarray, max_distance: float, scale: float, snap_tolerance: float, engine: Engine
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Undirected pairs ``(i, j, metres)``, ``i < j``, with street distance <= ``max_distance``."""
     net = street_network(geoms, scale, snap_tolerance)

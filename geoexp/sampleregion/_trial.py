@@ -18,7 +18,8 @@ import shapely
 
 from geoexp._rng import RngLike, as_generator
 from geoexp.errors import InputError
-from geoexp.sampleregion._city import INCIDENT_TYPES, SampleRegion
+from geoexp.sampleregion._city import SampleRegion
+from geoexp.sampleregion._settings import INCIDENT_TYPES
 
 # Demo effects: a 30% reduction on treated segments and a 10% diffusion of
 # benefits within the first band; nothing further out.
