@@ -56,12 +56,59 @@ def test_exact_two_sample_example():
     assert stats[0] == 4.0
     assert significance(4.0, stats, "greater", exact=True)[0] == pytest.approx(0.05)
     assert significance(4.0, stats, "two-sided", exact=True)[0] == pytest.approx(0.10)
+    # [A] equal-tailed rule by hand: T_obs = 4 is the largest of the 20 values, so
+    # P(T >= 4) = 1/20 and P(T <= 4) = 20/20; p = min(1, 2 * min(1/20, 1)) = 0.10. Here the
+    # null is symmetric about 0, so the absolute-value rule gives the same 0.10.
+    assert significance(4.0, stats, "absolute", exact=True)[0] == pytest.approx(0.10)
+    assert significance(4.0, stats, "less", exact=True)[0] == pytest.approx(1.0)
+    # and at T_obs = -8/3 (the second smallest of the 20 values: only {5,6,7} and
+    # {3,6,7} as controls reach it or below): P(T <= -8/3) = 2/20 → two-sided p = 0.20
+    assert sorted(stats)[1] == pytest.approx(-8 / 3)
+    assert significance(-8 / 3, stats, "two-sided", exact=True)[0] == pytest.approx(0.20)
+
+
+def test_equal_tailed_rule_by_hand():
+    # [A] the (M + 1)/(R + 1) rule on each side: null 0..9 (R = 10), t = 2:
+    # P(T >= 2) = (1 + 8)/11, P(T <= 2) = (1 + 3)/11, p = 2 * 4/11 = 8/11;
+    # the absolute rule counts |T| >= 2: 8 draws, p = 9/11.
+    null = np.arange(10.0)
+    assert significance(2.0, null, "two-sided")[0] == pytest.approx(8 / 11)
+    assert significance(2.0, null, "absolute")[0] == pytest.approx(9 / 11)
+    assert significance(-1.0, null, "two-sided")[0] == pytest.approx(2 / 11)
+    # vectorised: one call for many observed values, each against its own draws
+    obs = np.array([2.0, -1.0, 20.0])
+    p, mc, _ = significance(obs, np.tile(null, (3, 1)), "two-sided")
+    assert p == pytest.approx([8 / 11, 2 / 11, 2 / 11])
+    assert (mc > 0).all()
+
+
+def test_equal_tailed_rule_keeps_its_power_above_alpha_on_a_skewed_null():
+    # [A] an unbiased test rejects at least alpha under every alternative. The null of the
+    # statistic is exponential(1) (skewed, centred away from 0); a planted shift d moves the
+    # observed value to X + d. The absolute-value rule is biased: at d = -1 it rejects only
+    # when X - 1 >= q_0.95 = 3.0, i.e. P = exp(-4) = 0.018 < alpha (analytic); the
+    # equal-tailed rule keeps every rejection rate >= alpha up to Monte Carlo error.
+    rng = np.random.default_rng(8)
+    n_sims, n_draws, alpha = 2000, 399, 0.05
+    null = rng.exponential(1.0, (n_sims, n_draws))
+    x = rng.exponential(1.0, n_sims)
+    mc = np.sqrt(alpha * (1 - alpha) / n_sims)
+    for shift in (-1.5, -1.0, -0.5, -0.2, 0.0, 0.5, 1.0, 2.0):
+        rate = (significance(x + shift, null, "two-sided")[0] <= alpha).mean()
+        assert rate >= alpha - 3 * mc, shift
+    old = (significance(x - 1.0, null, "absolute")[0] <= alpha).mean()
+    assert old < alpha - 3 * mc  # the old rule's power falls below alpha
+    assert abs(old - np.exp(-4)) <= 4 * np.sqrt(np.exp(-4) / n_sims)
 
 
 def test_sampled_p_value_is_never_below_one_over_r_plus_one():
-    p, mc, _ = significance(100.0, np.zeros(999), "two-sided")
+    # the rule of comparing absolute values is now named "absolute"
+    p, mc, _ = significance(100.0, np.zeros(999), "absolute")
     assert p == pytest.approx(1 / 1000)
     assert mc > 0
+    # [A] the equal-tailed two-sided rule doubles the smaller one-sided p: never below 2/(R+1)
+    assert significance(100.0, np.zeros(999), "two-sided")[0] == pytest.approx(2 / 1000)
+    assert significance(100.0, np.zeros(999), "greater")[0] == pytest.approx(1 / 1000)
     # NaN draws count as extreme (conservative)
     assert significance(1.0, np.array([0.0, np.nan]), "greater")[0] == pytest.approx(2 / 3)
 

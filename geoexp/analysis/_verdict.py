@@ -41,7 +41,7 @@ def _numbers(
     if inverted is not None and np.all(np.isfinite(inverted)):
         parts.append(f"{inverted[0]:+.2f} to {inverted[1]:+.2f} by inverting randomization tests")
     if test is not None:
-        parts.append(f"{format_p(test.p_value, test.n_draws)} ({how})")
+        parts.append(f"{format_p(test.p_value, test.n_draws, test.alternative)} ({how})")
     return "; ".join(parts) + "."
 
 
@@ -108,9 +108,13 @@ def direct_verdict(
     )
 
 
-def format_p(p: float, n_draws: int) -> str:
-    """``p = 0.023``, or ``p = 0.0005 (the smallest possible with 2000 draws)``."""
-    smallest = 1 / (n_draws + 1)
+def format_p(p: float, n_draws: int, alternative: str = "two-sided") -> str:
+    """``p = 0.023``, or ``p = 0.001, the smallest possible with 2000 draws``.
+
+    The smallest possible p-value is 1/(R + 1) one-sided and 2/(R + 1) for the
+    equal-tailed two-sided rule.
+    """
+    smallest = (2 if alternative == "two-sided" else 1) / (n_draws + 1)
     if p <= smallest * (1 + 1e-9):
         return f"p = {p:.2g}, the smallest possible with {n_draws} draws"
     return f"p = {p:.3f}" if p >= 0.001 else f"p = {p:.2g}"

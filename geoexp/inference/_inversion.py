@@ -8,6 +8,7 @@ import numpy as np
 
 from geoexp._rng import RngLike
 from geoexp.inference._draws import ContrastSpec, draw_sums, weight_columns
+from geoexp.inference._significance import significance
 
 if TYPE_CHECKING:
     from geoexp.design import Design
@@ -34,7 +35,8 @@ def invert_constant_effect(
     usually their point estimates), the sharp null fixes every potential
     outcome: Y_i(pure control) = Y_i - tau_{d_i}. The test statistic
     (estimate minus tau_k) is recomputed for every draw of the design, and the
-    interval is the set of tau_k that a two-sided test at 1 - level does not
+    interval is the set of tau_k that the equal-tailed two-sided test at 1 - level (the
+    one significance routine) does not
     reject (Rosenbaum 2002, test inversion). Because the statistic is linear in
     the effects for fixed per-draw sums, one pass over the draws serves every
     candidate. Returns (low, high); an end is infinite where no rejection is
@@ -63,11 +65,8 @@ def invert_constant_effect(
         a_l = sl[:, [2]] - sl[:, 4 + n_cond : 4 + 2 * n_cond] @ tau.T
         with np.errstate(invalid="ignore", divide="ignore"):
             stat = a_k / sk[:, [1]] - a_l / sl[:, [3]]
-        observed_stat = np.abs(tau_hat - grid)
-        t = np.abs(stat)
-        tol = 1e-9 * np.maximum(1.0, observed_stat)
-        extreme = ((t >= observed_stat - tol) | ~np.isfinite(t)).sum(axis=0)
-        return (1 + extreme) / (1 + n_draws)
+        # the same significance routine (equal-tailed two-sided) as every other test
+        return significance(tau_hat - grid, stat.T, "two-sided")[0]
 
     alpha = 1 - level
     half = max(8 * scale, 1e-6)
