@@ -240,3 +240,25 @@ def test_test_inversion_covers_a_constant_effect():
     # 95% intervals: coverage of 30 intervals is at least 24 unless something is wrong
     # (binomial(30, 0.95) puts less than 0.1% below 24; scipy.stats.binom)
     assert covered >= 24
+
+
+def test_one_contrast_statistic_for_tests_inversion_and_power():
+    # [L] the Hajek contrast from weighted sums equals the difference of numpy weighted means
+    rng = np.random.default_rng(4)
+    y, p = rng.gamma(2.0, 2.0, 30), rng.uniform(0.1, 0.9, 30)
+    k, l = np.arange(30) < 12, np.arange(30) >= 12
+    from geoexp.inference import contrast_statistic
+
+    hajek = contrast_statistic(
+        (y[k] / p[k]).sum(), (1 / p[k]).sum(), (y[l] / p[l]).sum(), (1 / p[l]).sum()
+    )
+    assert hajek == pytest.approx(
+        np.average(y[k], weights=1 / p[k]) - np.average(y[l], weights=1 / p[l])
+    )
+    # every caller uses this one function (not a copy of it)
+    import geoexp.inference._draws as draws_module
+    import geoexp.inference._inversion as inversion_module
+    import geoexp.power._simulate as power_module
+
+    for module in (draws_module, inversion_module, power_module):
+        assert module.contrast_statistic is contrast_statistic

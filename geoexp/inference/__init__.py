@@ -11,11 +11,13 @@ from geoexp.inference._draws import ContrastSpec
 from geoexp.inference._fisher import fisher_test
 from geoexp.inference._inversion import invert_constant_effect
 from geoexp.inference._significance import RandomizationTest, significance
+from geoexp.inference._statistic import contrast_statistic
 
 __all__ = [
     "ContrastSpec",
     "FixedFocalSampler",
     "RandomizationTest",
+    "contrast_statistic",
     "default_focal_units",
     "fisher_test",
     "invert_constant_effect",

@@ -9,6 +9,7 @@ import numpy as np
 from geoexp._rng import RngLike
 from geoexp.inference._draws import ContrastSpec, draw_sums, weight_columns
 from geoexp.inference._significance import significance
+from geoexp.inference._statistic import contrast_statistic
 
 if TYPE_CHECKING:
     from geoexp.design import Design
@@ -63,8 +64,7 @@ def invert_constant_effect(
         # A_k^r = sum_{D=k} y/pi_k - sum_c tau_c sum_{D=k, d=c} 1/pi_k  (R x G)
         a_k = sk[:, [0]] - sk[:, 4 : 4 + n_cond] @ tau.T
         a_l = sl[:, [2]] - sl[:, 4 + n_cond : 4 + 2 * n_cond] @ tau.T
-        with np.errstate(invalid="ignore", divide="ignore"):
-            stat = a_k / sk[:, [1]] - a_l / sl[:, [3]]
+        stat = contrast_statistic(a_k, sk[:, [1]], a_l, sl[:, [3]])
         # the same significance routine (equal-tailed two-sided) as every other test
         return significance(tau_hat - grid, stat.T, "two-sided")[0]
 

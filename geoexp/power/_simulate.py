@@ -29,7 +29,7 @@ import pandas as pd
 from geoexp._rng import RngLike, as_seed_sequence, child_sequence
 from geoexp.errors import InputError
 from geoexp.exposure import condition_bits
-from geoexp.inference import default_focal_units, significance
+from geoexp.inference import contrast_statistic, default_focal_units, significance
 from geoexp.inference._conditional import MIN_FOCAL
 from geoexp.inference._significance import ALTERNATIVES, Alternative
 from geoexp.power._models import OutcomeMeasure, OutcomeModel
@@ -157,11 +157,6 @@ def _sim_conditions(bits: np.ndarray, n_sims: int) -> np.ndarray:
     return out
 
 
-def _hajek(num_k, den_k, num_l, den_l) -> np.ndarray:
-    with np.errstate(invalid="ignore", divide="ignore"):
-        return num_k / den_k - num_l / den_l
-
-
 def _contrast_draws(
     bits: np.ndarray,
     rows: np.ndarray,
@@ -186,7 +181,7 @@ def _contrast_draws(
     wl[:, :n_sims] = y / pl[:, None]
     wl[:, n_sims] = 1 / pl
     in_k, in_l = cond == k, cond == l
-    observed = _hajek(
+    observed = contrast_statistic(
         (in_k * wk[:, :n_sims]).sum(axis=0),
         in_k.T @ wk[:, n_sims],
         (in_l * wl[:, :n_sims]).sum(axis=0),
@@ -205,7 +200,9 @@ def _contrast_draws(
         ul = _unpack(bits[l][rows, w:w_end])[:, lo:hi].astype(np.float64)
         sk = uk.T @ wk
         sl = ul.T @ wl
-        null[out] = _hajek(sk[:, :n_sims], sk[:, n_sims:], sl[:, :n_sims], sl[:, n_sims:])
+        null[out] = contrast_statistic(
+            sk[:, :n_sims], sk[:, n_sims:], sl[:, :n_sims], sl[:, n_sims:]
+        )
         w = w_end
     return observed, np.ascontiguousarray(null.T)
 
