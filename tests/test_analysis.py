@@ -42,7 +42,9 @@ def test_hajek_estimate_is_the_weighted_difference_in_means(analysis, demo_outpu
     y = units["change"].to_numpy()
     e = analysis.effects[1]
     p1, pc = units["p_spillover_1"].to_numpy(), units["p_pure_control"].to_numpy()
-    pop = (p1 > 0) & (pc > 0)
+    # the row's units: never-eligible units whose probabilities of both reach the floor
+    pop = (p1 >= analysis.floor) & (pc >= analysis.floor) & ~units["eligible"].to_numpy(bool)
+    assert (pop == units["in_spillover_1"].to_numpy()).all()
     k = pop & (units["condition"] == "spillover_1").to_numpy()
     c = pop & (units["condition"] == "pure_control").to_numpy()
     expected = np.average(y[k], weights=1 / p1[k]) - np.average(y[c], weights=1 / pc[c])

@@ -101,7 +101,7 @@ def _summary(analysis: Analysis) -> pd.DataFrame:
                 "std_error": e.std_error,
                 "ci": f"{e.ci_low:+.2f} to {e.ci_high:+.2f}",
                 "ci_by_test_inversion": f"{analysis.intervals[i][0]:+.2f} to {analysis.intervals[i][1]:+.2f}",
-                "p_no_effect (± MC error)": _p(analysis.fisher[i]),
+                "p_no_effect (± MC error)": _p(analysis.fisher[i]) if analysis.fisher[i] else "—",
                 "p_no_spillover (± MC error)": _p(s) if s else "—",
                 "units_in_estimand": e.n_units,
                 "exposed": e.n_exposure,

@@ -9,13 +9,19 @@ constant additive effect by test inversion.
 from geoexp.inference._conditional import FixedFocalSampler, default_focal_units, spillover_test
 from geoexp.inference._draws import ContrastSpec
 from geoexp.inference._fisher import fisher_test
-from geoexp.inference._inversion import invert_constant_effect
+from geoexp.inference._inversion import (
+    InvertedTest,
+    constant_effect_test,
+    invert_constant_effect,
+    rate_ratio_test,
+)
 from geoexp.inference._significance import RandomizationTest, significance
 from geoexp.inference._statistic import contrast_statistic
 
 __all__ = [
     "ContrastSpec",
     "FixedFocalSampler",
+    "InvertedTest",
     "RandomizationTest",
     "contrast_statistic",
     "default_focal_units",
@@ -23,4 +29,6 @@ __all__ = [
     "invert_constant_effect",
     "significance",
     "spillover_test",
+    "constant_effect_test",
+    "rate_ratio_test",
 ]
