@@ -28,8 +28,9 @@ import pandas as pd
 
 from geoexp._rng import RngLike, as_seed_sequence, child_sequence
 from geoexp.errors import InputError
+from geoexp.estimate import DEFAULT_FLOOR, contrast_units
 from geoexp.exposure import condition_bits
-from geoexp.inference import contrast_statistic, default_focal_units, significance
+from geoexp.inference import contrast_statistic, significance
 from geoexp.inference._conditional import MIN_FOCAL
 from geoexp.inference._significance import ALTERNATIVES, Alternative
 from geoexp.power._models import OutcomeMeasure, OutcomeModel
@@ -235,6 +236,7 @@ def simulate_power(
     alternative: Alternative = "two-sided",
     n_draws_probabilities: int | None = None,
     rng: RngLike = None,
+    floor: float | None = None,
 ) -> PowerResult:
     """Power of a design's randomization tests, by simulating many trials of it.
 
@@ -282,6 +284,11 @@ def simulate_power(
         Draws for the exposure probabilities (default: the spec's ``draws``).
     rng
         Seed of the simulation (default: child stream 30 of the spec's seed).
+    floor
+        Positivity floor of the rows' units (default: the spec's, else
+        :data:`geoexp.estimate.DEFAULT_FLOOR`), as in the analysis: each
+        contrast is simulated over the very units the analysis will report
+        (:func:`geoexp.estimate.contrast_units`).
 
     Returns
     -------
@@ -297,7 +304,15 @@ def simulate_power(
         alternative=alternative,
         n_draws_probabilities=n_draws_probabilities,
         rng=rng,
+        floor=floor,
     )[0]
+
+
+def _floor(design: Design, floor: float | None) -> float:
+    """The positivity floor: the argument, else the spec's, else the default (as the analysis)."""
+    if floor is None:
+        floor = getattr(design.spec, "positivity_floor", None)
+    return DEFAULT_FLOOR if floor is None else float(floor)
 
 
 def _check_arguments(n_sims, n_draws, alpha, outcome, alternative) -> None:
@@ -325,6 +340,7 @@ def _simulate(
     alternative: Alternative,
     n_draws_probabilities: int | None,
     rng: RngLike,
+    floor: float | None = None,
 ) -> tuple[PowerResult, dict]:
     """:func:`simulate_power`, also returning each contrast's statistics (for tests)."""
     _check_arguments(n_sims, n_draws, alpha, outcome, alternative)
@@ -342,15 +358,20 @@ def _simulate(
     notes: list[str] = []
     plan: list[tuple[int, np.ndarray, str]] = []
     skipped: dict[int, str] = {}
+    floor = _floor(design, floor)
     for k in range(pc):
+        # the very units of the analysis's row (geoexp.estimate.contrast_units)
+        group = "eligible" if k == 0 else "never-eligible"
+        estimand = contrast_units(
+            probs, design.eligible, k, pc, labels=mapping.labels, group=group, floor=floor
+        )
+        population = np.flatnonzero(estimand.units)
         if k == 0:
-            population = np.flatnonzero((probs[:, 0] > 0) & (probs[:, pc] > 0))
-            test = "Fisher randomization test of no effect at all (Hajek contrast)"
+            test = "randomization test of no effect on treated units (Hajek contrast)"
             if population.size == 0:
                 skipped[k] = "no unit can be both treated and a pure control"
                 continue
         else:
-            population = default_focal_units(design, probs, k)
             test = "conditional test of no spillover on never-treated focal units"
             if population.size < MIN_FOCAL:
                 skipped[k] = (
