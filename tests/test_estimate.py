@@ -318,3 +318,21 @@ def test_adjusted_contrast_equals_weighted_least_squares():
     design = np.column_stack([np.ones(n), z, xc, z * xc])
     reference = sm.WLS(y, design, weights=w).fit().params[1]
     assert ours == pytest.approx(reference, rel=1e-10)
+
+
+def test_displacement_reading_needs_a_clear_direct_effect_and_parts_add_up():
+    counts = (100, 70, 80, 72, 1000, 1000)
+    unclear = weighted_displacement_quotient(*counts, direct_effect_clear=False)
+    assert unclear.reading.startswith("not read")
+    assert unclear.wdq == weighted_displacement_quotient(*counts).wdq  # descriptive value kept
+    clear = weighted_displacement_quotient(*counts, direct_effect_clear=True)
+    assert "diffusion" in clear.reading
+    quiet = weighted_displacement_quotient(
+        *counts, direct_effect_clear=True, buffer_effect_clear=False
+    )
+    assert quiet.reading.startswith("not read")
+    # [A] TNE = target part + buffer part (Bowers & Johnson 2003), so the total over several
+    # buffers counts the target area once: target part + sum of the buffer parts
+    assert clear.total_net_effect == pytest.approx(clear.target_part + clear.buffer_part)
+    assert clear.control_trend == pytest.approx(1.0)
+    assert clear.target_part == pytest.approx(30.0) and clear.buffer_part == pytest.approx(8.0)

@@ -501,6 +501,8 @@ def analyse(
                     *sums[pc],
                     buffer=mapping.labels[k],
                     direct_effect_clear=clear,
+                    buffer_effect_clear=main[k].verdict.finding
+                    in ("displacement", "diffusion of benefits"),
                 )
             )
         except InputError as err:

@@ -24,7 +24,9 @@ class DisplacementIndex:
     here, and a buffer's ratio moves a lot by chance when the target area's
     change is small. When ``direct_effect_clear`` is False (the randomization
     test of the treated units' change does not show a clear reduction) no
-    reading is given. Summing several buffers' TNE counts the target area once
+    reading is given; likewise when ``buffer_effect_clear`` is False (the
+    buffer's own test shows no clear spillover: with no spillover at all the
+    quotient is often far from 0). Summing several buffers' TNE counts the target area once
     per buffer: add the buffer parts to one target part instead
     (:attr:`target_part`, :attr:`buffer_part`). ``control_trend`` is C_a / C_b.
     """
@@ -41,6 +43,7 @@ class DisplacementIndex:
     total_net_effect: float
     buffer: str = "buffer"
     direct_effect_clear: bool | None = None
+    buffer_effect_clear: bool | None = None
 
     @property
     def control_trend(self) -> float:
@@ -64,6 +67,11 @@ class DisplacementIndex:
             return (
                 "not read: the change in the target area is not itself clear (its "
                 "randomization test shows no clear reduction), so the quotient is descriptive only"
+            )
+        if self.buffer_effect_clear is False:
+            return (
+                "not read: the buffer's own test shows no clear spillover, and the quotient "
+                "departs from 0 by chance alone, so it is descriptive only"
             )
         if self.success_measure >= 0:
             return (
@@ -107,6 +115,7 @@ def weighted_displacement_quotient(
     *,
     buffer: str = "buffer",
     direct_effect_clear: bool | None = None,
+    buffer_effect_clear: bool | None = None,
 ) -> DisplacementIndex:
     """Compute the weighted displacement quotient of Bowers & Johnson (2003).
 
@@ -144,4 +153,5 @@ def weighted_displacement_quotient(
         float(tne),
         buffer,
         direct_effect_clear,
+        buffer_effect_clear,
     )
