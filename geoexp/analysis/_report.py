@@ -47,10 +47,15 @@ def distance_decay_plot(analysis: Analysis, ax=None):
     scale = 1.0 if analysis.distance_unit == "m" else 1 / 0.3048
     edges = (0.0, *(e * scale for e in analysis.band_edges))
     mids = [(a + b) / 2 for a, b in zip(edges[:-1], edges[1:], strict=True)]
+    # the intervals printed beside the verdicts (test inversion), else the approximation
+    bounds = [
+        (v.ci_low, v.ci_high) if np.isfinite([v.ci_low, v.ci_high]).all() else (e.ci_low, e.ci_high)
+        for e, v in zip(analysis.effects, analysis.verdicts, strict=True)
+    ]
     spill = analysis.effects[1:]
     est = np.array([e.estimate for e in spill])
-    lo = np.array([e.ci_low for e in spill])
-    hi = np.array([e.ci_high for e in spill])
+    lo = np.array([b[0] for b in bounds[1:]])
+    hi = np.array([b[1] for b in bounds[1:]])
     ax.axhline(0, color="0.4", lw=1, ls="--")
     ax.errorbar(
         mids,
@@ -67,7 +72,7 @@ def distance_decay_plot(analysis: Analysis, ax=None):
     ax.errorbar(
         [0],
         [d.estimate],
-        yerr=[[d.estimate - d.ci_low], [d.ci_high - d.estimate]],
+        yerr=[[d.estimate - bounds[0][0]], [bounds[0][1] - d.estimate]],
         fmt="s",
         color="#D55E00",
         capsize=4,
@@ -99,8 +104,13 @@ def _summary(analysis: Analysis) -> pd.DataFrame:
                 "contrast": e.contrast,
                 "estimate": e.estimate,
                 "std_error": e.std_error,
-                "ci": f"{e.ci_low:+.2f} to {e.ci_high:+.2f}",
                 "ci_by_test_inversion": f"{analysis.intervals[i][0]:+.2f} to {analysis.intervals[i][1]:+.2f}",
+                "p (the interval's test)": f"{analysis.verdicts[i].p_value:.4f}",
+                "approximate ci (normal; can miscover in small trials)": (
+                    f"{e.ci_low:+.2f} to {e.ci_high:+.2f}"
+                    if i < len(analysis.rows) and analysis.rows[i].show_approximation
+                    else "—"
+                ),
                 "p_no_effect (± MC error)": _p(analysis.fisher[i]) if analysis.fisher[i] else "—",
                 "p_no_spillover (± MC error)": _p(s) if s else "—",
                 "units_in_estimand": e.n_units,

@@ -242,10 +242,13 @@ def simulate_power(
 
     Each simulated trial draws an assignment from the design's own sampler,
     outcomes from ``model`` given each unit's exposure condition, and runs
-    the tests the analysis runs: Fisher's randomization test of no effect at
-    all with the Hajek contrast of treated against pure control (Fisher 1935),
-    and, for each spillover band, the conditional test of no spillover on
-    focal units that are never treated (Athey, Eckles & Imbens 2018), whose
+    the tests of the analysis's rows over the very same units
+    (:func:`geoexp.estimate.contrast_units`, with the positivity floor): a
+    randomization test of no effect with the Hajek contrast of treated
+    against pure control over the treated row's eligible units (Fisher 1935;
+    the analysis inverts the same statistic), and, for each spillover band,
+    the conditional test of no spillover on the band row's focal units that
+    are never treated (Athey, Eckles & Imbens 2018), whose
     null draws are the design's own draws (conditioning is automatic for
     never-treated units). The Hajek contrasts use the exposure probabilities
     of Aronow & Samii (2017) from the design's own Monte Carlo (the spec's
