@@ -266,5 +266,10 @@ def test_every_row_is_about_one_set_of_units_and_its_interval_agrees_with_its_te
     # the total net effect counts the treated area once (Bowers & Johnson 2003 parts)
     parts = analysis.displacement[0].target_part + sum(d.buffer_part for d in analysis.displacement)
     assert analysis.total_net_effect == pytest.approx(parts)
+    for d in analysis.displacement:
+        # the quotient with its spread over the design's assignments
+        assert d.wdq_low < d.wdq_high
+        if not (analysis.verdicts[0].finding == "reduction"):
+            assert d.reading.startswith("not read")
     frame = analysis.rows_frame()
     assert {"units", "left_out", "rate_ratio", "ess_exposure", "finding"} <= set(frame)

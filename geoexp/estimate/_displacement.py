@@ -4,6 +4,7 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
+import numpy as np
 import pandas as pd
 
 from geoexp.errors import InputError
@@ -44,6 +45,8 @@ class DisplacementIndex:
     buffer: str = "buffer"
     direct_effect_clear: bool | None = None
     buffer_effect_clear: bool | None = None
+    wdq_low: float = float("nan")
+    wdq_high: float = float("nan")
 
     @property
     def control_trend(self) -> float:
@@ -94,7 +97,12 @@ class DisplacementIndex:
             f"WDQ ({self.buffer}) = {self.wdq:+.3f}: {self.reading}; success measure "
             f"{self.success_measure:+.4f}, buffer measure {self.buffer_measure:+.4f}, total net "
             f"effect {self.total_net_effect:+.1f} incidents (target and this buffer); control "
-            f"trend {self.control_trend:.3f} (after / before); descriptive, no interval"
+            f"trend {self.control_trend:.3f} (after / before); "
+            + (
+                f"randomization interval {self.wdq_low:+.2f} to {self.wdq_high:+.2f}"
+                if np.isfinite(self.wdq_low) and np.isfinite(self.wdq_high)
+                else "descriptive, no interval"
+            )
         )
 
     def to_frame(self) -> pd.DataFrame:
