@@ -8,7 +8,15 @@ as HTML with embedded plots and a Markdown twin.
 """
 
 from geoexp.analysis._report import distance_decay_plot, write_report
-from geoexp.analysis._run import Analysis, analyse, save_results
+from geoexp.analysis._run import Analysis, ContrastResult, analyse, save_results
 from geoexp.analysis._verdict import Verdict
 
-__all__ = ["Analysis", "Verdict", "analyse", "distance_decay_plot", "save_results", "write_report"]
+__all__ = [
+    "Analysis",
+    "ContrastResult",
+    "Verdict",
+    "analyse",
+    "distance_decay_plot",
+    "save_results",
+    "write_report",
+]
