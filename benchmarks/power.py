@@ -26,6 +26,7 @@ import time
 
 import numpy as np
 
+from geoexp._rng import Stream
 from geoexp.design import Design
 from geoexp.exposure import assign_conditions, condition_bits
 from geoexp.inference import ContrastSpec, fisher_test, spillover_test
@@ -40,7 +41,7 @@ def naive_seconds(design: Design, model: NegativeBinomialOutcome, n_trials: int,
     pc = mapping.pure_control
     start = time.perf_counter()
     probs = condition_bits(
-        design.sampler, design.graph, mapping, design.spec.draws, design.stream(1)
+        design.sampler, design.graph, mapping, design.spec.draws, design.stream(Stream.MONTE_CARLO)
     ).probabilities()
     prob_seconds = time.perf_counter() - start
     means = model.unit_means(design)

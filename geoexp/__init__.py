@@ -18,10 +18,19 @@ geoexp supports, but does not replace, ethics review, legal advice, community
 consultation and the judgement of the agencies involved; local law governs.
 """
 
-from importlib import import_module
+from importlib import import_module, metadata
 from typing import Any
 
-__version__ = "0.1.0"
+
+def _installed_version() -> str:
+    # the version the package was installed as; a plain source checkout has no metadata
+    try:
+        return metadata.version("geoexp")
+    except metadata.PackageNotFoundError:
+        return "0.1.0"
+
+
+__version__ = _installed_version()
 
 _PUBLIC = {
     "UnitSet": "geoexp.units",

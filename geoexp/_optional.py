@@ -5,13 +5,15 @@ from __future__ import annotations
 import importlib
 from types import ModuleType
 
+from geoexp.errors import MissingPackageError
+
 
 def import_optional(module: str, extra: str, purpose: str) -> ModuleType:
-    """Import ``module`` or raise ImportError saying which extra provides it."""
+    """Import ``module`` or raise MissingPackageError (an ImportError) naming the extra to install."""
     try:
         return importlib.import_module(module)
     except ImportError as err:
-        raise ImportError(
+        raise MissingPackageError(
             f"{purpose} needs the Python package '{module.split('.')[0]}'. "
             f"Install it with: pip install 'geoexp[{extra}]'"
         ) from err

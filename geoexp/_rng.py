@@ -8,6 +8,8 @@ Every public function that draws takes ``rng`` (None, an int seed, a
 
 from __future__ import annotations
 
+from enum import IntEnum
+
 import numpy as np
 
 RngLike = None | int | np.random.SeedSequence | np.random.Generator
@@ -52,3 +54,50 @@ def child_sequence(seq: np.random.SeedSequence, *key: int) -> np.random.SeedSequ
     return np.random.SeedSequence(
         entropy=seq.entropy, spawn_key=(*seq.spawn_key, *key), pool_size=seq.pool_size
     )
+
+
+class Stream(IntEnum):
+    """What a random stream of a design is for: the first level of its key under the spec's seed.
+
+    A design's streams are children of ``SeedSequence(spec.seed)``. The
+    assignment and the Monte Carlo probabilities keep the one-level keys
+    ``(0,)`` and ``(1,)`` they have always had, so a spec and seed give the same
+    assignment and probabilities in every version. Every other purpose has a
+    two-level key ``(purpose, index)`` (the index is a spillover band, a
+    contrast, ...), so no two purposes or indices can share a stream however
+    many bands a design has.
+    """
+
+    ASSIGNMENT = 0
+    MONTE_CARLO = 1
+    FISHER_TEST = 2
+    SPILLOVER_TEST = 3
+    INVERSION = 4
+    FOCAL_UNITS = 5
+    POWER = 6
+    MORAN = 7
+    RATE_RATIO = 8
+    DISPLACEMENT = 9
+
+
+_ONE_LEVEL = (Stream.ASSIGNMENT, Stream.MONTE_CARLO)
+
+
+def stream_key(purpose: Stream, index: int = 0) -> tuple[int, ...]:
+    """The spawn key of stream ``(purpose, index)`` under a design's root seed sequence."""
+    purpose = Stream(purpose)
+    index = int(index)
+    if index < 0:
+        raise ValueError(f"a stream index must be non-negative, got {index}")
+    if purpose in _ONE_LEVEL:
+        if index:
+            raise ValueError(f"the {purpose.name.lower()} stream has no index, got {index}")
+        return (int(purpose),)
+    return (int(purpose), index)
+
+
+def purpose_sequence(
+    root: np.random.SeedSequence, purpose: Stream, index: int = 0
+) -> np.random.SeedSequence:
+    """The child of ``root`` for stream ``(purpose, index)``; see :class:`Stream`."""
+    return child_sequence(root, *stream_key(purpose, index))

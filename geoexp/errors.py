@@ -16,8 +16,13 @@ __all__ = [
     "CRSError",
     "GeometryError",
     "DesignError",
+    "RuleError",
     "InfeasibleDesignError",
     "LockedTrialError",
+    "TrialBusyError",
+    "TrialWriteError",
+    "TrialIntegrityError",
+    "MissingPackageError",
     "describe_rows",
 ]
 
@@ -42,12 +47,32 @@ class DesignError(InputError):
     """A design spec is malformed."""
 
 
+class RuleError(InputError):
+    """An eligibility rule cannot be read or evaluated; the message points at the token."""
+
+
 class InfeasibleDesignError(DesignError):
     """A design spec is well formed but cannot be satisfied by these units."""
 
 
 class LockedTrialError(GeoexpError):
     """A trial's assignment is locked and would be overwritten."""
+
+
+class TrialBusyError(GeoexpError):
+    """Another geoexp command kept writing a trial file for longer than the wait allowed."""
+
+
+class TrialWriteError(GeoexpError, OSError):
+    """Writing a trial file failed (e.g. no space left); the file was left as it was."""
+
+
+class TrialIntegrityError(InputError):
+    """A trial file's contents no longer match the fingerprints recorded when they were written."""
+
+
+class MissingPackageError(GeoexpError, ImportError):
+    """An optional Python package that a requested feature needs is not installed."""
 
 
 def describe_rows(rows: Iterable[object], limit: int = 10) -> str:

@@ -9,15 +9,14 @@ import geopandas as gpd
 import pandas as pd
 import shapely
 
-from geoexp.analysis import analyse, save_results, write_report
 from geoexp.briefing import briefing_pack
 from geoexp.cautions import CAUTION
 from geoexp.design import Design, DesignSpec, check_design
 from geoexp.maps import planning_map, save_map
-from geoexp.outcomes import count_incidents, save_outcomes
 from geoexp.power import NegativeBinomialOutcome, simulate_power
 from geoexp.sampleregion import DEMO_MULTIPLIERS, load_sample_region, simulate_trial_incidents
-from geoexp.trialfile import TrialFile, export_assignment_csv, write_trial
+from geoexp.trialfile import export_assignment_csv, write_trial
+from geoexp.workflow import analyse_trial, count_and_store
 
 
 def demo_spec(
@@ -119,9 +118,15 @@ def run_demo(out: str | Path, *, n_draws: int = 2000, echo: Callable[[str], None
     echo(str(assignment))
     echo(f"Trial file (locked): {trial_path}")
     echo(f"Field list: {csv_path}")
-    map_path = save_map(planning_map(trial), out / "planning_map.html")
+    # The invented city lies in open ocean: a plain background instead of tiles, and its
+    # own district polygons, the same on the planning map, the pack and the result map.
+    map_path = save_map(
+        planning_map(trial, districts=region.districts, tiles=None), out / "planning_map.html"
+    )
     echo(f"Planning map (works offline): {map_path}")
-    pack_path = briefing_pack(trial, out / "briefing_a4.pdf", paper="a4")
+    pack_path = briefing_pack(
+        trial, out / "briefing_a4.pdf", paper="a4", district_polygons=region.districts
+    )
     echo(f"Briefing pack for field teams: {pack_path}")
 
     # After the trial. The sample city has invented incidents for 2024 and 2025; the trial
@@ -145,8 +150,8 @@ def run_demo(out: str | Path, *, n_draws: int = 2000, echo: Callable[[str], None
     )
     incidents_path = out / "incidents.csv"
     table.to_csv(incidents_path, index=False)
-    outcomes = count_incidents(
-        trial,
+    outcomes = count_and_store(
+        trial_path,
         incidents_path,
         date_column="date",
         type_column="incident_type",
@@ -158,15 +163,19 @@ def run_demo(out: str | Path, *, n_draws: int = 2000, echo: Callable[[str], None
         dropped_path=out / "incidents_not_counted.csv",
     )
     echo(str(outcomes.drops))
-    save_outcomes(trial_path, outcomes)
-    analysis = analyse(trial_path, n_draws=n_draws)
-    save_results(trial_path, analysis)
-    from geoexp.maps import save_result_map
-
-    finished = TrialFile.open(trial_path)
-    results_map = save_result_map(analysis, finished, out / "results_map.html")
-    report, report_md = write_report(
-        analysis, out / "report.html", trial=finished, result_map_html=results_map
+    run = analyse_trial(
+        trial_path,
+        report=out / "report.html",
+        result_map=out / "results_map.html",
+        n_draws=n_draws,
+        districts=region.districts,
+        tiles=None,
+    )
+    analysis, report, report_md, results_map = (
+        run.analysis,
+        run.report,
+        run.report_md,
+        run.result_map,
     )
     echo(f"Interactive result map: {results_map}")
     echo(str(analysis))

@@ -20,8 +20,8 @@ from matplotlib.figure import Figure
 from matplotlib.patches import Rectangle
 
 from geoexp.briefing import briefing_pack, page_layout, plan_briefing
-from geoexp.briefing._mapdecor import nice_length, scale_bar, true_north_angle
 from geoexp.errors import InputError
+from geoexp.maps import nice_length, scale_bar, true_north_angle
 from geoexp.trialfile import TrialFile
 
 

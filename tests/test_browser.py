@@ -148,7 +148,7 @@ def _check_not_blank(o: Opened, path: Path) -> None:
 
 
 def test_planning_map_in_browser(trial, open_page, tmp_path):
-    path = save_map(planning_map(trial), tmp_path / "plan.html")
+    path = save_map(planning_map(trial, tiles=None), tmp_path / "plan.html")
     o = open_page(path)
     _check_common(o)
     assignment = trial.assignment()
@@ -173,7 +173,9 @@ def test_drawing_map_in_browser(demo, region, open_page, tmp_path):
     segments = region.segments.set_index("segment_id")
     eligible = segments.index[:300]
     path = save_map(
-        drawing_map(segments, eligible=eligible, zones=[demo / "exclusion_zone.geojson"]),
+        drawing_map(
+            segments, eligible=eligible, zones=[demo / "exclusion_zone.geojson"], tiles=None
+        ),
         tmp_path / "draw.html",
     )
     o = open_page(path)
@@ -190,7 +192,7 @@ def test_saved_zones_exclude_exactly_the_units_inside(region_path, open_page, tm
     from geoexp.units import UnitSet
 
     units = UnitSet.from_file(region_path, "segment_id", layer="segments")
-    path = save_map(drawing_map(units), tmp_path / "draw.html")
+    path = save_map(drawing_map(units, tiles=None), tmp_path / "draw.html")
     o = open_page(path)
     x0, y0, x1, y1 = units.frame.total_bounds
     to_lonlat = pyproj.Transformer.from_crs(units.crs, "EPSG:4326", always_xy=True)

@@ -100,3 +100,34 @@ def test_ready_counts_table(tmp_path, demo_outputs):
     pd.testing.assert_series_equal(again["post"], stored["post"], check_dtype=False)
     bad = run(*args, "--id-column", "nope")
     assert bad.returncode == 2 and "nope" in bad.stderr and "Traceback" not in bad.stderr
+
+
+def test_analyse_counts_with_the_date_format_given(tmp_path, demo_outputs):
+    import shutil
+
+    import pandas as pd
+
+    trial = tmp_path / "t.gpkg"
+    shutil.copy(demo_outputs["trial"], trial)
+    incidents = pd.read_csv(demo_outputs["incidents"], dtype=str)
+    # Day first, as many agencies export: 2025-03-04 is written 04/03/2025.
+    incidents["date"] = pd.to_datetime(incidents["date"]).dt.strftime("%d/%m/%Y")
+    path = tmp_path / "dmy.csv"
+    incidents.to_csv(path, index=False)
+    args = [
+        "analyse", str(trial), "--incidents", str(path), "--lon", "lon", "--lat", "lat",
+        "--pre", "2025-01-01:2025-12-31", "--post", "2026-01-01:2026-12-31",
+        "--draws", "50", "--report", str(tmp_path / "r.html"),
+    ]  # fmt: skip
+    refused = CliRunner().invoke(app, args)
+    assert refused.exit_code == 2 and "date_format" in refused.output
+    done = CliRunner().invoke(app, [*args, "--date-format", "dmy"])
+    assert done.exit_code == 0, done.output
+    assert (tmp_path / "r.html").exists() and (tmp_path / "r.md").exists()
+    assert (tmp_path / "r_map.html").exists()
+    # The same incidents counted from ISO dates give the same stored counts.
+    from geoexp.trialfile import TrialFile
+
+    stored = TrialFile.open(trial).read("outcomes")
+    expected = TrialFile.open(demo_outputs["trial"]).read("outcomes")
+    pd.testing.assert_series_equal(stored["post"], expected["post"])

@@ -20,7 +20,7 @@ LABELS = ("treated, none", "treated, neighbour", "control, neighbour", "control,
 
 
 def path_enumeration():
-    """CHECKS.md section 1: a path of 6 units, m = 2, all 15 assignments, four conditions."""
+    """A path of 6 units, m = 2, all 15 assignments, four conditions (Aronow & Samii 2017 set-up)."""
     n = 6
     b = np.array([5, 8, 3, 6, 9, 4.0])
     assigns = list(itertools.combinations(range(n), 2))
@@ -49,7 +49,7 @@ def bits_of(conds: np.ndarray, n_cond: int) -> ConditionBits:
 
 
 def textbook_variance(k, l, y, d, pi, joint):
-    """Aronow & Samii (2017) conservative variance, written out pair by pair (CHECKS.md 1)."""
+    """Aronow & Samii (2017) conservative variance, written out pair by pair (Young's terms too)."""
     n = y.size
 
     def v(c):
@@ -85,7 +85,8 @@ def textbook_variance(k, l, y, d, pi, joint):
 
 @pytest.mark.parametrize(("k", "truth", "true_var"), [(0, -3.0, 42.0648), (2, 1.0, 43.1449)])
 def test_horvitz_thompson_is_unbiased_by_exact_enumeration(k, truth, true_var):
-    # CHECKS.md section 1 [A]: exact enumeration of all 15 assignments
+    # [A] Aronow & Samii (2017): HT is unbiased; exact enumeration of all 15 assignments gives
+    # the true contrasts -3 (direct) and +1 (spillover) exactly
     conds, po = path_enumeration()
     bits = bits_of(conds, 4)
     pi = bits.probabilities()
@@ -146,7 +147,7 @@ def test_trivial_mapping_gives_the_difference_in_means():
 
 
 def test_neyman_standard_error_equals_hc2():
-    # CHECKS.md section 3 [L]: Neyman SE equals statsmodels OLS HC2 (Samii & Aronow 2012)
+    # [L] Neyman (1923) SE = 1.4944341 equals statsmodels OLS HC2 (Samii & Aronow 2012, from memory)
     y_t, y_c = [3, 7, 2, 9, 4], [1, 0, 2, 5, 1, 3]
     y = np.array(y_t + y_c, dtype=float)
     z = np.array([1] * 5 + [0] * 6, dtype=bool)
@@ -171,7 +172,8 @@ def test_positivity_exclusions_are_counted():
 @pytest.mark.parametrize(
     ("counts", "wdq", "tne"),
     [
-        # CHECKS.md section 6 [A]: computed from the formulas, not the paper's own example
+        # [A] Bowers & Johnson (2003) WDQ and TNE, computed from the formulas (not the paper's own
+        # example); identity TNE = -C_a * SM * (1 + WDQ)
         ((100, 70, 80, 72, 1000, 1000), 0.266667, 38.0),
         ((50, 40, 60, 75, 500, 520), -1.05, -0.6),
     ],
@@ -194,7 +196,7 @@ def test_displacement_readings():
 
 
 def test_saturation_total_is_direct_plus_spillover():
-    # CHECKS.md section 5 [A]: total = direct + spillover holds exactly for the estimates
+    # [A] Hudgens & Halloran (2008); Baird et al. (2018): total = direct + spillover exactly
     from geoexp.estimate import saturation_effects
 
     rng = np.random.default_rng(8)
@@ -236,7 +238,8 @@ def test_near_pairs_in_blocks_give_the_same_variance(monkeypatch, k):
 
 
 def test_near_pairs_in_blocks_match_the_textbook_variance(monkeypatch):
-    # CHECKS.md section 1: with every pair near, the blocked sums are the pair-by-pair formula
+    # [A] Aronow & Samii (2017) variance: with every pair near, the blocked sums equal the
+    # pair-by-pair formula
     conds, po = path_enumeration()
     bits = bits_of(conds, 4)
     pi = bits.probabilities()

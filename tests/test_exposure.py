@@ -8,6 +8,7 @@ import pytest
 from scipy.spatial.distance import cdist
 from scipy.stats import hypergeom
 
+from geoexp._engine import numba_module
 from geoexp.design import CompleteSampler, Draws
 from geoexp.errors import InputError
 from geoexp.exposure import (
@@ -16,8 +17,10 @@ from geoexp.exposure import (
     condition_indicators,
     exposure_probabilities,
 )
-from geoexp.exposure._kernels import HAVE_NUMBA, scatter_counts
+from geoexp.exposure._kernels import scatter_counts
 from geoexp.graph import ExposureGraph
+
+HAVE_NUMBA = numba_module() is not None
 
 
 def star_graph(n: int, band1: int, band2: int) -> ExposureGraph:
@@ -38,8 +41,9 @@ def point_graph(points: np.ndarray, max_distance: float) -> ExposureGraph:
 
 
 def test_complete_randomization_matches_hypergeometric():
-    # CHECKS.md section 1 [A]/[L]: with m of n treated, the number of treated units among a
-    # control unit's g band neighbours is hypergeometric(M = n - 1, n = g, N = m).
+    # [A]/[L] Aronow & Samii (2017) exposure probabilities: with m of n treated, the number of
+    # treated units among a control unit's g band neighbours is scipy.stats.hypergeom(M = n - 1,
+    # n = g, N = m); pi(control, none in band) = C(n-1-g, m)/C(n, m).
     n, m, g1, g2 = 10, 3, 2, 3
     graph = star_graph(n, g1, g2)
     mapping = ExposureMapping((150.0, 300.0))
@@ -57,7 +61,7 @@ def test_complete_randomization_matches_hypergeometric():
         ]
     )
     assert np.all(np.abs(p - expected) <= 4 * np.maximum(se, 1e-12))
-    # the worked example of CHECKS.md section 1 (n=10, m=3, g=2): control with a treated
+    # worked example (n=10, m=3, g=2; C(n-1-g, m)/C(n, m) and so on): control with a treated
     # neighbour 49/120, control with none 7/24 -- analytic, binomial coefficients
     one_band = exposure_probabilities(
         CompleteSampler(n, None, m), star_graph(n, 2, 0), ExposureMapping((150.0,)), r, rng=8
@@ -362,3 +366,31 @@ def test_dependence_pairs_join_units_of_a_saturation_cluster():
     # 0 and 2 share cluster a; 1 is reached by 0, so 1-2 are linked too; 5 is linked to none
     assert {(0, 2), (2, 0), (1, 2), (0, 1), (3, 4)} <= pairs
     assert not any(5 in p for p in pairs)
+
+
+def test_banded_reach_is_built_once_and_classifies_like_the_mapping():
+    from geoexp.exposure import BandedReach, band_codes
+
+    rng = np.random.default_rng(11)
+    xy = rng.uniform(0, 500, size=(80, 2))
+    d = cdist(xy, xy)
+    i, j = np.nonzero(np.triu(d <= 300.0, k=1))
+    graph = ExposureGraph.from_pairs(np.arange(80), i, j, d[i, j], max_distance=300.0)
+    mapping = ExposureMapping((100.0, 200.0))
+    reach = BandedReach.of(graph, mapping)
+    assert BandedReach.of(graph, mapping) is reach  # the graph is cut and classified once
+    assert not reach.codes.flags.writeable
+    # brute force from the full distance matrix: pairs within 200 m, bands closed on the right
+    rows = np.repeat(np.arange(80), np.diff(reach.indptr))
+    expected = {(a, b) for a, b in zip(*np.nonzero((d <= 200.0) & (d > 0)), strict=True)}
+    assert set(zip(rows.tolist(), reach.indices.tolist(), strict=True)) == expected
+    assert np.array_equal(reach.codes, np.where(d[rows, reach.indices] <= 100.0, 1, 2))
+    assert np.array_equal(reach.codes, mapping.band_of(reach.distances))
+    # an edge value belongs to the lower band, beyond the last edge is pure control
+    assert band_codes(np.array([0.0, 100.0, 100.5, 200.0, 250.0]), (100.0, 200.0)).tolist() == [
+        1,
+        1,
+        2,
+        2,
+        3,
+    ]

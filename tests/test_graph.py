@@ -428,42 +428,8 @@ def test_synthetic_grid_parcels():
         synthetic_grid(-1)
 
 
-def _lattice_graph(side: int) -> ExposureGraph:
-    xy = np.array([(i, j) for i in range(side) for j in range(side)], dtype=float)
-    d = np.hypot(*(xy[:, None, :] - xy[None, :, :]).transpose(2, 0, 1))
-    i, j = np.nonzero(np.triu(d <= 1.0, k=1))
-    return ExposureGraph.from_pairs(np.arange(len(xy)), i, j, d[i, j], max_distance=1.0)
-
-
-def test_moran_checkerboard_is_minus_one():
-    # CHECKS.md section 8 [A]: a 4 x 4 rook checkerboard has Moran's I = -1
-    graph = _lattice_graph(4)
-    values = np.array([(i + j) % 2 for i in range(4) for j in range(4)], dtype=float)
-    result = graph.moran(values, permutations=99, rng=0)
-    assert result.statistic == pytest.approx(-1.0)
-
-
-def test_moran_matches_esda():
-    # CHECKS.md section 8 [L]: esda.moran.Moran with the same neighbours, row-standardised
-    import esda
-    from libpysal.weights import W
-
-    rng = np.random.default_rng(4)
-    points = rng.uniform(0, 1000, size=(150, 2))
-    graph = ExposureGraph.from_geometries(
-        gpd.GeoSeries(gpd.points_from_xy(points[:, 0], points[:, 1]), crs=32633), 200.0
-    )
-    values = points[:, 0] / 100 + rng.normal(size=150)
-    keep = graph.degree > 0
-    neighbours = {
-        int(i): [int(j) for j in graph.indices[graph.indptr[i] : graph.indptr[i + 1]]]
-        for i in np.flatnonzero(keep)
-    }
-    w = W(neighbours, silence_warnings=True)
-    w.transform = "r"
-    ids = np.flatnonzero(keep)
-    ref = esda.moran.Moran(values[ids], w, permutations=0)
-    ours = graph.moran(values, permutations=199, rng=1)
-    assert ours.statistic == pytest.approx(ref.I, rel=1e-10)
-    assert ours.expected == pytest.approx(ref.EI, rel=1e-12)
-    assert ours.p_value < 0.05  # a strong east-west trend is autocorrelated
+def test_within_open_drops_pairs_exactly_at_the_distance():
+    graph = ExposureGraph.from_pairs(np.arange(3), [0, 1], [1, 2], [50.0, 80.0], max_distance=100.0)
+    assert graph.within(50.0).indices.size == 2  # the pair 0-1, both directions
+    assert graph.within(50.0, closed=False).indices.size == 0
+    assert graph.within(80.0, closed=False).indices.size == 2

@@ -5,6 +5,7 @@ from __future__ import annotations
 import itertools
 from types import SimpleNamespace
 
+import geopandas as gpd
 import numpy as np
 import pytest
 from scipy.spatial.distance import cdist
@@ -18,6 +19,7 @@ from geoexp.inference import (
     FixedFocalSampler,
     fisher_test,
     invert_constant_effect,
+    moran,
     significance,
     spillover_test,
 )
@@ -46,7 +48,8 @@ def lattice_design(side=14, spacing=100.0, n_eligible=60, m=15, bands=(150.0,), 
 
 
 def test_exact_two_sample_example():
-    # CHECKS.md section 2 [A]: Y = (5,6,7 | 1,2,3), first three treated, all 20 assignments
+    # [A] Fisher's exact test: Y = (5,6,7 | 1,2,3), first three treated, all 20 assignments,
+    # difference 4: one-sided p = 1/20 = 0.05, two-sided p = 2/20 = 0.10
     y = np.array([5, 6, 7, 1, 2, 3.0])
     stats = []
     for treated in itertools.combinations(range(6), 3):
@@ -114,7 +117,7 @@ def test_sampled_p_value_is_never_below_one_over_r_plus_one():
 
 
 def test_fisher_test_agrees_with_scipy_permutation_test():
-    # CHECKS.md section 2 [L]: no interference (no pairs), complete randomization: the
+    # [L] scipy.stats.permutation_test: no interference (no pairs), complete randomization: the
     # design's p-value agrees with scipy.stats.permutation_test within Monte Carlo error.
     n, m = 40, 15
     graph = ExposureGraph.from_pairs(np.arange(n), [], [], [], max_distance=10.0)
@@ -152,7 +155,8 @@ def test_fisher_test_agrees_with_scipy_permutation_test():
 
 
 def test_conditional_toy_example():
-    # CHECKS.md section 2 [A]: 8 units on a line, m = 4, focal units {0, 2, 4, 6}
+    # [A] Athey, Eckles & Imbens (2018) conditional test: 8 units on a line, m = 4, focal units
+    # {0, 2, 4, 6}: the 6 conditional assignments give T in {14,16,20,24,28,30}, p = 1/3
     z_obs = np.array([1, 0, 0, 1, 0, 1, 1, 0], dtype=bool)
     focal = np.array([0, 2, 4, 6])
     y_focal = np.array([4, 9, 8, 3.0])
@@ -201,7 +205,7 @@ def simulate_spillover_pvalues(effect, n_sims=240, n_draws=199):
 
 
 def test_conditional_spillover_test_has_its_size_and_power():
-    # CHECKS.md section 2: under a true null of no spillover (a direct effect only), the
+    # Athey, Eckles & Imbens (2018): under a true null of no spillover (a direct effect only), the
     # rejection rate at 5% lies within 2 Monte Carlo standard errors of 5%.
     p_null = simulate_spillover_pvalues(effect=0.0)
     rate = (p_null <= 0.05).mean()
@@ -368,3 +372,45 @@ def test_treated_row_test_has_its_size_and_power_above_alpha_both_ways():
     for shift in (-0.6, 0.6):
         rate = (_treated_row_pvalues(shift, 0.0, 80) <= 0.05).mean()
         assert rate >= 0.05 - 3 * np.sqrt(0.05 * 0.95 / 80), shift
+
+
+def _lattice_graph(side: int) -> ExposureGraph:
+    xy = np.array([(i, j) for i in range(side) for j in range(side)], dtype=float)
+    d = np.hypot(*(xy[:, None, :] - xy[None, :, :]).transpose(2, 0, 1))
+    i, j = np.nonzero(np.triu(d <= 1.0, k=1))
+    return ExposureGraph.from_pairs(np.arange(len(xy)), i, j, d[i, j], max_distance=1.0)
+
+
+def test_moran_checkerboard_is_minus_one():
+    # [A] Moran (1950); Cliff & Ord (1981): a 4 x 4 rook checkerboard has Moran's I = -1
+    graph = _lattice_graph(4)
+    values = np.array([(i + j) % 2 for i in range(4) for j in range(4)], dtype=float)
+    result = moran(graph, values, permutations=99, rng=0)
+    assert result.statistic == pytest.approx(-1.0)
+
+
+def test_moran_matches_esda():
+    # [L] esda.moran.Moran (Moran 1950) with the same neighbours, row-standardised (Cliff &
+    # Ord 1981): the same I and E[I] = -1/(n-1)
+    import esda
+    from libpysal.weights import W
+
+    rng = np.random.default_rng(4)
+    points = rng.uniform(0, 1000, size=(150, 2))
+    graph = ExposureGraph.from_geometries(
+        gpd.GeoSeries(gpd.points_from_xy(points[:, 0], points[:, 1]), crs=32633), 200.0
+    )
+    values = points[:, 0] / 100 + rng.normal(size=150)
+    keep = graph.degree > 0
+    neighbours = {
+        int(i): [int(j) for j in graph.indices[graph.indptr[i] : graph.indptr[i + 1]]]
+        for i in np.flatnonzero(keep)
+    }
+    w = W(neighbours, silence_warnings=True)
+    w.transform = "r"
+    ids = np.flatnonzero(keep)
+    ref = esda.moran.Moran(values[ids], w, permutations=0)
+    ours = moran(graph, values, permutations=199, rng=1)
+    assert ours.statistic == pytest.approx(ref.I, rel=1e-10)
+    assert ours.expected == pytest.approx(ref.EI, rel=1e-12)
+    assert ours.p_value < 0.05  # a strong east-west trend is autocorrelated

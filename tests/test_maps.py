@@ -218,7 +218,7 @@ def test_sample_city_page_size(page):
 
 
 def test_sample_city_has_no_tiles_real_city_has(trial):
-    html, _ = map_html(planning_map(trial))
+    html, _ = map_html(planning_map(trial, tiles=None))
     assert "tile.openstreetmap.org" not in html
     html, _ = map_html(planning_map(trial, tiles="OpenStreetMap"))
     assert "tile.openstreetmap.org" in html
@@ -230,9 +230,9 @@ def test_save_map_atomic_and_fallback(trial, tmp_path, monkeypatch):
     assert out.read_text(encoding="utf-8").startswith("<!DOCTYPE html>")
     assert [p.name for p in out.parent.iterdir()] == ["plan.html"]  # no temporary left behind
 
-    # Without the package that ships Leaflet: a clear warning and content-network links.
+    # Without the shipped copies of Leaflet: a clear warning and content-network links.
     monkeypatch.setattr(_assets, "_find_bundle", lambda: None)
-    with pytest.warns(OfflineAssetWarning, match="django-leaflet"):
+    with pytest.warns(OfflineAssetWarning, match="shipped with geoexp"):
         save_map(planning_map(trial), tmp_path / "online.html")
     html = (tmp_path / "online.html").read_text(encoding="utf-8")
     assert re.search(r"<script src=\"https://[^\"]+/leaflet.js\"", html)
@@ -413,3 +413,36 @@ def test_explicit_districts(region, trial):
     assert expected["districts"] == 3
     with pytest.raises(InputError, match="polygons"):
         planning_map(trial, districts=region.segments.head())
+
+
+def test_vendored_leaflet_versions_and_licences():
+    from importlib.resources import files
+
+    from geoexp.maps._assets import LEAFLET_DRAW_VERSION, LEAFLET_VERSION
+
+    vendor = files("geoexp.maps").joinpath("assets", "vendor")
+    js = vendor.joinpath("leaflet", "leaflet.js").read_text(encoding="utf-8")[:300]
+    draw = vendor.joinpath("leaflet-draw", "leaflet.draw.js").read_text(encoding="utf-8")[:300]
+    # The released files' own headers name their versions and keep their copyright lines.
+    assert f"Leaflet {LEAFLET_VERSION}" in js and "Agafonkin" in js
+    assert f"Leaflet.draw {LEAFLET_DRAW_VERSION}" in draw and "Jacob Toye" in draw
+    # Leaflet is BSD 2-Clause, Leaflet.draw MIT: both need their notices shipped beside the copy.
+    assert "BSD 2-Clause" in vendor.joinpath("leaflet", "LICENSE").read_text(encoding="utf-8")
+    assert "Permission is hereby granted" in vendor.joinpath("leaflet-draw", "LICENSE").read_text(
+        encoding="utf-8"
+    )
+    readme = vendor.joinpath("README.md").read_text(encoding="utf-8")
+    assert LEAFLET_VERSION in readme and LEAFLET_DRAW_VERSION in readme
+
+
+def test_no_script_or_style_in_python_sources():
+    from pathlib import Path
+
+    import geoexp.maps
+
+    # Page scripts and styles live in assets/*.js and *.css, not in Python strings.
+    for source in Path(geoexp.maps.__file__).parent.glob("*.py"):
+        text = source.read_text(encoding="utf-8")
+        # (_assets.py wraps the files it inlines in <script>/<style> tags: markup, not code.)
+        for marker in ("function (", "L.geoJSON", "{% macro", "var map", "border-radius", "font:"):
+            assert marker not in text, f"{source.name} holds page code ({marker!r})"

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import datetime as dt
+from functools import partial
 
 import geopandas as gpd
 import numpy as np
@@ -11,19 +12,23 @@ import pyogrio
 import pyproj
 import pytest
 import shapely
-from hypothesis import HealthCheck, assume, given, settings
+from hypothesis import HealthCheck, assume, example, given, settings
 from hypothesis import strategies as st
 
 from geoexp.errors import CRSError, GeometryError, InputError
 from geoexp.outcomes import (
     REASONS,
     OutcomeTable,
-    count_incidents,
     load_outcomes,
     save_outcomes,
 )
+from geoexp.outcomes import count_incidents as count_checked
 from geoexp.trialfile import TrialFile
 from geoexp.units import UnitSet
+
+# These tests check the counting itself on toy inputs that drop most incidents or leave a
+# period empty on purpose; the stop on such inputs is tested on its own (count_checked).
+count_incidents = partial(count_checked, max_dropped_share=None)
 
 YEAR_2024 = ("2024-01-01", "2024-12-31")
 YEAR_2025 = ("2025-01-01", "2025-12-31")
@@ -296,6 +301,57 @@ def test_no_incident_near_any_unit_hints_at_the_crs():
     assert "CRS" in str(table.drops)
 
 
+# ------------------------------------------------- the stop on mostly dropped incidents
+
+
+def _city_lon_lat(region, years=("2024", "2025")) -> pd.DataFrame:
+    points = region.incidents.to_crs(4326)
+    dates = pd.to_datetime(points["date"]).dt.strftime("%Y-%m-%d")
+    keep = dates.str[:4].isin(years).to_numpy()
+    return pd.DataFrame(
+        {"date": dates[keep], "lon": points.geometry.x[keep], "lat": points.geometry.y[keep]}
+    ).iloc[::20]
+
+
+def test_swapped_lon_lat_stops_counting_and_says_why(units, region, tmp_path):
+    frame = _city_lon_lat(region).rename(columns={"lon": "lat", "lat": "lon"})
+    dropped = tmp_path / "dropped.csv"
+    kw = dict(date_column="date", lon="lon", lat="lat", tolerance_m=30.0, dropped_path=dropped)
+    with pytest.raises(InputError, match="swapped") as err:
+        count_checked(units, frame, pre=YEAR_2024, post=YEAR_2025, **kw)
+    # Arithmetic: every row is read and, being off the map, dropped.
+    assert f"{len(frame):,} read, 0 counted, {len(frame):,} dropped" in str(err.value)
+    assert "outside the units' extent" in str(err.value)
+    assert not dropped.exists()  # nothing written before the stop
+
+
+def test_empty_period_has_its_own_error(units, region):
+    frame = _city_lon_lat(region)
+    kw = dict(date_column="date", lon="lon", lat="lat", tolerance_m=30.0)
+    with pytest.raises(InputError, match="post-period 2031-01-01") as err:
+        count_checked(units, frame, pre=YEAR_2024, post=("2031-01-01", "2031-12-31"), **kw)
+    # The message gives the span of the dates read: the input's first and last date.
+    assert f"dated {frame['date'].min()} to {frame['date'].max()}" in str(err.value)
+
+
+def test_dropped_share_limit_and_its_recorded_override(units, region):
+    frame = _city_lon_lat(region)
+    # Half of the rows moved outside both periods plus the few dropped by tolerance: above 50%.
+    moved = frame.assign(date=np.where(np.arange(len(frame)) % 4 != 0, "2019-06-01", frame["date"]))
+    kw = dict(date_column="date", lon="lon", lat="lat", tolerance_m=30.0)
+    with pytest.raises(InputError, match="more than the limit of 50%") as err:
+        count_checked(units, moved, pre=YEAR_2024, post=YEAR_2025, **kw)
+    assert "outside periods" in str(err.value) and "are the periods right" in str(err.value)
+    table = count_checked(units, moved, pre=YEAR_2024, post=YEAR_2025, max_dropped_share=0.9, **kw)
+    assert table.drops.max_dropped_share == 0.9
+    assert "set to 90% (default 50%) on purpose" in str(table.drops)
+    # The stop changes no count: with it off, the counts are the same.
+    free = count_incidents(units, moved, pre=YEAR_2024, post=YEAR_2025, **kw)
+    pd.testing.assert_frame_equal(free.counts, table.counts)
+    with pytest.raises(InputError, match="between 0 and 1"):
+        count_checked(units, moved, pre=YEAR_2024, post=YEAR_2025, max_dropped_share=1.5, **kw)
+
+
 # ---------------------------------------------------------------------- dates
 
 
@@ -420,6 +476,7 @@ _JUNK = 10_000  # a day offset standing for an unreadable date
         max_size=60,
     )
 )
+@example(rows=[(0.0, 0.0, 366 + 365 - 1)])  # the last day of the post period is counted
 def test_counted_plus_dropped_is_every_incident(rows):
     # Two horizontal 100 m segments at y = 0 and y = 40 (metres above Y0).
     segs = _line_units(ids=(1, 2), ys=(0.0, 40.0))
@@ -460,7 +517,7 @@ def test_counted_plus_dropped_is_every_incident(rows):
     day = np.array([-(10**6) if v is None else v for *_, v in rows], dtype=np.int64)
     no_date = np.array([v is None for *_, v in rows], dtype=bool) & ~no_xy
     junk = (day == _JUNK) & ~no_xy
-    in_periods = (day >= 0) & (day <= 365 + 364)  # 2024 (366 days) and 2025 (365)
+    in_periods = (day >= 0) & (day <= 366 + 365 - 1)  # 2024 (366 days) and 2025 (365)
     outside = ~no_xy & ~no_date & ~junk & ~in_periods
     far = ~no_xy & ~no_date & ~junk & in_periods & (dist > 25.0)
     assert d.counts() == {

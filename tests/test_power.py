@@ -12,7 +12,7 @@ from hypothesis import strategies as st
 from scipy.stats import nbinom
 from statsmodels.stats.power import NormalIndPower, TTestIndPower
 
-from geoexp._rng import child_sequence
+from geoexp._rng import Stream, child_sequence
 from geoexp.design import Design, DesignSpec
 from geoexp.errors import InputError
 from geoexp.exposure import assign_conditions, condition_bits
@@ -73,7 +73,7 @@ def lattice():
 
 
 def test_zhu_lakkis_worked_example():
-    # CHECKS.md section 7 [A]/[M], Zhu & Lakkis (2014): mu0 = 10, RR = 0.8, alpha = 0.5
+    # [A]/[M] Zhu & Lakkis (2014) per-arm sample size: mu0 = 10, RR = 0.8, alpha = 0.5
     # -> 194 per arm  # from memory
     assert negative_binomial_sample_size(10, 0.8, 0.5) == 194
     # [A] the formula: a weaker effect (RR nearer 1) and more dispersion need more units
@@ -89,7 +89,7 @@ def test_zhu_lakkis_worked_example():
 def test_negative_binomial_model_has_the_nb2_mean_and_variance():
     mu, alpha, n = 3.0, 0.5, 200_000
     ref = nbinom(n=1 / alpha, p=1 / (1 + alpha * mu))
-    # CHECKS.md section 7 [L]: scipy.stats.nbinom(n=1/a, p=1/(1+a mu)) has mean mu and
+    # [L] NB2 parametrisation: scipy.stats.nbinom(n=1/a, p=1/(1+a mu)) has mean mu and
     # variance mu + a mu^2 (NB2)
     assert ref.mean() == pytest.approx(mu)
     assert ref.var() == pytest.approx(mu + alpha * mu**2)
@@ -126,7 +126,7 @@ def test_bad_models_are_refused(isolated):
 
 
 def test_engine_statistics_equal_a_direct_hajek_computation(lattice):
-    # [A] CHECKS.md section 1: Hajek = sum(y/pi_k)/sum(1/pi_k) - sum(y/pi_l)/sum(1/pi_l) over
+    # [A] Aronow & Samii (2017): Hajek = sum(y/pi_k)/sum(1/pi_k) - sum(y/pi_l)/sum(1/pi_l) over
     # the units of each condition, recomputed here from the sampler's own draws and
     # assign_conditions, one draw at a time, against the engine's block products.
     model = NegativeBinomialOutcome("past", 0.5, {"treated": 0.7, "spillover_1": 1.2})
@@ -183,7 +183,11 @@ def test_probabilities_are_the_designs_own(lattice):
     )
     # the analysis computes them this way (geoexp.analysis._run): the spec's draws, stream 1
     again = condition_bits(
-        lattice.sampler, lattice.graph, lattice.mapping, lattice.spec.draws, lattice.stream(1)
+        lattice.sampler,
+        lattice.graph,
+        lattice.mapping,
+        lattice.spec.draws,
+        lattice.stream(Stream.MONTE_CARLO),
     ).probabilities()
     np.testing.assert_array_equal(details["probabilities"], again)
     # [A] complete randomization of 10 of 40 eligible units: sum_i pi_i(treated) = 10 per draw
@@ -191,7 +195,7 @@ def test_probabilities_are_the_designs_own(lattice):
 
 
 def test_power_of_the_randomization_test_matches_the_normal_approximation(isolated):
-    # CHECKS.md section 7 [L]: no interference (no pairs), complete randomization of 40 of
+    # [L] statsmodels NormalIndPower: no interference (no pairs), complete randomization of 40 of
     # 64, normal outcomes: power of the difference in means from statsmodels NormalIndPower.
     # Allowance 0.03 on top of 3 MC errors: the randomization test behaves like the t-test,
     # whose power (statsmodels TTestIndPower) is about 0.01 below the normal one here, and its
@@ -220,7 +224,8 @@ def test_power_of_the_randomization_test_matches_the_normal_approximation(isolat
 
 
 def test_size_without_effect_is_alpha(isolated):
-    # CHECKS.md section 2: under a true null the rejection rate is alpha within a few MC errors
+    # Fisher randomization test (Athey, Eckles & Imbens 2018): under a true null the rejection
+    # rate is alpha within a few MC errors
     result = simulate_power(
         isolated, NegativeBinomialOutcome("past", 0.5), n_sims=1000, n_draws=400, rng=3
     )
@@ -231,7 +236,8 @@ def test_size_without_effect_is_alpha(isolated):
 
 
 def test_spillover_test_size_and_power_on_a_lattice(lattice):
-    # CHECKS.md section 2: size within 3 MC errors of alpha under no effect at all; a strong
+    # Athey, Eckles & Imbens (2018) conditional test: size within 3 MC errors of alpha under no
+    # effect at all; a strong
     # displacement into the band is detected more often than alpha
     null = simulate_power(
         lattice, NegativeBinomialOutcome("past", 0.3), n_sims=600, n_draws=300, rng=8
@@ -249,7 +255,11 @@ def test_spillover_test_size_and_power_on_a_lattice(lattice):
     # [A] counts, outcome "change": planted = mean over the focal units of mu_i (RR - 1)
     mu = NegativeBinomialOutcome("past", 0.3).unit_means(lattice)
     probs = condition_bits(
-        lattice.sampler, lattice.graph, lattice.mapping, lattice.spec.draws, lattice.stream(1)
+        lattice.sampler,
+        lattice.graph,
+        lattice.mapping,
+        lattice.spec.draws,
+        lattice.stream(Stream.MONTE_CARLO),
     ).probabilities()
     focal = default_focal_units(lattice, probs, 1)
     assert strong.contrasts[1].n_units == focal.size

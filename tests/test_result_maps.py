@@ -23,8 +23,13 @@ matplotlib.use("Agg")
 import matplotlib.pyplot as plt  # noqa: E402
 
 from geoexp.errors import InputError  # noqa: E402
-from geoexp.maps import map_html, result_map, result_map_static, save_result_map  # noqa: E402
-from geoexp.maps._results import change_limit  # noqa: E402
+from geoexp.maps import (  # noqa: E402
+    change_limit,  # noqa: E402
+    map_html,
+    result_map,
+    result_map_static,
+    save_result_map,
+)
 
 
 @pytest.fixture(scope="module")
@@ -143,12 +148,12 @@ def test_legend_has_estimates_verdicts_and_caution(page, analysis):
 def test_saved_page_is_self_contained(analysis, trial, tmp_path):
     from geoexp.maps import offline_assets_available
 
-    path = save_result_map(analysis, trial, tmp_path / "results_map.html")
+    path = save_result_map(analysis, trial, tmp_path / "results_map.html", tiles=None)
     text = path.read_text(encoding="utf-8")
     if offline_assets_available():
         assert not re.search(r"<script[^>]+src=[\"']https?:", text)
         assert not re.search(r"<link[^>]+href=[\"']https?:", text)
-    # The sample city lies in the ocean: no base tiles by default.
+    # The sample city lies in the ocean: a plain background, as the demo asks for.
     assert "tile.openstreetmap.org" not in text
 
 
@@ -240,8 +245,7 @@ def _images(text: str) -> dict[str, bytes]:
 def test_report_with_a_trial_embeds_the_result_map(analysis, trial, tmp_path):
     from PIL import Image
 
-    from geoexp.analysis import write_report
-    from geoexp.analysis._report import RESULT_MAP_TITLE
+    from geoexp.report import RESULT_MAP_TITLE, write_report
 
     link = save_result_map(analysis, trial, tmp_path / "results_map.html")
     report, md = write_report(analysis, tmp_path / "report.html", trial=trial, result_map_html=link)
@@ -258,8 +262,7 @@ def test_report_with_a_trial_embeds_the_result_map(analysis, trial, tmp_path):
 
 
 def test_report_without_a_trial_is_as_before(analysis, tmp_path):
-    from geoexp.analysis import write_report
-    from geoexp.analysis._report import RESULT_MAP_TITLE
+    from geoexp.report import RESULT_MAP_TITLE, write_report
 
     report, _ = write_report(analysis, tmp_path / "report.html")
     text = report.read_text(encoding="utf-8")

@@ -404,7 +404,7 @@ def rerandomized():
 
 
 def test_rerandomized_threshold_and_acceptance(rerandomized):
-    # [L] scipy.stats.chi2.ppf(0.1, 2) = 0.2107210 (CHECKS.md section 4)
+    # [L] Morgan & Rubin (2012) acceptance threshold: scipy.stats.chi2.ppf(0.1, 2) = 0.2107210
     assert rerandomized.threshold == pytest.approx(0.2107210, abs=1e-7)
     R = 20_000
     base = rerandomized.base.draw_many(R, 8)
@@ -432,7 +432,7 @@ def test_rerandomized_accepts_only_balanced_and_shrinks_variance(rerandomized):
         )
         / 2
     )
-    # [L] v_a = chi2.cdf(a, K + 2) / chi2.cdf(a, K) = 0.0517554 (Morgan & Rubin 2012; CHECKS.md 4)
+    # [L] v_a = chi2.cdf(a, K + 2) / chi2.cdf(a, K) = 0.0517554 (Morgan & Rubin 2012, variance shrink)
     a = scipy.stats.chi2.ppf(0.1, 2)
     v_a = scipy.stats.chi2.cdf(a, 4) / scipy.stats.chi2.cdf(a, 2)
     assert v_a == pytest.approx(0.0517554, abs=1e-6)

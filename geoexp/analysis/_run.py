@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import Literal
@@ -9,15 +10,16 @@ from typing import Literal
 import numpy as np
 import pandas as pd
 
+from geoexp._rng import Stream
 from geoexp.analysis._verdict import Verdict, approximation_supported, row_verdict
 from geoexp.design import Assignment, CompleteSampler, Design, SaturationSampler
 from geoexp.errors import InputError
 from geoexp.estimate import (
     DEFAULT_FLOOR,
+    DENSE_LIMIT,
     ContrastEstimate,
     DisplacementIndex,
     Estimand,
-    _horvitz,
     adjusted_contrast,
     contrast_units,
     estimate_contrast,
@@ -26,6 +28,7 @@ from geoexp.estimate import (
 )
 from geoexp.exposure import condition_bits, dependence_pairs
 from geoexp.inference import (
+    MIN_FOCAL,
     ContrastSpec,
     InvertedTest,
     RandomizationTest,
@@ -34,9 +37,14 @@ from geoexp.inference import (
     rate_ratio_test,
     spillover_test,
 )
-from geoexp.inference._conditional import MIN_FOCAL
 from geoexp.outcomes import OutcomeTable, load_outcomes
-from geoexp.trialfile import TrialFile
+from geoexp.trialfile import (
+    TrialFile,
+    design_from_trial,
+    outcomes_fingerprint,
+    store_results,
+    verify_trial,
+)
 
 Outcome = Literal["change", "post"]
 OUTCOME_WORDS = {
@@ -169,6 +177,9 @@ class Analysis:
     floor: float = DEFAULT_FLOOR
     total_net_effect: float = float("nan")
     control_trend: float = float("nan")
+    # what the analysis was computed from (see geoexp.trialfile.verify_trial)
+    design_fingerprint: str = ""
+    outcomes_fingerprint: str = ""
 
     def to_frame(self) -> pd.DataFrame:
         """One row per main contrast: estimates, intervals, p-values and verdicts."""
@@ -339,8 +350,13 @@ def analyse(
         else :data:`geoexp.estimate.DEFAULT_FLOOR`).
     """
     tf = trial if isinstance(trial, TrialFile) else TrialFile.open(trial)
-    design, assignment = Design.from_trial(tf)
+    integrity = verify_trial(tf)  # refuses a trial whose design or outcomes changed
+    design, assignment = design_from_trial(tf)
+    outcomes_fp = integrity.outcomes_fingerprint if outcomes is None else ""
     outcomes = load_outcomes(tf) if outcomes is None else outcomes
+    if not outcomes_fp:
+        counted = outcomes.counts.reindex(design.units.ids)
+        outcomes_fp = outcomes_fingerprint(counted, outcomes.pre, outcomes.post)
     if outcome not in OUTCOME_WORDS:
         raise InputError(f"outcome must be 'change' or 'post', got {outcome!r}")
     counts = outcomes.counts.reindex(design.units.ids)
@@ -357,7 +373,9 @@ def analyse(
     pc = mapping.pure_control
     observed = assignment.conditions.astype(np.int64)
     r_prob = design.spec.draws
-    bits = condition_bits(design.sampler, design.graph, mapping, r_prob, design.stream(1))
+    bits = condition_bits(
+        design.sampler, design.graph, mapping, r_prob, design.stream(Stream.MONTE_CARLO)
+    )
     probs = bits.probabilities()
     notes = []
     stored = tf.read("probabilities") if "probabilities" in tf.layers else None
@@ -374,7 +392,7 @@ def analyse(
     # the linked pairs tell structural zero joint probabilities from Monte Carlo zeros, and
     # carry the variance alone when the trial is too big for all pairs
     near = _near_pairs(design)
-    if n_big * n_big > _horvitz.DENSE_LIMIT:
+    if n_big * n_big > DENSE_LIMIT:
         notes.append(
             "joint exposure probabilities are computed for the pairs of units whose conditions can "
             "hinge on a common treatment decision; other pairs depend on each other only through "
@@ -555,6 +573,8 @@ def analyse(
         floor=floor,
         total_net_effect=tne,
         control_trend=trend,
+        design_fingerprint=integrity.design_fingerprint,
+        outcomes_fingerprint=outcomes_fp,
     )
 
 
@@ -587,7 +607,12 @@ def _wdq_intervals(
     base = post / ratios[observed]
     cols = pd.DataFrame({"pre": pre, "base": base}, index=design.graph.ids)
     sums = exposure_probabilities(
-        design.sampler, design.graph, mapping, n_draws, design.stream(2), covariates=cols
+        design.sampler,
+        design.graph,
+        mapping,
+        n_draws,
+        design.stream(Stream.DISPLACEMENT),
+        covariates=cols,
     ).covariate_sums
     before = sums[:, :, 0]
     after = sums[:, :, 1] * ratios[None, :]
@@ -716,7 +741,7 @@ def _random_focal_units(design: Design, probs: np.ndarray, band: int) -> np.ndar
     """
     pc = design.mapping.pure_control
     candidates = np.flatnonzero((probs[:, band] > 0) & (probs[:, pc] > 0))
-    rng = np.random.default_rng(design.stream(20 + band))
+    rng = np.random.default_rng(design.stream(Stream.FOCAL_UNITS, band))
     return np.sort(rng.choice(candidates, size=candidates.size // 2, replace=False))
 
 
@@ -738,16 +763,35 @@ def _saturation_table(design: Design, assignment: Assignment, y: np.ndarray) -> 
         return None
 
 
-def save_results(trial: TrialFile | str | Path, analysis: Analysis) -> TrialFile:
-    """Store the analysis in the trial file: a ``results`` layer and ``results_*`` meta keys."""
-    tf = trial if isinstance(trial, TrialFile) else TrialFile.open(trial)
+def save_results(
+    trial: TrialFile | str | Path,
+    analysis: Analysis,
+    *,
+    wait_s: float | None = None,
+    notify: Callable[[str], None] | None = None,
+) -> TrialFile:
+    """Store the analysis in the trial file: a ``results`` layer and ``results_*`` meta keys.
+
+    The write holds the trial's lock and refuses results computed for another
+    design or other outcomes than the trial holds at that moment (a redraw or a
+    new count in between). The results record the design and outcomes
+    fingerprints they were computed from; earlier results are kept in
+    ``superseded_results``.
+    """
+    path = trial.path if isinstance(trial, TrialFile) else trial
     table = analysis.to_frame().reset_index()
-    return tf.write_layers(
-        {"results": table},
-        meta={
+    return store_results(
+        path,
+        table,
+        {
             "results_outcome": analysis.outcome_words,
             "results_estimator": analysis.estimator,
             "results_n_draws": str(analysis.n_draws_tests),
             "results_spec_hash": analysis.spec_hash,
         },
+        design_fingerprint=analysis.design_fingerprint,
+        outcomes_fingerprint=analysis.outcomes_fingerprint,
+        spec_hash=analysis.spec_hash,
+        wait_s=wait_s,
+        notify=notify,
     )

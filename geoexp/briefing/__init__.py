@@ -7,7 +7,9 @@ district a map of its numbered treated places with the list that goes with it.
 pack will have.
 """
 
-from geoexp.briefing._pack import FIELD_NOTES, briefing_pack, plan_briefing
+from geoexp.briefing._load import plan_briefing
+from geoexp.briefing._pack import briefing_pack
+from geoexp.briefing._pages import FIELD_NOTES
 from geoexp.briefing._plan import BriefingPlan, DistrictPages, PageLayout, page_layout
 
 __all__ = [

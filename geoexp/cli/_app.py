@@ -7,10 +7,22 @@ from typing import Annotated
 import typer
 from rich.console import Console
 
-from geoexp.errors import GeoexpError
+from geoexp._paths import check_outputs, writing
+from geoexp.cli._failures import ClickException, GeoexpGroup, UserError, as_click_error
+from geoexp.cli._inputs import load_spec, read_counts_csv, spec_inputs
+from geoexp.cli._options import (
+    MAX_DRAWS,
+    EstimatorChoice,
+    OutcomeChoice,
+    closed_share,
+    open_share,
+    positive_metres,
+)
+from geoexp.errors import InputError
 
 app = typer.Typer(
     name="geoexp",
+    cls=GeoexpGroup,
     help=(
         "Plan and analyse randomized field trials over street segments and parcels, "
         "with spillover between nearby places. geoexp supports, but does not replace, ethics "
@@ -20,22 +32,44 @@ app = typer.Typer(
     no_args_is_help=True,
     add_completion=False,
     pretty_exceptions_enable=False,
+    # Plain help and error text: help and messages hold square brackets ("[units]") and user
+    # text that must print as written, and an error stays one plain line.
+    rich_markup_mode=None,
 )
-console = Console(stderr=False, highlight=False, soft_wrap=True)
-errors = Console(stderr=True, highlight=False, soft_wrap=True)
+# Everything printed holds user text (spec names, paths, unit ids) and geoexp's own text with
+# square brackets ("[units]"): neither may be read as console markup or emoji codes.
+console = Console(stderr=False, highlight=False, soft_wrap=True, markup=False, emoji=False)
+errors = Console(stderr=True, highlight=False, soft_wrap=True, markup=False, emoji=False)
 
 
 def main() -> None:
-    """Entry point: run the app and turn geoexp's errors into a message and exit code 2."""
+    """Entry point: mistakes give a message and exit status 2, defects one line and status 1."""
     try:
         app()
-    except GeoexpError as err:
-        errors.print(f"[bold red]error:[/] {err}")
-        sys.exit(2)
+    except ClickException as err:  # raised outside a command (not in standalone mode)
+        err.show()
+        sys.exit(err.exit_code)
+    except Exception as err:  # noqa: BLE001  (last resort: a user never sees a traceback)
+        failure = as_click_error(err)
+        failure.show()
+        sys.exit(failure.exit_code)
 
 
 SpecArg = Annotated[Path, typer.Argument(help="Design spec (TOML).", exists=False)]
 TrialOpt = Annotated[Path, typer.Option("--trial", "-t", help="Trial file (GeoPackage).")]
+ToleranceOpt = Annotated[
+    float,
+    typer.Option(help="Snapping tolerance in metres (> 0).", callback=positive_metres),
+]
+AllowDroppedOpt = Annotated[
+    float,
+    typer.Option(
+        "--allow-dropped",
+        help="Largest share of incidents that may be dropped before counting stops "
+        "(default 0.5); a higher value is recorded in the drop report.",
+        callback=closed_share,
+    ),
+]
 
 
 @app.command("draw")
@@ -47,27 +81,37 @@ def draw_command(
         typer.Option("--replace", help="Replace a drawn (locked) assignment; the old one is kept."),
     ] = False,
     reason: Annotated[
-        str, typer.Option(help="Why a locked assignment is replaced (recorded).")
+        str,
+        typer.Option(help="Why a locked assignment is replaced (recorded; needed with --replace)."),
     ] = "",
     draws: Annotated[
-        int | None, typer.Option(help="Monte Carlo draws (default: the spec's).")
+        int | None,
+        typer.Option(help="Monte Carlo draws (default: the spec's).", min=1, max=MAX_DRAWS),
     ] = None,
     csv: Annotated[Path | None, typer.Option(help="Also write the field list as CSV here.")] = None,
 ) -> None:
     """Draw a design's assignment from its spec and seed into a locked trial file."""
-    from geoexp.design import Design, DesignSpec
+    from geoexp.design import Design
     from geoexp.trialfile import export_assignment_csv, write_trial
 
-    loaded = DesignSpec.from_toml(spec)
+    if replace and not reason.strip():
+        raise typer.BadParameter(
+            "--replace needs --reason: say why the locked assignment is replaced (it is recorded)",
+            param_hint="'--reason'",
+        )
+    loaded = load_spec(spec)
+    check_outputs({"--trial": trial, "--csv": csv}, spec_inputs(spec, loaded))
     # the number of Monte Carlo draws is part of the locked design (the analysis reuses it)
     design = Design.from_spec(loaded if draws is None else loaded.replace(draws=draws))
     assignment = design.draw()
     probs = design.probabilities()
-    tf = write_trial(trial, design, assignment, probs, replace=replace, reason=reason)
+    with writing(trial, "trial file"):
+        tf = write_trial(trial, design, assignment, probs, replace=replace, reason=reason.strip())
     console.print(str(assignment))
     console.print(f"Trial file written and locked: {tf.path}")
     if csv is not None:
-        export_assignment_csv(tf, csv)
+        with writing(csv, "field list"):
+            export_assignment_csv(tf, csv)
         console.print(f"Field list: {csv}")
 
 
@@ -75,7 +119,8 @@ def draw_command(
 def check_command(
     spec: SpecArg,
     draws: Annotated[
-        int | None, typer.Option(help="Monte Carlo draws (default: the spec's).")
+        int | None,
+        typer.Option(help="Monte Carlo draws (default: the spec's).", min=1, max=MAX_DRAWS),
     ] = None,
     balance: Annotated[
         list[str] | None,
@@ -86,15 +131,19 @@ def check_command(
     ] = None,
 ) -> None:
     """Check a design before it reaches the street: conditions, probabilities, positivity, balance."""
-    from geoexp.design import Design, DesignSpec, check_design
+    from geoexp._atomic import atomic_path
+    from geoexp.design import Design, check_design
 
-    design = Design.from_spec(DesignSpec.from_toml(spec))
+    loaded = load_spec(spec)
+    check_outputs({"--markdown": markdown}, spec_inputs(spec, loaded))
+    design = Design.from_spec(loaded)
     result = check_design(
         design, n_draws=draws, assignment=design.draw(), balance_columns=balance or None
     )
     console.print(str(result))
     if markdown is not None:
-        markdown.write_text(result.to_markdown(), encoding="utf-8")
+        with writing(markdown, "Markdown check"), atomic_path(markdown) as tmp:
+            tmp.write_text(result.to_markdown(), encoding="utf-8")
 
 
 @app.command("export")
@@ -105,39 +154,67 @@ def export_command(
     """Write a trial's assignment as a CSV list for field teams."""
     from geoexp.trialfile import export_assignment_csv
 
-    out = export_assignment_csv(trial, csv)
+    check_outputs({"--csv": csv}, {}, trial=trial)
+    with writing(csv, "field list"):
+        out = export_assignment_csv(trial, csv)
     console.print(f"{len(out)} units written to {csv}")
+
+
+def _refuse_trial_file(path: Path, option: str) -> None:
+    """Refuse to write over an existing geoexp trial file (it holds a locked assignment)."""
+    if not path.is_file():
+        return
+    from geoexp.trialfile import TrialFile
+
+    try:
+        TrialFile.open(path)
+    except Exception:  # noqa: BLE001  (not a trial file: any other file may be replaced)
+        return
+    raise InputError(
+        f"{option} '{path}' is a geoexp trial file; geoexp does not write over a trial: "
+        f"choose another file for {option}"
+    )
 
 
 @app.command("sample-region")
 def sample_region_command(
     out: Annotated[Path, typer.Option(help="GeoPackage to write.")] = Path("quillmere.gpkg"),
-    seed: Annotated[int, typer.Option(help="Seed of the generator.")] = 20261202,
+    seed: Annotated[int, typer.Option(help="Seed of the generator (>= 0).", min=0)] = 20261202,
 ) -> None:
     """Write the invented sample city (street segments, parcels, districts, incidents)."""
     from geoexp.sampleregion import make_city, write_sample_region
 
+    check_outputs({"--out": out}, {})
+    _refuse_trial_file(out, "--out")
     region = make_city(seed)
-    write_sample_region(region, out)
+    with writing(out, "sample region"):
+        write_sample_region(region, out)
     console.print(f"Sample region {region.name!r} written to {out}")
 
 
 @app.command("demo")
 def demo_command(
     out: Annotated[Path, typer.Option(help="Folder for the demo's outputs.")] = Path("demo_trial"),
-    draws: Annotated[int, typer.Option(help="Monte Carlo draws.")] = 2000,
+    draws: Annotated[int, typer.Option(help="Monte Carlo draws.", min=1, max=MAX_DRAWS)] = 2000,
 ) -> None:
     """Run the whole job on the built-in sample region, from planning to the results report."""
     from geoexp.quickstart import run_demo
 
-    run_demo(out, n_draws=draws, echo=console.print)
+    if out.exists() and not out.is_dir():
+        raise InputError(f"--out '{out}' is a file; the demo needs a folder for its outputs")
+    check_outputs({"--out": out / "design.toml"}, {})
+    with writing(out, "demo folder"):
+        run_demo(out, n_draws=draws, echo=console.print)
 
 
 def _period(text: str, what: str) -> tuple[str, str]:
     parts = text.split(":")
-    if len(parts) != 2 or not all(parts):
-        raise typer.BadParameter(f"{what} must be START:END dates, e.g. 2025-01-01:2025-12-31")
-    return parts[0], parts[1]
+    if len(parts) != 2 or not all(p.strip() for p in parts):
+        raise typer.BadParameter(
+            f"must be START:END dates, e.g. 2025-01-01:2025-12-31; got {text!r}",
+            param_hint=f"'{what}'",
+        )
+    return parts[0].strip(), parts[1].strip()
 
 
 @app.command("count")
@@ -157,18 +234,22 @@ def count_command(
     x: Annotated[str | None, typer.Option(help="x column (CSV in a projected CRS).")] = None,
     y: Annotated[str | None, typer.Option(help="y column (CSV in a projected CRS).")] = None,
     crs: Annotated[str | None, typer.Option(help="CRS of x/y columns, e.g. EPSG:32633.")] = None,
-    tolerance: Annotated[float, typer.Option(help="Snapping tolerance in metres.")] = 30.0,
+    tolerance: ToleranceOpt = 30.0,
     dropped: Annotated[
         Path | None, typer.Option(help="CSV for the incidents not counted, with reasons.")
     ] = None,
+    allow_dropped: AllowDroppedOpt = 0.5,
 ) -> None:
     """Count incidents per unit for the pre- and post-periods and store them in the trial file."""
-    from geoexp.outcomes import count_incidents, save_outcomes
-    from geoexp.trialfile import TrialFile
+    from geoexp.workflow import count_and_store
 
-    table = count_incidents(
-        TrialFile.open(trial),
+    periods = _period(pre, "--pre"), _period(post, "--post")
+    check_outputs({"--dropped": dropped}, {"--incidents": incidents}, trial=trial)
+    table = count_and_store(
+        trial,
         incidents,
+        pre=periods[0],
+        post=periods[1],
         date_column=date_column,
         date_format=date_format,
         type_column=type_column,
@@ -178,11 +259,9 @@ def count_command(
         y=y,
         crs=crs,
         tolerance_m=tolerance,
-        pre=_period(pre, "--pre"),
-        post=_period(post, "--post"),
         dropped_path=dropped,
+        max_dropped_share=allow_dropped,
     )
-    save_outcomes(trial, table)
     console.print(str(table.drops))
     console.print(f"Outcomes stored in {trial}")
 
@@ -203,15 +282,13 @@ def counts_command(
     """Store a ready table of counts per unit (pre- and post-period) in the trial file."""
     import pandas as pd
 
-    from geoexp.errors import InputError
     from geoexp.outcomes import OutcomeTable, save_outcomes
     from geoexp.trialfile import TrialFile
 
+    periods = _period(pre, "--pre"), _period(post, "--post")
     tf = TrialFile.open(trial)
-    if not table.exists():
-        raise InputError(f"counts file {str(table)!r} does not exist")
     # ids are read as text first, then matched to the trial's id type
-    frame = pd.read_csv(table, dtype={id_column: str})
+    frame = read_counts_csv(table, id_column)
     ids = tf.units().index
     if id_column in frame.columns and ids.dtype.kind in "iu":
         frame[id_column] = pd.to_numeric(frame[id_column], errors="coerce")
@@ -219,14 +296,15 @@ def counts_command(
         frame,
         id_column,
         units=tf,
-        pre=_period(pre, "--pre"),
-        post=_period(post, "--post"),
+        pre=periods[0],
+        post=periods[1],
         pre_column=pre_column,
         post_column=post_column,
         fill_missing=fill_missing,
         source=str(table),
     )
-    save_outcomes(tf, outcomes)
+    with writing(trial, "trial file"):
+        save_outcomes(tf, outcomes)
     console.print(f"Counts for {len(outcomes.counts)} units stored in {trial}")
 
 
@@ -248,48 +326,79 @@ def analyse_command(
         str | None,
         typer.Option(help="With --incidents: 'iso', 'dmy', 'mdy' or a strftime pattern."),
     ] = None,
+    type_column: Annotated[
+        str | None, typer.Option(help="With --incidents: column of incident types.")
+    ] = None,
     lon: Annotated[str | None, typer.Option(help="With --incidents: longitude column.")] = None,
     lat: Annotated[str | None, typer.Option(help="With --incidents: latitude column.")] = None,
     x: Annotated[str | None, typer.Option(help="With --incidents: x column.")] = None,
     y: Annotated[str | None, typer.Option(help="With --incidents: y column.")] = None,
     crs: Annotated[str | None, typer.Option(help="With --incidents: CRS of x/y.")] = None,
-    tolerance: Annotated[float, typer.Option(help="Snapping tolerance in metres.")] = 30.0,
-    outcome: Annotated[str, typer.Option(help="'change' (post minus pre) or 'post'.")] = "change",
-    estimator: Annotated[str, typer.Option(help="'hajek' or 'horvitz-thompson'.")] = "hajek",
-    draws: Annotated[int, typer.Option(help="Draws of the design per randomization test.")] = 2000,
-    level: Annotated[float, typer.Option(help="Confidence level.")] = 0.95,
+    tolerance: ToleranceOpt = 30.0,
+    allow_dropped: AllowDroppedOpt = 0.5,
+    outcome: Annotated[
+        OutcomeChoice, typer.Option(help="'change' (post minus pre) or 'post'.")
+    ] = OutcomeChoice.change,
+    estimator: Annotated[
+        EstimatorChoice, typer.Option(help="'hajek' or 'horvitz-thompson'.")
+    ] = EstimatorChoice.hajek,
+    draws: Annotated[
+        int,
+        typer.Option(help="Draws of the design per randomization test.", min=1, max=MAX_DRAWS),
+    ] = 2000,
+    level: Annotated[
+        float, typer.Option(help="Confidence level, between 0 and 1.", callback=open_share)
+    ] = 0.95,
 ) -> None:
     """Estimate direct and spillover effects, test them, and write the report.
 
     With --incidents (and --pre, --post) the incidents are counted and stored
     first, so one command goes from the trial file and the incidents to the report.
     """
-    from geoexp.analysis import analyse, save_results, write_report
+    from geoexp.workflow import analyse_trial, count_and_store, report_outputs
 
+    outs = report_outputs(report)
+    check_outputs(
+        {
+            "--report": outs["report"],
+            "--report (its Markdown twin)": outs["report_md"],
+            "--report (its results map)": outs["result_map"],
+        },
+        {"--incidents": incidents},
+        trial=trial,
+    )
     if incidents is not None:
         if pre is None or post is None:
-            raise typer.BadParameter("--incidents needs --pre and --post")
-        count_command(
+            raise typer.BadParameter(
+                "--incidents needs --pre and --post", param_hint="'--incidents'"
+            )
+        table = count_and_store(
             trial,
             incidents,
-            pre,
-            post,
+            pre=_period(pre, "--pre"),
+            post=_period(post, "--post"),
             date_column=date_column,
+            date_format=date_format,
+            type_column=type_column,
             lon=lon,
             lat=lat,
             x=x,
             y=y,
             crs=crs,
-            tolerance=tolerance,
-            type_column=None,
-            dropped=None,
+            tolerance_m=tolerance,
+            max_dropped_share=allow_dropped,
         )
-    from geoexp.maps import save_result_map
+        console.print(str(table.drops))
+    run = analyse_trial(
+        trial,
+        report=outs["report"],
+        result_map=outs["result_map"],
+        outcome=outcome.value,
+        estimator=estimator.value,
+        n_draws=draws,
+        level=level,
+    )
+    console.print(str(run))
 
-    result = analyse(trial, outcome=outcome, estimator=estimator, n_draws=draws, level=level)
-    tf = save_results(trial, result)
-    map_path = save_result_map(result, tf, report.with_name(f"{report.stem}_map.html"))
-    html_path, md_path = write_report(result, report, trial=tf, result_map_html=map_path)
-    console.print(str(result))
-    console.print(f"Report: {html_path} (Markdown: {md_path}); interactive results map: {map_path}")
-    console.print(f"Results stored in {trial}")
+
+__all__ = ["UserError", "app", "console", "errors", "main"]

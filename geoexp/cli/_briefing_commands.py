@@ -8,6 +8,7 @@ from typing import Annotated
 
 import typer
 
+from geoexp._paths import check_outputs, writing
 from geoexp.cli._app import app, console
 
 
@@ -43,8 +44,10 @@ def briefing_command(
 
     if out is None:
         out = trial.with_name(f"{trial.stem}_briefing_{paper.value}.pdf")
+    check_outputs({"--out": out}, {}, trial=trial)
     plan = plan_briefing(trial, paper=paper.value, districts=district or None)
-    path = briefing_pack(trial, out, paper=paper.value, districts=district or None)
+    with writing(out, "briefing pack"):
+        path = briefing_pack(trial, out, paper=paper.value, districts=district or None)
     console.print(str(plan))
     console.print(f"Briefing pack written: {path}")
     console.print(CAUTION)

@@ -7,21 +7,22 @@ from typing import Annotated
 
 import typer
 
+from geoexp._paths import check_outputs, writing
 from geoexp.cli._app import app, console
+from geoexp.cli._inputs import load_spec, spec_inputs
 
 
 def _tiles(value: str) -> str | None:
     return None if value.lower() in ("none", "plain") else value
 
 
-def _draw_only_map(spec_path: Path, districts: Path | None, tiles: str | None):
+def _draw_only_map(spec, districts: Path | None, tiles: str | None):
     """Units of a spec with their eligibility so far, before any design is drawn."""
-    from geoexp.design import DesignSpec
+    from geoexp.design import eligible_for, units_for
     from geoexp.maps import drawing_map
 
-    spec = DesignSpec.from_toml(spec_path)
-    units = spec.read_units()
-    eligible = spec.eligible_units(units)
+    units = units_for(spec)
+    eligible = eligible_for(spec, units)
     return drawing_map(
         units,
         eligible=eligible.ids,
@@ -65,10 +66,14 @@ def map_command(
     from geoexp.maps import planning_map, save_map
 
     if draw_only:
-        m = _draw_only_map(source, districts, _tiles(tiles))
+        spec = load_spec(source)
+        check_outputs({"--out": out}, {**spec_inputs(source, spec), "--districts": districts})
+        m = _draw_only_map(spec, districts, _tiles(tiles))
     else:
+        check_outputs({"--out": out}, {"--districts": districts}, trial=source)
         m = planning_map(source, districts=districts, tiles=_tiles(tiles))
-    path = save_map(m, out)
+    with writing(out, "map"):
+        path = save_map(m, out)
     size_kb = path.stat().st_size / 1024
     console.print(f"Map written: {path} ({size_kb:,.0f} KB)")
     console.print(

@@ -8,6 +8,8 @@ from typing import Annotated
 import typer
 
 from geoexp.cli._app import SpecArg, app, console
+from geoexp.cli._inputs import load_spec
+from geoexp.cli._options import MAX_DRAWS, OutcomeChoice, non_negative, open_share
 
 
 def _effects(items: list[str] | None, what: str) -> dict[str, float]:
@@ -18,9 +20,11 @@ def _effects(items: list[str] | None, what: str) -> dict[str, float]:
             number = float(value)
         except ValueError:
             number = None
+        if number is not None and not (number >= 0 and number < float("inf")):
+            number = None
         if not sep or not name.strip() or number is None:
             raise typer.BadParameter(
-                f"{what} must be CONDITION=NUMBER, e.g. treated=0.8; got {item!r}"
+                f"{what} must be CONDITION=NUMBER (a finite number >= 0), e.g. treated=0.8; got {item!r}"
             )
         out[name.strip()] = number
     return out
@@ -41,14 +45,26 @@ def power_command(
         typer.Option(help="Column of past counts per unit (smoothed to (count + mean) / 2)."),
     ] = "incidents_y1",
     dispersion: Annotated[
-        float, typer.Option(help="Negative binomial dispersion alpha (Var = mu + alpha mu^2).")
+        float,
+        typer.Option(
+            help="Negative binomial dispersion alpha (Var = mu + alpha mu^2), >= 0.",
+            callback=non_negative,
+        ),
     ] = 0.5,
-    sims: Annotated[int, typer.Option(help="Simulated trials.")] = 200,
-    draws: Annotated[int, typer.Option(help="Randomization draws per test.")] = 500,
-    alpha: Annotated[float, typer.Option(help="Significance level of the tests.")] = 0.05,
-    outcome: Annotated[str, typer.Option(help="'change' (post minus pre) or 'post'.")] = "change",
+    sims: Annotated[int, typer.Option(help="Simulated trials.", min=1, max=MAX_DRAWS)] = 200,
+    draws: Annotated[
+        int, typer.Option(help="Randomization draws per test.", min=1, max=MAX_DRAWS)
+    ] = 500,
+    alpha: Annotated[
+        float,
+        typer.Option(help="Significance level of the tests, between 0 and 1.", callback=open_share),
+    ] = 0.05,
+    outcome: Annotated[
+        OutcomeChoice, typer.Option(help="'change' (post minus pre) or 'post'.")
+    ] = OutcomeChoice.change,
     seed: Annotated[
-        int | None, typer.Option(help="Seed of the simulation (default: from the spec's seed).")
+        int | None,
+        typer.Option(help="Seed of the simulation (default: from the spec's seed).", min=0),
     ] = None,
     alternative_spec: Annotated[
         list[Path] | None,
@@ -61,7 +77,7 @@ def power_command(
     trials whose randomization test rejects, its Monte Carlo error and the
     mean estimate. With --alternative-spec, the designs' power side by side.
     """
-    from geoexp.design import Design, DesignSpec
+    from geoexp.design import Design
     from geoexp.power import NegativeBinomialOutcome, compare_designs, simulate_power
 
     model = NegativeBinomialOutcome(
@@ -69,15 +85,15 @@ def power_command(
         dispersion=dispersion,
         rate_ratios=_effects(rate_ratio, "--rate-ratio"),
     )
-    common = dict(n_sims=sims, n_draws=draws, alpha=alpha, outcome=outcome, rng=seed)
-    design = Design.from_spec(DesignSpec.from_toml(spec))
+    common = dict(n_sims=sims, n_draws=draws, alpha=alpha, outcome=outcome.value, rng=seed)
+    design = Design.from_spec(load_spec(spec))
     result = simulate_power(design, model, **common)
     console.print(str(result), markup=False)
     if alternative_spec:
         designs = {spec.stem: design}
         for path in alternative_spec:
             name = path.stem if path.stem not in designs else str(path)
-            designs[name] = Design.from_spec(DesignSpec.from_toml(path))
+            designs[name] = Design.from_spec(load_spec(path))
         table = compare_designs(designs, model, **common)
         console.print("")
         console.print("Designs compared (power, Monte Carlo error, units per contrast):")

@@ -8,14 +8,29 @@ kept-apart designs (no two treated units within a gap), randomized-saturation
 designs (Baird, Bohren, McIntosh & Özler 2018), rerandomization for balance
 (Morgan & Rubin 2012), and a floor on pure controls. The probabilities of each
 design are whatever its procedure implies, estimated by Monte Carlo from the
-same sampler.
+same sampler. A spec is a pure value; :func:`units_for`, :func:`eligible_for`
+and :func:`build_sampler` resolve it, one sampler builder per method
+(:data:`SAMPLER_BUILDERS`), each giving a :class:`Sampler`.
 """
 
 from geoexp.design._assignment import Assignment
+from geoexp.design._build import SAMPLER_BUILDERS, build_sampler, eligible_for, units_for
 from geoexp.design._check import DesignCheck, check_design
 from geoexp.design._design import Design
 from geoexp.design._draws import Draws
+from geoexp.design._fingerprint import (
+    DesignFingerprint,
+    design_fingerprint,
+    frame_digest,
+    spec_identity,
+    tool_version,
+    unit_digests,
+    used_columns,
+    zone_digest,
+)
 from geoexp.design._floor import PureControlFloor
+from geoexp.design._limits import MAX_DRAWS, check_draws, memory_cap_bytes, monte_carlo_bytes
+from geoexp.design._protocol import Sampler, fixed_treated
 from geoexp.design._samplers import (
     BlockedSampler,
     CompleteSampler,
@@ -34,6 +49,16 @@ from geoexp.design._spec import (
 )
 
 __all__ = [
+    "MAX_DRAWS",
+    "SAMPLER_BUILDERS",
+    "Sampler",
+    "build_sampler",
+    "check_draws",
+    "eligible_for",
+    "fixed_treated",
+    "memory_cap_bytes",
+    "monte_carlo_bytes",
+    "units_for",
     "Assignment",
     "AssignmentSpec",
     "EligibilitySpec",
@@ -45,6 +70,7 @@ __all__ = [
     "CompleteSampler",
     "Design",
     "DesignCheck",
+    "DesignFingerprint",
     "DesignSpec",
     "Draws",
     "PureControlFloor",
@@ -52,4 +78,11 @@ __all__ = [
     "SaturationSampler",
     "SeparatedSampler",
     "check_design",
+    "design_fingerprint",
+    "frame_digest",
+    "spec_identity",
+    "tool_version",
+    "unit_digests",
+    "used_columns",
+    "zone_digest",
 ]

@@ -8,10 +8,17 @@ from typing import TYPE_CHECKING
 import numpy as np
 import pandas as pd
 
+from geoexp._moran import moran
+from geoexp._rng import Stream
 from geoexp._tables import markdown_table
 from geoexp.errors import DesignError
-from geoexp.estimate import DEFAULT_FLOOR, Estimand, contrast_units
-from geoexp.exposure import ExposureProbabilities, PositivityReport
+from geoexp.exposure import (
+    DEFAULT_FLOOR,
+    Estimand,
+    ExposureProbabilities,
+    PositivityReport,
+    contrast_units,
+)
 
 if TYPE_CHECKING:
     from geoexp.design._assignment import Assignment
@@ -227,8 +234,12 @@ def _autocorrelation(design: Design, x: np.ndarray, cols: list[str]):
     if not cols or np.ptp(x[:, 0]) == 0:
         return None
     try:
-        return design.graph.moran(
-            x[:, 0], distance=design.mapping.band_edges[0], permutations=199, rng=design.stream(40)
+        return moran(
+            design.graph,
+            x[:, 0],
+            distance=design.mapping.band_edges[0],
+            permutations=199,
+            rng=design.stream(Stream.MORAN),
         )
     except ValueError:
         return None

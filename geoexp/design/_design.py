@@ -9,16 +9,12 @@ from typing import Literal
 import numpy as np
 import pandas as pd
 
-from geoexp._rng import RngLike, child_sequence
+from geoexp._rng import RngLike, Stream, purpose_sequence
 from geoexp.design._assignment import Assignment
-from geoexp.design._floor import PureControlFloor
-from geoexp.design._samplers import (
-    BlockedSampler,
-    CompleteSampler,
-    Rerandomized,
-    SaturationSampler,
-    SeparatedSampler,
-)
+from geoexp.design._build import build_sampler, eligible_for, units_for
+from geoexp.design._fingerprint import DesignFingerprint, design_fingerprint
+from geoexp.design._limits import MIN_DRAWS, check_draws
+from geoexp.design._protocol import Sampler, fixed_treated
 from geoexp.design._spec import DesignSpec
 from geoexp.errors import DesignError, InfeasibleDesignError
 from geoexp.exposure import (
@@ -41,7 +37,8 @@ class Design:
     sampler, seeded from the spec's seed: the first child stream of
     ``SeedSequence(seed)`` draws the assignment, the second the Monte Carlo.
 
-    Build it with :meth:`from_spec`.
+    Build it with :meth:`from_spec` (or from a trial file with
+    :func:`geoexp.trialfile.design_from_trial`).
     """
 
     spec: DesignSpec
@@ -49,7 +46,7 @@ class Design:
     eligible: np.ndarray
     graph: ExposureGraph
     mapping: ExposureMapping
-    sampler: object
+    sampler: Sampler
     notes: tuple[str, ...] = ()
 
     @classmethod
@@ -70,10 +67,10 @@ class Design:
         """
         notes: list[str] = []
         if units is None:
-            units = spec.read_units()
+            units = units_for(spec)
         notes.append(units.crs_report)
         if eligible is None:
-            eligible_units = spec.eligible_units(units)
+            eligible_units = eligible_for(spec, units)
             notes.extend(n for n in eligible_units.notes if n not in units.notes)
             eligible = np.asarray(units.ids.isin(eligible_units.ids))
         else:
@@ -102,62 +99,41 @@ class Design:
                 f"the graph passed in covers {graph.max_distance:g} m over {graph.n} units; the "
                 f"design needs {reach:g} m over the {units.n} units of its layer"
             )
-        sampler = _build_sampler(spec, units, eligible, graph, mapping)
+        sampler = build_sampler(spec, units, eligible, graph, mapping)
         notes.append(sampler.describe())
-        return cls(spec, units, eligible, graph, mapping, sampler, tuple(notes))
+        design = cls(spec, units, eligible, graph, mapping, sampler, tuple(notes))
+        design.check_draws(spec.draws, what="draws", minimum=MIN_DRAWS)
+        return design
+
+    def check_draws(self, n_draws: object, *, what: str = "n_draws", minimum: int = 1) -> int:
+        """``n_draws`` as an int, refused when not whole, too many or beyond memory.
+
+        See :func:`geoexp.design.check_draws`; the memory estimate uses this
+        design's units, conditions and (largest) number of treated units.
+        """
+        treated = fixed_treated(self.sampler)
+        return check_draws(
+            n_draws,
+            n_treated=int(self.eligible.sum()) if treated is None else treated,
+            n_units=self.units.n,
+            n_conditions=self.mapping.n_conditions,
+            minimum=minimum,
+            what=what,
+        )
 
     @property
     def seed_streams(self) -> tuple[np.random.SeedSequence, np.random.SeedSequence]:
         """(assignment stream, Monte Carlo stream), both children of the spec's seed."""
-        root = np.random.SeedSequence(self.spec.seed)
-        return child_sequence(root, 0), child_sequence(root, 1)
+        return self.stream(Stream.ASSIGNMENT), self.stream(Stream.MONTE_CARLO)
 
-    def stream(self, purpose: int) -> np.random.SeedSequence:
-        """Child stream ``purpose`` of the spec's seed (0 assignment, 1 Monte Carlo, 2+ tests)."""
-        return child_sequence(np.random.SeedSequence(self.spec.seed), purpose)
+    def stream(self, purpose: Stream, index: int = 0) -> np.random.SeedSequence:
+        """The spec seed's stream for ``purpose`` (and ``index``: a band, a contrast); see Stream."""
+        return purpose_sequence(np.random.SeedSequence(self.spec.seed), purpose, index)
 
-    @classmethod
-    def from_trial(cls, trial) -> tuple[Design, Assignment]:
-        """Rebuild a trial's design from its trial file, with its stored assignment.
-
-        The units, their eligibility and the spec come from the file itself, so
-        the analysis does not depend on the original layer still being around.
-        The spec's seed is drawn again and must give the stored assignment;
-        if it does not, the file was altered or the environment differs, and
-        the analysis refuses rather than use probabilities of another design.
-        """
-        from geoexp.trialfile import TrialFile
-
-        tf = trial if isinstance(trial, TrialFile) else TrialFile.open(trial)
-        if not tf.is_locked:
-            raise DesignError(f"trial file {str(tf.path)!r} holds no drawn assignment yet")
-        frame = tf.units()
-        eligible = frame["eligible"].astype(bool).to_numpy()
-        units = UnitSet.from_frame(
-            frame.drop(columns=["eligible"]), None, source=f"{tf.path} (units layer)"
-        )
-        design = cls.from_spec(tf.spec(), units=units, eligible=eligible)
-        stored = tf.assignment().reindex(units.ids)
-        treated = stored["treated"].astype(bool).to_numpy()
-        again = design.draw()
-        if not np.array_equal(again.treated, treated):
-            raise DesignError(
-                f"the assignment stored in {str(tf.path)!r} is not the one its spec and seed "
-                f"draw ({int((again.treated != treated).sum())} units differ). The file may have "
-                "been edited by hand; geoexp will not analyse it with another design's probabilities."
-            )
-        assignment = Assignment(
-            ids=units.ids,
-            treated=treated,
-            conditions=again.conditions,
-            eligible=eligible,
-            mapping=design.mapping,
-            spec_hash=design.spec.hash,
-            seed=design.spec.seed,
-            drawn_at=tf.meta.get("drawn_at", ""),
-            extra=again.extra,
-        )
-        return design, assignment
+    @property
+    def fingerprint(self) -> DesignFingerprint:
+        """The design's identity over its spec, units, used columns, zones and tool version."""
+        return design_fingerprint(self.spec, self.units, self.eligible)
 
     @property
     def eligible_ids(self) -> pd.Index:
@@ -191,11 +167,12 @@ class Design:
         engine: Literal["auto", "numba", "numpy"] = "auto",
     ) -> ExposureProbabilities:
         """Exposure probabilities from the design's own sampler (default: the spec's draws and seed)."""
+        n_draws = self.spec.draws if n_draws is None else self.check_draws(n_draws)
         return exposure_probabilities(
             self.sampler,
             self.graph,
             self.mapping,
-            n_draws or self.spec.draws,
+            n_draws,
             self.seed_streams[1] if rng is None else rng,
             covariates=covariates,
             engine=engine,
@@ -206,97 +183,3 @@ class Design:
         from geoexp.design._check import check_design
 
         return check_design(self, n_draws=n_draws, assignment=assignment)
-
-
-def _labels(units: UnitSet, column: str, eligible: np.ndarray, what: str) -> np.ndarray:
-    if column not in units.frame.columns:
-        raise DesignError(
-            f"{what} column {column!r} is not in {units.source!r}; its columns are "
-            f"{[c for c in units.frame.columns if c != 'geometry']}"
-        )
-    values = units.frame[column].to_numpy()[eligible]
-    missing = pd.isna(values)
-    if missing.any():
-        bad = units.ids[eligible][missing]
-        raise DesignError(
-            f"{what} column {column!r} of {units.source!r} is empty for {int(missing.sum())} "
-            f"eligible units, e.g. {list(bad[:10])}"
-        )
-    return values.astype(str)
-
-
-def _round_half_up(x: np.ndarray | float) -> np.ndarray:
-    return np.floor(np.asarray(x, dtype=float) + 0.5).astype(int)
-
-
-def _quotas(spec: DesignSpec, blocks: np.ndarray) -> dict[str, int]:
-    a = spec.assignment
-    labels, sizes = np.unique(blocks, return_counts=True)
-    if a.block_quotas:
-        unknown = sorted(set(map(str, a.block_quotas)) - set(labels))
-        if unknown:
-            raise DesignError(
-                f"[assignment.block_quotas] names blocks {unknown} that have no eligible units; "
-                f"blocks with eligible units: {list(labels)}"
-            )
-        return {str(k): int(a.block_quotas.get(k, 0)) for k in labels}
-    if a.block_treated is not None:
-        return {k: int(a.block_treated) for k in labels}
-    # round half up, so a share of 0.5 of 3 units treats 2 (stated in the check report)
-    return dict(zip(labels, _round_half_up(a.block_share * sizes).tolist(), strict=True))
-
-
-def _gap_csr(graph: ExposureGraph, gap: float) -> tuple[np.ndarray, np.ndarray]:
-    """CSR of the pairs strictly closer than ``gap`` (a pair exactly at the gap is allowed)."""
-    keep = graph.distances < gap
-    rows = np.repeat(np.arange(graph.n), np.diff(graph.indptr))
-    counts = np.bincount(rows[keep], minlength=graph.n)
-    indptr = np.concatenate(([0], np.cumsum(counts))).astype(np.int64)
-    return indptr, graph.indices[keep]
-
-
-def _build_sampler(spec, units, eligible, graph, mapping):
-    a = spec.assignment
-    n = units.n
-    elig_pos = np.flatnonzero(eligible)
-    n_e = elig_pos.size
-    blocks = None
-    if a.method == "complete":
-        m = int(a.treated) if a.treated is not None else int(_round_half_up(a.share * n_e))
-        quotas = None
-    elif a.method == "blocked":
-        blocks = _labels(units, a.block_column, eligible, "block")
-        quotas = _quotas(spec, blocks)
-        m = sum(quotas.values())
-    if a.method == "saturation":
-        clusters = _labels(units, a.cluster_column, eligible, "cluster")
-        sampler = SaturationSampler(
-            n, elig_pos, clusters, tuple(a.saturations), tuple(a.cluster_counts)
-        )
-    elif a.gap_m is not None:
-        gap_indptr, gap_indices = _gap_csr(graph, a.gap_m)
-        sampler = SeparatedSampler(
-            n,
-            elig_pos,
-            n_treated=m if quotas is None else None,
-            gap_graph=(gap_indptr, gap_indices),
-            blocks=blocks,
-            quotas=quotas,
-            gap=a.gap_m,
-        )
-    elif a.method == "blocked":
-        sampler = BlockedSampler(n, elig_pos, blocks, quotas)
-    else:
-        sampler = CompleteSampler(n, elig_pos, m)
-    if spec.rerandomize is not None:
-        cols = list(spec.rerandomize.covariates)
-        missing = [c for c in cols if c not in units.frame.columns]
-        if missing:
-            raise DesignError(
-                f"[rerandomize] covariates {missing} are not columns of {units.source!r}"
-            )
-        x = units.frame[cols].to_numpy(dtype=float)[eligible]
-        sampler = Rerandomized(sampler, x, spec.rerandomize.acceptance, covariate_names=tuple(cols))
-    if a.min_pure_controls:
-        sampler = PureControlFloor(sampler, graph, mapping, eligible, int(a.min_pure_controls))
-    return sampler

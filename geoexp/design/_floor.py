@@ -10,9 +10,7 @@ import numpy as np
 from geoexp._rng import RngLike, as_seed_sequence, child_sequence
 from geoexp.design._draws import Draws
 from geoexp.errors import InfeasibleDesignError
-from geoexp.exposure import ExposureMapping
-from geoexp.exposure._kernels import band_codes, scatter_counts
-from geoexp.exposure._probabilities import reach_csr
+from geoexp.exposure import BandedReach, ExposureMapping, condition_sums
 
 _PILOT = 400
 _BATCH = 1_000
@@ -37,11 +35,8 @@ class PureControlFloor:
     floor: int
 
     def __post_init__(self) -> None:
-        g_indptr, g_indices, g_dist = reach_csr(self.graph, self.mapping)
-        edges = np.asarray(self.mapping.band_edges, dtype=np.float64)
         # the graph and its band codes, prepared once for every batch of draws
-        csr = (g_indptr, g_indices, g_dist, edges, band_codes(g_dist, edges))
-        object.__setattr__(self, "_csr", csr)
+        object.__setattr__(self, "_reach", BandedReach.of(self.graph, self.mapping))
         counts = self._pure_controls(self.base.draw_many(_PILOT, 0))
         rate = float((counts >= self.floor).mean())
         object.__setattr__(self, "_pilot_rate", rate)
@@ -67,18 +62,7 @@ class PureControlFloor:
 
     def _pure_controls(self, draws: Draws) -> np.ndarray:
         """Eligible units left as pure controls by each draw."""
-        g_indptr, g_indices, g_dist, edges, g_code = self._csr
-        _, _, sums = scatter_counts(
-            draws.indptr,
-            draws.indices,
-            g_indptr,
-            g_indices,
-            g_dist,
-            edges,
-            self.n_units,
-            self.eligible[:, None].astype(np.float64),
-            g_code=g_code,
-        )
+        sums = condition_sums(draws, self._reach, self.eligible[:, None].astype(np.float64))
         # sums[r, c, 0]: eligible units in condition c in draw r (pure control left at zero)
         return int(self.eligible.sum()) - sums[:, : self.mapping.pure_control, 0].sum(axis=1)
 

@@ -20,9 +20,8 @@ from typing import Literal
 
 import numpy as np
 
+from geoexp._engine import Engine, jit, resolve_engine
 from geoexp.errors import DesignError
-
-Engine = Literal["auto", "numba", "numpy"]
 
 RUNNING, DONE, STUCK = 0, 1, 2
 
@@ -72,7 +71,7 @@ def distinct_prefix(
     if engine == "numba":
         keep = np.zeros(x.shape, dtype=np.bool_)
         found = np.zeros(x.shape[0], dtype=np.int64)
-        _jit(_distinct_prefix_loops)(x, np.ascontiguousarray(m_row, np.int64), n, keep, found)
+        jit(_distinct_prefix_loops)(x, np.ascontiguousarray(m_row, np.int64), n, keep, found)
         return keep, found
     return _distinct_prefix_numpy(x, m_row)
 
@@ -323,31 +322,6 @@ def _distinct_prefix_loops(x, m_row, n, keep, found):
         found[r] = k
 
 
-_JITTED: dict = {}
-
-
-def _jit(function):
-    """Compile ``function`` with numba on first use (importing numba is slow)."""
-    if function not in _JITTED:
-        import numba
-
-        _JITTED[function] = numba.njit(cache=True, nogil=True)(function)
-    return _JITTED[function]
-
-
-def resolve_engine(engine: Engine) -> Literal["numba", "numpy"]:
-    """Map ``"auto"`` to numba when it imports, else numpy."""
-    if engine not in ("auto", "numba", "numpy"):
-        raise DesignError(f"engine must be 'auto', 'numba' or 'numpy', got {engine!r}")
-    if engine == "auto":
-        try:
-            import numba  # noqa: F401
-        except ImportError:
-            return "numpy"
-        return "numba"
-    return engine
-
-
 def greedy_pack(
     problem: PackingProblem,
     n_draws: int,
@@ -370,7 +344,7 @@ def greedy_pack(
     state = PackingState.empty(n_draws, problem)
     pending = np.arange(n_draws)
     generator = main
-    kernel = _jit(_pack_round_loops) if engine == "numba" else None
+    kernel = jit(_pack_round_loops) if engine == "numba" else None
     for _ in range(_MAX_ROUNDS):
         if pending.size == 0:
             return state

@@ -27,16 +27,10 @@ import scipy.linalg
 import scipy.sparse
 import scipy.stats
 
+from geoexp._engine import Engine, resolve_engine
 from geoexp._rng import RngLike, as_seed_sequence, child_sequence
 from geoexp.design._draws import Draws
-from geoexp.design._kernels import (
-    DONE,
-    Engine,
-    PackingProblem,
-    greedy_pack,
-    resolve_engine,
-    sample_subsets,
-)
+from geoexp.design._kernels import DONE, PackingProblem, greedy_pack, sample_subsets
 from geoexp.errors import DesignError, InfeasibleDesignError, InputError, describe_rows
 
 __all__ = [

@@ -2,7 +2,9 @@
 
 A spec says which layer holds the units, which units are eligible, how
 treatment is assigned, how exposure is measured and which seed draws the
-assignment. Relative paths are read relative to the spec file. The content
+assignment. Relative paths are read relative to the spec file. A spec is a
+pure value: it checks its keys' types and ranges but reads no layer; reading
+the units and applying the rules is :mod:`geoexp.design._build`'s job. The content
 hash is a SHA-256 of the spec's canonical JSON form (keys sorted, defaults
 filled in), so two files that say the same thing have the same hash, and any
 change to what the design does changes it.
@@ -22,6 +24,7 @@ from typing import Any, Literal
 import tomli_w
 
 from geoexp._atomic import atomic_path
+from geoexp.design._schema import checked as _checked
 from geoexp.errors import DesignError
 
 Method = Literal["complete", "blocked", "saturation"]
@@ -34,7 +37,7 @@ class UnitsSpec:
     path: str
     id_column: str
     layer: str | None = None
-    crs: str | None = None
+    crs: str | int | None = None  # text pyproj reads, or an EPSG code
 
 
 @dataclass(frozen=True)
@@ -115,6 +118,8 @@ class DesignSpec:
     base_dir: str = dc_field(default=".", compare=False)
 
     def __post_init__(self) -> None:
+        # the same checks as from_dict, so a spec built directly is held to them too
+        _checked(self.to_dict(), "the spec")
         _validate(self)
 
     # ---- construction -------------------------------------------------
@@ -124,8 +129,21 @@ class DesignSpec:
         path = Path(path)
         if not path.exists():
             raise DesignError(f"design spec {str(path)!r} does not exist")
+        if not path.is_file():
+            raise DesignError(f"design spec {str(path)!r} is not a file (a folder?)")
         try:
-            data = tomllib.loads(path.read_text(encoding="utf-8"))
+            text = path.read_bytes().decode("utf-8")
+        except UnicodeDecodeError as err:
+            raise DesignError(
+                f"design spec {str(path)!r} is not UTF-8 text (byte {err.start}): save it as "
+                "UTF-8 TOML"
+            ) from None
+        except OSError as err:
+            raise DesignError(f"design spec {str(path)!r} cannot be read: {err.strerror}") from None
+        if "\x00" in text:
+            raise DesignError(f"design spec {str(path)!r} is a binary file, not TOML text")
+        try:
+            data = tomllib.loads(text)
         except tomllib.TOMLDecodeError as err:
             raise DesignError(f"design spec {str(path)!r} is not valid TOML: {err}") from None
         return cls.from_dict(data, base_dir=str(path.parent.resolve()), source=str(path))
@@ -134,49 +152,49 @@ class DesignSpec:
     def from_dict(
         cls, data: dict[str, Any], *, base_dir: str = ".", source: str = "<dict>"
     ) -> DesignSpec:
-        """Build a spec from a nested dict (the TOML structure)."""
+        """Build a spec from a nested dict (the TOML structure).
+
+        Every key's type and range is checked before it is used; a message
+        names the table, the key, what was expected and what was received.
+        Whole numbers (``treated``, ``draws``, ``seed``, counts) must be
+        integers; a float is accepted only when it is integral (``12.0``), and
+        a true/false value is never a number.
+        """
+        if not isinstance(data, dict):
+            raise DesignError(
+                f"{source}: a design spec must be a table of keys, got {type(data).__name__}"
+            )
+        data = _checked(data, source)
         data = _feet_to_metres(dict(data), source)
-        try:
-            units = _section(data.pop("units", None), UnitsSpec, "units", source, required=True)
-            eligible = _section(data.pop("eligible", None), EligibilitySpec, "eligible", source)
-            assignment = _section(
-                data.pop("assignment", None), AssignmentSpec, "assignment", source
-            )
-            rerand = data.pop("rerandomize", None)
-            rerandomize = (
-                None
-                if rerand is None
-                else _section(rerand, RerandomizeSpec, "rerandomize", source, required=True)
-            )
-            exposure = _section(data.pop("exposure", None), ExposureSpec, "exposure", source)
-            field_spec = _section(data.pop("field", None), FieldSpec, "field", source)
-            top = {k: data.pop(k) for k in ("name", "seed", "draws") if k in data}
-        except TypeError as err:
-            raise DesignError(f"{source}: {err}") from None
-        if data:
-            raise DesignError(
-                f"{source}: unknown top-level keys {sorted(data)}; expected name, seed, draws and "
-                "the tables [units], [eligible], [assignment], [rerandomize], [exposure], [field]"
-            )
-        for key in ("name", "seed"):
-            if key not in top:
-                raise DesignError(f"{source}: the spec needs a top-level '{key}'")
-        if not isinstance(top["seed"], int) or isinstance(top["seed"], bool) or top["seed"] < 0:
-            raise DesignError(
-                f"{source}: 'seed' must be a non-negative integer, got {top['seed']!r}"
-            )
-        return cls(
-            name=str(top["name"]),
-            seed=int(top["seed"]),
-            draws=int(top.get("draws", 10_000)),
-            units=units,
-            eligible=eligible,
-            assignment=assignment,
-            rerandomize=rerandomize,
-            exposure=exposure,
-            field=field_spec,
-            base_dir=base_dir,
+        units = _section(data.pop("units", None), UnitsSpec, "units", source, required=True)
+        eligible = _section(data.pop("eligible", None), EligibilitySpec, "eligible", source)
+        assignment = _section(data.pop("assignment", None), AssignmentSpec, "assignment", source)
+        rerand = data.pop("rerandomize", None)
+        rerandomize = (
+            None
+            if rerand is None
+            else _section(rerand, RerandomizeSpec, "rerandomize", source, required=True)
         )
+        exposure = _section(data.pop("exposure", None), ExposureSpec, "exposure", source)
+        field_spec = _section(data.pop("field", None), FieldSpec, "field", source)
+        for key in ("name", "seed"):
+            if key not in data:
+                raise DesignError(f"{source}: the spec needs a top-level '{key}'")
+        try:
+            return cls(
+                name=data["name"],
+                seed=data["seed"],
+                draws=data.get("draws", 10_000),
+                units=units,
+                eligible=eligible,
+                assignment=assignment,
+                rerandomize=rerandomize,
+                exposure=exposure,
+                field=field_spec,
+                base_dir=base_dir,
+            )
+        except DesignError as err:
+            raise DesignError(f"{source}: {err}") from None
 
     # ---- output -------------------------------------------------------
     def to_dict(self) -> dict[str, Any]:
@@ -213,29 +231,6 @@ class DesignSpec:
     def short_hash(self) -> str:
         """First 12 hex digits of :attr:`hash`, as printed on field outputs."""
         return self.hash[:12]
-
-    def read_units(self):
-        """Read the spec's unit layer as a :class:`~geoexp.units.UnitSet`."""
-        from geoexp.units import UnitSet
-
-        u = self.units
-        return UnitSet.from_file(self.resolve(u.path), u.id_column, layer=u.layer, crs=u.crs)
-
-    def eligible_units(self, units):
-        """Apply the ``[eligible]`` rules to ``units``: the rule, exclusion zones, then hot spots.
-
-        Exclusion zones come before the top-k/top-share cut, so that hot spots
-        are picked among the places that may be treated at all.
-        """
-        e = self.eligible
-        out = units
-        if e.where:
-            out = out.select(e.where)
-        for zone in e.exclude:
-            out = out.exclude(self.resolve(zone), how=e.exclude_how)
-        if e.top_column:
-            out = out.top(e.top_column, k=e.top_k, share=e.top_share)
-        return out
 
     def resolve(self, path: str) -> Path:
         """A path from the spec, resolved relative to the spec file's folder."""

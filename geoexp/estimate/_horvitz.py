@@ -11,8 +11,7 @@ import pandas as pd
 from scipy.stats import norm
 
 from geoexp.errors import InputError
-from geoexp.estimate._estimand import kish_ess
-from geoexp.exposure import ConditionBits
+from geoexp.exposure import ConditionBits, kish_ess
 
 Estimator = Literal["hajek", "horvitz-thompson"]
 

@@ -8,12 +8,14 @@ probabilities that the variance estimators of the analysis need (Aronow &
 Samii 2017).
 """
 
+from geoexp.exposure._estimand import DEFAULT_FLOOR, Estimand, contrast_units, kish_ess
 from geoexp.exposure._joint import (
     ConditionBits,
     ConditionIndicators,
     condition_bits,
     condition_indicators,
     dependence_pairs,
+    unpack_bits,
 )
 from geoexp.exposure._mapping import ExposureMapping
 from geoexp.exposure._probabilities import (
@@ -21,10 +23,19 @@ from geoexp.exposure._probabilities import (
     ExposureProbabilities,
     PositivityReport,
     assign_conditions,
+    condition_sums,
     exposure_probabilities,
 )
+from geoexp.exposure._reach import BandedReach, band_codes
 
 __all__ = [
+    "DEFAULT_FLOOR",
+    "Estimand",
+    "contrast_units",
+    "kish_ess",
+    "BandedReach",
+    "band_codes",
+    "condition_sums",
     "ConditionBits",
     "condition_bits",
     "dependence_pairs",
@@ -36,4 +47,5 @@ __all__ = [
     "assign_conditions",
     "condition_indicators",
     "exposure_probabilities",
+    "unpack_bits",
 ]

@@ -20,12 +20,12 @@ import pandas as pd
 from geoexp._rng import RngLike, as_seed_sequence
 from geoexp.errors import InputError
 from geoexp.exposure._kernels import (
-    band_codes,
     condition_bits_chunk,
     pair_popcounts,
 )
 from geoexp.exposure._mapping import ExposureMapping
-from geoexp.exposure._probabilities import DrawSource, reach_csr
+from geoexp.exposure._probabilities import DrawSource
+from geoexp.exposure._reach import BandedReach
 
 if TYPE_CHECKING:
     from geoexp.graph import ExposureGraph
@@ -87,9 +87,7 @@ class ConditionIndicators:
         words_per_block = max(1, 4096 // _WORD)
         for w in range(0, self.bits.shape[1], words_per_block):
             block = self.bits[:, w : w + words_per_block]
-            dense = np.unpackbits(
-                block.view(np.uint8).reshape(n, -1), axis=1, bitorder="little"
-            ).astype(np.float32)
+            dense = unpack_bits(block, np.float32)
             out += (dense @ dense.T).astype(np.float64)
         return out / self.n_draws
 
@@ -178,8 +176,8 @@ class ConditionBits:
         out = np.zeros((a_bits.shape[0], b_bits.shape[0]), dtype=np.float32)
         step = 16  # words per block: 1,024 draws
         for w in range(0, self.bits.shape[2], step):
-            a = _unpack(a_bits[:, w : w + step])
-            b = _unpack(b_bits[:, w : w + step])
+            a = unpack_bits(a_bits[:, w : w + step], np.float32)
+            b = unpack_bits(b_bits[:, w : w + step], np.float32)
             out += a @ b.T
         result = out.astype(np.float64) / self.n_draws
         result.flags.writeable = False
@@ -187,11 +185,17 @@ class ConditionBits:
         return result
 
 
-def _unpack(words: np.ndarray) -> np.ndarray:
-    n = words.shape[0]
-    return np.unpackbits(
-        np.ascontiguousarray(words).view(np.uint8).reshape(n, -1), axis=1, bitorder="little"
-    ).astype(np.float32)
+def unpack_bits(words: np.ndarray, dtype: type = np.uint8) -> np.ndarray:
+    """(rows, 64 * n_words) 0/1 indicators of a (rows, n_words) uint64 array, as ``dtype``.
+
+    Bit ``r % 64`` of word ``r // 64`` is draw ``r`` (the layout of
+    :class:`ConditionBits`).
+    """
+    words = np.ascontiguousarray(words, dtype="<u8")
+    flat = np.unpackbits(
+        words.view(np.uint8).reshape(words.shape[0], -1), axis=1, bitorder="little"
+    )
+    return flat.astype(dtype, copy=False)
 
 
 def condition_bits(
@@ -225,9 +229,7 @@ def _condition_bits(
 ) -> ConditionBits:
     """:func:`condition_bits` with a choice of engine (numba or the numpy twin: identical bits)."""
     positions = np.arange(graph.n) if units is None else np.asarray(units, dtype=np.int64)
-    g_indptr, g_indices, g_dist = reach_csr(graph, mapping)
-    edges = np.asarray(mapping.band_edges, dtype=np.float64)
-    g_code = band_codes(g_dist, edges)
+    reach = BandedReach.of(graph, mapping)
     pc = mapping.pure_control
     n_cond = mapping.n_conditions
     n_words = -(-n_draws // _WORD)
@@ -243,9 +245,9 @@ def _condition_bits(
         condition_bits_chunk(
             chunk.indptr,
             chunk.indices,
-            g_indptr,
-            g_indices,
-            g_code,
+            reach.indptr,
+            reach.indices,
+            reach.codes,
             column,
             draw0,
             words,
@@ -296,10 +298,11 @@ def dependence_pairs(
 
     n = graph.n
     eligible = np.asarray(eligible, dtype=bool)
-    rows = np.repeat(np.arange(n, dtype=np.int64), np.diff(graph.indptr))
-    cols = graph.indices.astype(np.int64)
+    reach = BandedReach.of(graph, mapping)
+    rows = np.repeat(np.arange(n, dtype=np.int64), np.diff(reach.indptr))
+    cols = reach.indices.astype(np.int64)
     own = np.flatnonzero(eligible)
-    sel = (graph.distances <= mapping.reach) & eligible[cols]
+    sel = eligible[cols]
     a = sp.csr_array(
         (
             np.ones(int(sel.sum()) + own.size, dtype=np.float32),
@@ -311,9 +314,14 @@ def dependence_pairs(
     if gap is not None and gap > 0:
         if gap > graph.max_distance + 1e-9:
             raise InputError(f"the graph holds pairs up to {graph.max_distance:g} m, not {gap:g} m")
-        g_sel = (graph.distances < gap) & eligible[rows] & eligible[cols]
+        # a gap a hair beyond the graph (within rounding) keeps every pair it holds
+        near = graph.within(min(gap, graph.max_distance), closed=gap > graph.max_distance)
+        g_rows = np.repeat(np.arange(n, dtype=np.int64), np.diff(near.indptr))
+        g_cols = near.indices.astype(np.int64)
+        g_sel = eligible[g_rows] & eligible[g_cols]
         link = link + sp.csr_array(
-            (np.ones(int(g_sel.sum()), dtype=np.float32), (rows[g_sel], cols[g_sel])), shape=(n, n)
+            (np.ones(int(g_sel.sum()), dtype=np.float32), (g_rows[g_sel], g_cols[g_sel])),
+            shape=(n, n),
         )
     # rows in blocks, so that the sparse products never hold more than a block's pairs
     a_t = a.T.tocsr()

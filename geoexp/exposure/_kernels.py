@@ -14,37 +14,11 @@ from __future__ import annotations
 import numpy as np
 import scipy.sparse as sp
 
-try:  # numba is a core dependency, but the numpy twin keeps geoexp usable without it
-    import numba
-
-    HAVE_NUMBA = True
-except ImportError:  # pragma: no cover - exercised only where numba is missing
-    HAVE_NUMBA = False
+from geoexp._engine import compile_kernels, compute_threads, jit, numba_module, resolve_engine
+from geoexp.exposure._reach import band_codes
 
 # Largest number of (draw, neighbour) triples the numpy twin holds at once.
 _TRIPLES_PER_CHUNK = 4_000_000
-
-
-def resolve_engine(engine: str) -> str:
-    """Return "numba" or "numpy" for an engine request ("auto", "numba", "numpy")."""
-    if engine == "auto":
-        return "numba" if HAVE_NUMBA else "numpy"
-    if engine == "numba" and not HAVE_NUMBA:
-        raise ImportError("engine='numba' needs the numba package; use engine='numpy'")
-    if engine not in ("numba", "numpy"):
-        raise ValueError(f"engine must be 'auto', 'numba' or 'numpy', got {engine!r}")
-    return engine
-
-
-def band_codes(g_dist: np.ndarray, edges: np.ndarray) -> np.ndarray:
-    """Condition code of every graph entry: 1 + the number of band edges below its distance.
-
-    Entries beyond the outermost band get ``edges.size + 1`` (pure control, i.e.
-    not reached). The code is monotone in the distance, so the nearest treated
-    unit's band is the smallest code among the treated neighbours: the kernels
-    take minima of these one-byte codes instead of float distances.
-    """
-    return (np.searchsorted(edges, g_dist, side="left") + 1).astype(np.int8)
 
 
 def _spread_impl(start, stop, d_indices, g_indptr, g_indices, g_code, best, touched, pc):
@@ -67,10 +41,6 @@ def _spread_impl(start, stop, d_indices, g_indptr, g_indices, g_code, best, touc
                     n_touched += 1
                 best[j] = c
     return n_touched
-
-
-if HAVE_NUMBA:
-    _spread = numba.njit(cache=True, inline="always")(_spread_impl)
 
 
 def _scatter_numba_impl(
@@ -113,10 +83,6 @@ def _scatter_numba_impl(
                     for q in range(n_cov):
                         cov_sums[r, c, q] += cov[j, q]
                 best[j] = pc
-
-
-if HAVE_NUMBA:
-    _scatter_numba = numba.njit(cache=True, nogil=True, parallel=True)(_scatter_numba_impl)
 
 
 def _gather_rows(indptr: np.ndarray, rows: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -182,30 +148,6 @@ def touched_codes_numpy(
     best[reached] = pc
     best[treated_key] = pc
     return key // n_units, key % n_units, code.astype(np.int64)
-
-
-def touched_conditions_numpy(
-    d_indptr: np.ndarray,
-    d_indices: np.ndarray,
-    g_indptr: np.ndarray,
-    g_indices: np.ndarray,
-    g_dist: np.ndarray,
-    edges: np.ndarray,
-    n_units: int,
-) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Untreated units reached by a chunk of draws: (draw, unit, condition code), unique pairs.
-
-    Draws are rows of the CSR ``(d_indptr, d_indices)``, local to this chunk.
-    """
-    return touched_codes_numpy(
-        np.asarray(d_indptr, dtype=np.int64),
-        np.asarray(d_indices, dtype=np.int64),
-        np.asarray(g_indptr, dtype=np.int64),
-        g_indices,
-        band_codes(g_dist, edges),
-        n_units,
-        edges.size + 2,
-    )
 
 
 # Largest (draw, unit) scratch of the numpy twin, in entries (5 bytes each).
@@ -313,19 +255,21 @@ def scatter_counts(
         n_units, d_indptr, d_indices, g_indptr, g_indices, g_code
     )
     if resolve_engine(engine) == "numba":
-        n_threads = max(1, min(numba.get_num_threads(), n_draws))
-        counts_t = np.zeros((n_threads, n_units, n_cond), dtype=np.int64)
-        _scatter_numba(
-            d_indptr,
-            d_indices,
-            g_indptr,
-            g_indices,
-            g_code,
-            counts_t,
-            cov_arr,
-            cov_sums,
-            cond_counts,
-        )
+        kernel = _numba_kernel(_scatter_numba_impl)
+        with compute_threads() as threads:
+            n_threads = max(1, min(threads, n_draws))
+            counts_t = np.zeros((n_threads, n_units, n_cond), dtype=np.int64)
+            kernel(
+                d_indptr,
+                d_indices,
+                g_indptr,
+                g_indices,
+                g_code,
+                counts_t,
+                cov_arr,
+                cov_sums,
+                cond_counts,
+            )
         counts = counts_t.sum(axis=0) if n_threads > 1 else counts_t[0]
     else:
         counts = np.zeros((n_units, n_cond), dtype=np.int64)
@@ -406,10 +350,19 @@ def _pair_popcounts_impl(a_bits, b_bits, first, second, out):
         out[p] = total
 
 
-if HAVE_NUMBA:
-    _bits_numba = numba.njit(cache=True, nogil=True, parallel=True)(_bits_numba_impl)
-    _popcount = numba.njit(cache=True, inline="always")(_popcount64)
-    _pair_popcounts_numba = numba.njit(cache=True, nogil=True, parallel=True)(_pair_popcounts_impl)
+def _numba_kernel(impl):
+    """The numba version of a parallel kernel, compiled on first use with its inline helpers."""
+    global numba
+    numba = numba_module()
+    compile_kernels(globals(), ("_spread", "_popcount"), inline=True)
+    return jit(impl, parallel=True)
+
+
+# The kernels call these helpers, and read ``numba.prange``, as module globals: they are
+# replaced by compiled versions (and the numba module) just before a kernel first compiles.
+_spread = _spread_impl
+_popcount = _popcount64
+numba = None
 
 
 def condition_bits_chunk(
@@ -440,10 +393,11 @@ def condition_bits_chunk(
     )
     column = np.ascontiguousarray(column, dtype=np.int64)
     if resolve_engine(engine) == "numba":
-        threads = numba.get_num_threads()
-        _bits_numba(
-            d_indptr, d_indices, g_indptr, g_indices, g_code, column, int(draw0), bits, threads
-        )
+        kernel = _numba_kernel(_bits_numba_impl)
+        with compute_threads() as threads:
+            kernel(
+                d_indptr, d_indices, g_indptr, g_indices, g_code, column, int(draw0), bits, threads
+            )
         return
     _condition_bits_numpy(d_indptr, d_indices, g_indptr, g_indices, g_code, column, draw0, bits)
 
@@ -539,9 +493,9 @@ def pair_popcounts(
     second = np.ascontiguousarray(second, dtype=np.int64)
     out = np.empty(first.size, dtype=np.int64)
     if resolve_engine(engine) == "numba":
-        _pair_popcounts_numba(
-            np.ascontiguousarray(a_bits), np.ascontiguousarray(b_bits), first, second, out
-        )
+        kernel = _numba_kernel(_pair_popcounts_impl)
+        with compute_threads():
+            kernel(np.ascontiguousarray(a_bits), np.ascontiguousarray(b_bits), first, second, out)
         return out
     for s in range(0, first.size, block):
         a = a_bits[first[s : s + block]]

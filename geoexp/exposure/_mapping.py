@@ -8,6 +8,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from geoexp.errors import InputError
+from geoexp.exposure._reach import band_codes
 
 
 @dataclass(frozen=True)
@@ -108,6 +109,4 @@ class ExposureMapping:
 
     def band_of(self, distance: np.ndarray) -> np.ndarray:
         """Condition codes (1..K, or pure control) of untreated units at ``distance`` metres."""
-        edges = np.asarray(self.band_edges)
-        # side="left" puts a distance equal to an edge in the lower band (closed on the right)
-        return (np.searchsorted(edges, distance, side="left") + 1).astype(np.int8)
+        return band_codes(distance, np.asarray(self.band_edges))

@@ -8,10 +8,12 @@ from typing import TYPE_CHECKING, Literal, Protocol
 import numpy as np
 import pandas as pd
 
+from geoexp._engine import Engine
 from geoexp._rng import RngLike, as_seed_sequence
 from geoexp.errors import InputError
-from geoexp.exposure._kernels import band_codes, scatter_counts, touched_conditions_numpy
+from geoexp.exposure._kernels import scatter_counts, touched_codes_numpy
 from geoexp.exposure._mapping import ExposureMapping
+from geoexp.exposure._reach import BandedReach
 
 if TYPE_CHECKING:
     from collections.abc import Iterator
@@ -32,19 +34,37 @@ class DrawSource(Protocol):
 
 
 def reach_csr(graph: ExposureGraph, mapping: ExposureMapping) -> tuple[np.ndarray, ...]:
-    """CSR arrays of the graph restricted to the mapping's reach, checking the graph is wide enough."""
-    if graph.metric != mapping.metric:
-        raise InputError(
-            f"the exposure bands are measured {mapping.metric!r} but the graph is {graph.metric!r}; "
-            "build the graph with the same metric"
-        )
-    if graph.max_distance + 1e-9 < mapping.reach:
-        raise InputError(
-            f"the graph holds pairs up to {graph.max_distance:g} m but the outermost spillover band "
-            f"reaches {mapping.reach:g} m; build the graph with max_distance >= {mapping.reach:g}"
-        )
-    g = graph.within(mapping.reach) if graph.max_distance > mapping.reach else graph
-    return g.indptr, g.indices, g.distances
+    """CSR arrays (indptr, indices, distances) of the design's banded reach graph."""
+    reach = BandedReach.of(graph, mapping)
+    return reach.indptr, reach.indices, reach.distances
+
+
+def condition_sums(
+    draws: DrawSource | object,
+    reach: BandedReach,
+    weights: np.ndarray,
+    *,
+    engine: Engine = "auto",
+) -> np.ndarray:
+    """Per draw and condition, the sum of ``weights`` over the units in that condition.
+
+    ``draws`` has ``indptr`` and ``indices`` (treated positions per draw);
+    ``weights`` is (n_units, q). Returns (R, K+2, q) with the pure-control
+    column left at zero (it is the total minus the other columns).
+    """
+    _, _, sums = scatter_counts(
+        draws.indptr,
+        draws.indices,
+        reach.indptr,
+        reach.indices,
+        reach.distances,
+        reach.edges,
+        reach.n_units,
+        weights,
+        engine=engine,
+        g_code=reach.codes,
+    )
+    return sums
 
 
 @dataclass(frozen=True, eq=False)
@@ -242,8 +262,7 @@ def exposure_probabilities(
         raise InputError(
             f"the sampler draws over {sampler.n_units} units but the graph has {graph.n}"
         )
-    g_indptr, g_indices, g_dist = reach_csr(graph, mapping)
-    edges = np.asarray(mapping.band_edges, dtype=np.float64)
+    reach = BandedReach.of(graph, mapping)
     cov = None
     names: tuple[str, ...] = ()
     if covariates is not None:
@@ -256,7 +275,6 @@ def exposure_probabilities(
         cov = aligned.to_numpy(dtype=np.float64)
         names = tuple(map(str, covariates.columns))
     seq = as_seed_sequence(rng)
-    g_code = band_codes(g_dist, edges)  # once for all chunks
     counts = np.zeros((graph.n, mapping.n_conditions), dtype=np.int64)
     sizes, sums = [], []
     seen = 0
@@ -264,14 +282,14 @@ def exposure_probabilities(
         c, s, x = scatter_counts(
             chunk.indptr,
             chunk.indices,
-            g_indptr,
-            g_indices,
-            g_dist,
-            edges,
+            reach.indptr,
+            reach.indices,
+            reach.distances,
+            reach.edges,
             graph.n,
             cov,
             engine=engine,
-            g_code=g_code,
+            g_code=reach.codes,
         )
         counts += c
         seen += chunk.indptr.size - 1
@@ -312,16 +330,15 @@ def assign_conditions(
     treated = np.asarray(treated)
     if treated.dtype == bool:
         treated = np.flatnonzero(treated)
-    g_indptr, g_indices, g_dist = reach_csr(graph, mapping)
-    edges = np.asarray(mapping.band_edges, dtype=np.float64)
-    _, unit, cond = touched_conditions_numpy(
-        np.array([0, treated.size]),
+    reach = BandedReach.of(graph, mapping)
+    _, unit, cond = touched_codes_numpy(
+        np.array([0, treated.size], dtype=np.int64),
         treated.astype(np.int64),
-        g_indptr,
-        g_indices,
-        g_dist,
-        edges,
+        reach.indptr,
+        reach.indices,
+        reach.codes,
         graph.n,
+        reach.n_conditions,
     )
     out = np.full(graph.n, mapping.pure_control, dtype=np.int8)
     out[unit] = cond

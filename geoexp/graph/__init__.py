@@ -28,16 +28,24 @@ import pyproj
 import scipy.sparse as sp
 import shapely
 
+from geoexp._engine import ENGINES, Engine
 from geoexp.errors import CRSError, GeometryError, InputError, describe_rows
-from geoexp.graph import _bands, _euclidean, _io, _moran, _network
+from geoexp.graph import _bands, _diagnostics, _euclidean, _io, _network, _noding
+from geoexp.graph._diagnostics import NetworkDiagnostics
+from geoexp.graph._noding import NetworkInfo, NetworkWarning
 
 if TYPE_CHECKING:
     from geoexp.units import UnitSet
 
-__all__ = ["ExposureGraph"]
+__all__ = [
+    "ExposureGraph",
+    "NetworkDiagnostics",
+    "NetworkInfo",
+    "NetworkWarning",
+    "network_diagnostics",
+]
 
 Metric = Literal["euclidean", "network"]
-Engine = Literal["auto", "numba", "numpy"]
 
 
 @dataclass(frozen=True, eq=False)
@@ -63,6 +71,10 @@ class ExposureGraph:
         How distances were measured.
     crs : str or None
         The CRS of the source layer, for the record.
+    network : NetworkInfo or None
+        Network metric: how the street network was formed (meeting points
+        found, whether lines were split where they cross or touch), for the
+        record of a trial. ``None`` for the euclidean metric.
     """
 
     ids: pd.Index
@@ -72,6 +84,7 @@ class ExposureGraph:
     max_distance: float
     metric: Metric
     crs: str | None = None
+    network: NetworkInfo | None = None
 
     def __post_init__(self) -> None:
         ids = self.ids if isinstance(self.ids, pd.Index) else pd.Index(self.ids)
@@ -106,6 +119,8 @@ class ExposureGraph:
         metric: Metric = "euclidean",
         snap_tolerance: float = 1.0,
         engine: Engine = "auto",
+        split_at_crossings: bool = False,
+        bridge_column: str | None = None,
     ) -> ExposureGraph:
         """Build the graph of a unit set.
 
@@ -125,6 +140,14 @@ class ExposureGraph:
         engine : {"auto", "numba", "numpy"}
             Network metric: the shortest-path engine; both give identical
             results, numba is faster. Ignored by the euclidean metric.
+        split_at_crossings : bool
+            Network metric: also join lines where they cross or touch away
+            from their end points (see :meth:`from_geometries` for why this is
+            off by default).
+        bridge_column : str, optional
+            Network metric: column marking grade-separated segments (bridges,
+            tunnels, flyovers), booleans or levels (non-zero = grade-separated),
+            whose crossings are never joined.
 
         Returns
         -------
@@ -136,6 +159,9 @@ class ExposureGraph:
                 "the network metric needs street segments, but these units are parcels; "
                 "use metric='euclidean' for parcels"
             )
+        marks = None
+        if bridge_column is not None:
+            marks = grade_column(units.frame, bridge_column, units.source)
         return cls.from_geometries(
             units.geometry,
             max_distance,
@@ -145,6 +171,8 @@ class ExposureGraph:
             snap_tolerance=snap_tolerance,
             engine=engine,
             crs=units.crs,
+            split_at_crossings=split_at_crossings,
+            grade_separated=marks,
         )
 
     @classmethod
@@ -159,8 +187,23 @@ class ExposureGraph:
         snap_tolerance: float = 1.0,
         engine: Engine = "auto",
         crs=None,
+        split_at_crossings: bool = False,
+        grade_separated=None,
     ) -> ExposureGraph:
         """Build the graph of bare geometries in a projected CRS.
+
+        With the network metric, the points where lines meet are always found
+        and counted (``graph.network``). By default only end points are
+        junctions, as in a layer split at every junction. Lines are split
+        where they cross or touch only when asked (``split_at_crossings``),
+        because joining every crossing also joins streets that pass over or
+        under each other (bridges, tunnels, flyovers): that gives distances
+        that are too short with no sign of it, while the default's failure is
+        detected and announced. When the crossings and touches away from end
+        points are at least ``MANY_SHARE`` (5%) of all meeting points and the
+        lines are not split, a :class:`NetworkWarning` says how many there are
+        and what to do. The default also keeps graphs of trials already
+        locked unchanged.
 
         Parameters
         ----------
@@ -177,6 +220,15 @@ class ExposureGraph:
             As in :meth:`from_units`.
         crs : optional
             The CRS, when ``geometry`` is a bare array.
+        split_at_crossings : bool
+            Network metric: add the points where lines cross or touch away
+            from their end points as nodes inside the lines. A unit stays one
+            line; its distance to another is the shortest walk between any
+            node on one and any node on the other.
+        grade_separated : array-like of bool or numbers, optional
+            Network metric: one mark per unit (non-zero = bridge, tunnel or
+            flyover). A crossing is joined unless either line is marked; a
+            touch at a marked line's end point is still joined.
 
         Returns
         -------
@@ -185,7 +237,7 @@ class ExposureGraph:
         _check_distance(max_distance)
         if metric not in ("euclidean", "network"):
             raise InputError(f"metric must be 'euclidean' or 'network', got {metric!r}")
-        if engine not in ("auto", "numba", "numpy"):
+        if engine not in ENGINES:
             raise InputError(f"engine must be 'auto', 'numba' or 'numpy', got {engine!r}")
         if not (math.isfinite(snap_tolerance) and snap_tolerance >= 0):
             raise InputError(f"snap_tolerance must be >= 0 metres, got {snap_tolerance!r}")
@@ -220,12 +272,22 @@ class ExposureGraph:
         else:
             order = np.arange(n)
         inner = geoms[order]
+        info = None
         if metric == "euclidean":
             first, second, dist = _euclidean.euclidean_pairs(inner, float(max_distance), scale)
         else:
+            marks = None
+            if grade_separated is not None:
+                marks = _noding.grade_flags(check_marks(grade_separated, ids), n)[order]
             try:
-                first, second, dist = _network.network_pairs(
-                    inner, float(max_distance), scale, float(snap_tolerance), engine
+                first, second, dist, info = _noding.noded_pairs(
+                    inner,
+                    float(max_distance),
+                    scale,
+                    float(snap_tolerance),
+                    engine,
+                    split_at_crossings=bool(split_at_crossings),
+                    grade_separated=marks,
                 )
             except _network.NotLinesError as err:
                 bad = order[err.positions]
@@ -239,7 +301,7 @@ class ExposureGraph:
         pairs = [order[first], order[second], dist]
         del first, second, dist
         indptr, indices, distances = _io.pairs_to_csr(n, pairs)
-        return cls(ids, indptr, indices, distances, float(max_distance), metric, crs_text)
+        return cls(ids, indptr, indices, distances, float(max_distance), metric, crs_text, info)
 
     @classmethod
     def from_pairs(
@@ -354,13 +416,20 @@ class ExposureGraph:
             }
         )
 
-    def within(self, distance: float) -> ExposureGraph:
-        """Keep only pairs at most ``distance`` metres apart.
+    def within(self, distance: float, *, closed: bool = True) -> ExposureGraph:
+        """Keep only pairs at most ``distance`` metres apart (strictly closer if not ``closed``).
+
+        The one way the project cuts the graph at a distance: the spillover
+        reach (closed: a unit exactly at the outermost edge is in the band),
+        the kept-apart gap (open: two units exactly the gap apart are allowed)
+        and the neighbours of Moran's I.
 
         Parameters
         ----------
         distance : float
             New maximum distance in metres, ``0 < distance <= max_distance``.
+        closed : bool
+            Keep pairs exactly ``distance`` apart (default) or drop them.
 
         Returns
         -------
@@ -372,7 +441,7 @@ class ExposureGraph:
                 f"cannot widen a graph built to {self.max_distance:g} m to {distance:g} m; "
                 "build it again with the larger distance"
             )
-        keep = self.distances <= distance
+        keep = self.distances <= distance if closed else self.distances < distance
         rows = np.repeat(np.arange(self.n, dtype=np.int64), self.degree)
         indptr = np.zeros(self.n + 1, dtype=np.int64)
         np.cumsum(np.bincount(rows[keep], minlength=self.n), out=indptr[1:])
@@ -384,6 +453,7 @@ class ExposureGraph:
             float(distance),
             self.metric,
             self.crs,
+            self.network,
         )
 
     def positions(self, ids) -> np.ndarray:
@@ -455,26 +525,6 @@ class ExposureGraph:
         near = _bands.nearest_distance(self.indptr, self.indices, self.distances, rows, self.n)
         return np.flatnonzero(_bands.band_mask(near, rows, float(low), float(high)))
 
-    def moran(
-        self,
-        values,
-        *,
-        distance: float | None = None,
-        permutations: int = 999,
-        rng=None,
-    ) -> _moran.MoranResult:
-        """Moran's I of ``values`` (one per unit) among units within ``distance`` metres.
-
-        Binary weights, row-standardised; permutation p-value (Moran 1950;
-        Cliff & Ord 1981). ``distance`` defaults to the graph's ``max_distance``.
-        """
-        d = self.max_distance if distance is None else float(distance)
-        if d > self.max_distance + 1e-9:
-            raise InputError(f"the graph holds pairs up to {self.max_distance:g} m, not {d:g} m")
-        return _moran.moran(
-            self.indptr, self.indices, self.distances, values, d, int(permutations), rng
-        )
-
     # --------------------------------------------------------------------- io
     def save(self, path: str | os.PathLike[str]) -> None:
         """Write the graph to a ``.npz`` file (atomically; ids stored without pickle).
@@ -485,6 +535,8 @@ class ExposureGraph:
             Target file.
         """
         meta = {"max_distance": self.max_distance, "metric": self.metric, "crs": self.crs}
+        if self.network is not None:
+            meta["network"] = self.network.to_dict()
         _io.save_npz(path, self.ids, self.indptr, self.indices, self.distances, meta)
 
     @classmethod
@@ -509,7 +561,155 @@ class ExposureGraph:
             meta["max_distance"],
             meta["metric"],
             meta["crs"],
+            NetworkInfo(**meta["network"]) if meta.get("network") else None,
         )
+
+
+def network_diagnostics(
+    units,
+    max_distance: float,
+    *,
+    snap_tolerance: float = 1.0,
+    split_at_crossings: bool = False,
+    bridge_column: str | None = None,
+    grade_separated=None,
+    graph: ExposureGraph | None = None,
+    metres_per_unit: float | None = None,
+    engine: Engine = "auto",
+) -> NetworkDiagnostics:
+    """Check that the street network of a segment layer is plausible.
+
+    Reports the connected components of the network, the units with no
+    neighbour within ``max_distance`` (the outer band) along streets, the
+    ratio of along-street pairs to straight-line pairs within it, and the
+    points where lines meet away from their end points. ``warnings`` holds
+    plain sentences, each with what to do, when
+
+    * the along-street pairs are fewer than 25% of the straight-line pairs
+      (along streets two units are never closer than in a straight line, and
+      a connected street grid keeps roughly half or more of the pairs);
+    * more than 10% of the units have no neighbour along streets but have one
+      in a straight line;
+    * more than 5% of the units lie outside the largest component;
+    * lines meet away from their end points at 5% or more of their meeting
+      points and the network is not split there.
+
+    Parameters
+    ----------
+    units : geoexp.units.UnitSet, geopandas.GeoSeries or array of lines
+        Street segments in a projected CRS (or planar coordinates).
+    max_distance : float
+        The outer band, metres.
+    snap_tolerance, split_at_crossings, bridge_column, grade_separated, engine
+        As in :meth:`ExposureGraph.from_units` / :meth:`ExposureGraph.from_geometries`.
+    graph : ExposureGraph, optional
+        An along-street graph of the same units built with the same settings
+        to at least ``max_distance``; reused instead of building one.
+    metres_per_unit : float, optional
+        For bare geometries: metres per coordinate unit.
+
+    Returns
+    -------
+    NetworkDiagnostics
+    """
+    _check_distance(max_distance)
+    if hasattr(units, "frame") and hasattr(units, "metres_per_unit"):
+        if units.kind == "parcel":
+            raise InputError("a street network needs street segments, but these units are parcels")
+        ids = units.ids
+        geoms = np.asarray(units.geometry.values, dtype=object)
+        scale = float(units.metres_per_unit)
+        if bridge_column is not None:
+            grade_separated = grade_column(units.frame, bridge_column, units.source)
+    else:
+        series = units.geometry if isinstance(units, gpd.GeoDataFrame) else units
+        crs = series.crs if isinstance(series, gpd.GeoSeries) else None
+        ids = series.index if isinstance(series, gpd.GeoSeries) else None
+        geoms = np.asarray(getattr(series, "values", series), dtype=object).ravel()
+        ids = pd.RangeIndex(len(geoms)) if ids is None else pd.Index(ids)
+        scale, _ = _scale(crs, metres_per_unit)
+        if bridge_column is not None:
+            raise InputError("bridge_column= needs a UnitSet; pass grade_separated= instead")
+    marks = None
+    if grade_separated is not None:
+        marks = _noding.grade_flags(check_marks(grade_separated, ids), len(ids))
+    reuse = None
+    if graph is not None:
+        if graph.metric != "network" or graph.max_distance + 1e-9 < max_distance:
+            raise InputError(
+                f"graph= must be an along-street graph built to at least {max_distance:g} m"
+            )
+        if not graph.ids.equals(ids):
+            raise InputError("graph= was built over other units")
+        near = graph.within(float(max_distance)) if graph.max_distance > max_distance else graph
+        rows = np.repeat(np.arange(near.n, dtype=np.int64), near.degree)
+        upper = near.indices > rows
+        reuse = (rows[upper], near.indices[upper].astype(np.int64))
+    try:
+        return _diagnostics.diagnose(
+            geoms,
+            ids,
+            float(max_distance),
+            scale,
+            float(snap_tolerance),
+            split_at_crossings=bool(split_at_crossings),
+            grade_separated=marks,
+            engine=engine,
+            network_pairs=reuse,
+        )
+    except _network.NotLinesError as err:
+        raise InputError(
+            "a street network needs street segments, each one connected line; "
+            f"{err.positions.size} units are not: {describe_rows(ids[err.positions].tolist())}"
+        ) from None
+
+
+def grade_column(frame: pd.DataFrame, column: str, source: str) -> np.ndarray:
+    """Marks of grade-separated units from a column of booleans or levels (non-zero = marked)."""
+    if column not in frame.columns:
+        present = [str(c) for c in frame.columns if c != "geometry"]
+        raise InputError(
+            f"'{source}' has no column {column!r} marking grade-separated segments; its columns "
+            f"are {describe_rows(present, limit=len(present)) or 'none'}"
+        )
+    values = frame[column]
+    missing = values.isna().to_numpy(dtype=bool)
+    if missing.any():
+        raise InputError(
+            f"column {column!r} of '{source}' marks grade-separated segments but is empty for "
+            f"ids {describe_rows(frame.index[missing].tolist())}; give 0/false for streets at "
+            "ground level"
+        )
+    if values.dtype == bool:
+        return values.to_numpy(dtype=bool)
+    numbers = pd.to_numeric(values, errors="coerce").to_numpy(dtype=np.float64, na_value=np.nan)
+    bad = ~np.isfinite(numbers)
+    if bad.any():
+        raise InputError(
+            f"column {column!r} of '{source}' must hold booleans or levels (numbers; non-zero = "
+            f"bridge, tunnel or flyover); ids {describe_rows(frame.index[bad].tolist())} do not"
+        )
+    return numbers != 0
+
+
+def check_marks(values, ids: pd.Index) -> np.ndarray:
+    """Grade-separation marks given as an array: one finite value per unit."""
+    arr = np.asarray(values)
+    if arr.shape != (len(ids),):
+        raise InputError(
+            f"grade_separated must hold one value per unit ({len(ids)}), got shape {arr.shape}"
+        )
+    if arr.dtype != bool:
+        try:
+            arr = arr.astype(np.float64)
+        except (TypeError, ValueError):
+            raise InputError("grade_separated must hold booleans or numbers (levels)") from None
+        bad = ~np.isfinite(arr)
+        if bad.any():
+            raise InputError(
+                f"grade_separated is missing for ids {describe_rows(ids[bad].tolist())}"
+            )
+    return arr
 
 
 def _check_distance(value) -> None:

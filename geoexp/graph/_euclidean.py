@@ -12,15 +12,14 @@ memory follows the number of pairs in a chunk, not the number of units squared.
 
 from __future__ import annotations
 
-import os
 from concurrent.futures import ThreadPoolExecutor
 
 import numpy as np
 import shapely
 from scipy.spatial import cKDTree
 
-# Threads for chunks: the KD-tree traversal and GEOS distance release the GIL.
-N_THREADS = max(1, min(2, os.cpu_count() or 1))
+from geoexp._engine import compute_threads
+
 # Candidate pairs per chunk; bounds the chunk's temporary arrays (~100 bytes a pair).
 CHUNK_CANDIDATES = 1_500_000
 # Units whose box half-diagonals differ by more than this factor go to different buckets.
@@ -63,11 +62,13 @@ def euclidean_pairs(
         for start, stop in _chunks(tree, centre[src], reach):
             tasks.append((tree, src[start:stop], dst, same, reach))
 
-    if N_THREADS > 1 and len(tasks) > 1:
-        with ThreadPoolExecutor(N_THREADS) as pool:
-            parts = list(pool.map(lambda t: _measure_chunk(*t, context), tasks))
-    else:
-        parts = [_measure_chunk(*t, context) for t in tasks]
+    # the KD-tree traversal and GEOS distances release the GIL: one worker thread per core
+    with compute_threads() as n_threads:
+        if n_threads > 1 and len(tasks) > 1:
+            with ThreadPoolExecutor(n_threads) as pool:
+                parts = list(pool.map(lambda t: _measure_chunk(*t, context), tasks))
+        else:
+            parts = [_measure_chunk(*t, context) for t in tasks]
     if not parts:
         return empty
     # Concatenate one column at a time, dropping each column's chunks as it goes,

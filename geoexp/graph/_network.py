@@ -20,7 +20,6 @@ the floating-point sums along a path are done in the same order.
 
 from __future__ import annotations
 
-import os
 from concurrent.futures import ThreadPoolExecutor
 
 import numpy as np
@@ -29,15 +28,9 @@ import shapely
 from scipy.sparse.csgraph import connected_components, dijkstra
 from scipy.spatial import cKDTree
 
-try:
-    import numba
-except ImportError:  # the numpy engine still works
-    numba = None
+from geoexp._engine import compile_kernels, compute_threads, resolve_engine
 
-# Threads for the numba engine (it releases the GIL).
-N_THREADS = max(1, min(2, os.cpu_count() or 1))
-# Module-level switch: "auto" uses numba when it imports, else numpy.
-DEFAULT_ENGINE = "auto"
+_KERNELS = ("_sources", "_grow_int", "_grow_float", "_bounded_walks")
 # Dense Dijkstra rows per chunk in the numpy engine (rows x nodes float64 values).
 NUMPY_CHUNK_VALUES = 8_000_000
 
@@ -141,34 +134,27 @@ def network_pairs(
     np.cumsum(np.bincount(node_of, minlength=net["n_nodes"]), out=inc_ptr[1:])
 
     if resolve_engine(engine) == "numba":
-        if numba is None:
-            raise ImportError("engine='numba' needs the Python package 'numba'")
+        compile_kernels(globals(), _KERNELS)
         args = (seg_node, net["adj_ptr"], net["adj_node"], net["adj_w"], inc_ptr, inc_seg)
         # Each thread takes an interleaved share of blocks of sources, which
-        # balances the work when the network is denser in one part.
+        # balances the work when the network is denser in one part. The kernel
+        # releases the GIL, so these threads run in parallel, one per core allowed.
         block = 2048
         starts = np.arange(0, n, block, dtype=np.int64)
-        shares = [starts[k::N_THREADS] for k in range(N_THREADS)]
-        work = [
-            lambda share=share: _bounded_walks(*args, share, block, float(max_distance))
-            for share in shares
-            if share.size
-        ]
-        if len(work) > 1:
-            with ThreadPoolExecutor(len(work)) as pool:
-                parts = list(pool.map(lambda f: f(), work))
-        else:
-            parts = [f() for f in work]
+        with compute_threads() as n_threads:
+            shares = [starts[k::n_threads] for k in range(n_threads)]
+            work = [
+                lambda share=share: _bounded_walks(*args, share, block, float(max_distance))
+                for share in shares
+                if share.size
+            ]
+            if len(work) > 1:
+                with ThreadPoolExecutor(len(work)) as pool:
+                    parts = list(pool.map(lambda f: f(), work))
+            else:
+                parts = [f() for f in work]
         return tuple(np.concatenate([p[k] for p in parts]) for k in range(3))
     return _scipy_walks(seg_node, net["graph"], inc_ptr, inc_seg, float(max_distance))
-
-
-def resolve_engine(engine: str) -> str:
-    """Turn "auto" into "numba" when numba imports, else "numpy"."""
-    choice = DEFAULT_ENGINE if engine == "auto" else engine
-    if choice == "auto":
-        return "numpy" if numba is None else "numba"
-    return choice
 
 
 def _scipy_walks(seg_node, graph, inc_ptr, inc_seg, limit):
@@ -221,122 +207,120 @@ def _expand(ptr: np.ndarray, keys: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     return ent, ptr[keys][ent] + offset
 
 
-if numba is not None:
-
-    @numba.njit(cache=True, nogil=True)
-    def _bounded_walks(seg_node, adj_ptr, adj_node, adj_w, inc_ptr, inc_seg, starts, block, limit):
-        n = seg_node.shape[0]
-        n_nodes = adj_ptr.size - 1
-        dist = np.full(n_nodes, np.inf)
-        settled = np.zeros(n_nodes, dtype=np.bool_)
-        touched = np.empty(n_nodes, dtype=np.int64)
-        seen = np.full(n, -1, dtype=np.int64)
-        heap_d = np.empty(64, dtype=np.float64)
-        heap_v = np.empty(64, dtype=np.int64)
-        cap = 64 + 8 * starts.size * block
-        out_a = np.empty(cap, dtype=np.int64)
-        out_b = np.empty(cap, dtype=np.int64)
-        out_d = np.empty(cap, dtype=np.float64)
-        m = 0
-        for a in _sources(starts, block, n):
-            n_touched = 0
-            size = 0
-            for end in range(2):
-                s = seg_node[a, end]
-                if dist[s] == np.inf:
-                    dist[s] = 0.0
-                    touched[n_touched] = s
-                    n_touched += 1
-                    heap_d[size] = 0.0
-                    heap_v[size] = s
+# numba kernels, compiled on first use by network_pairs (see geoexp._engine)
+def _bounded_walks(seg_node, adj_ptr, adj_node, adj_w, inc_ptr, inc_seg, starts, block, limit):
+    n = seg_node.shape[0]
+    n_nodes = adj_ptr.size - 1
+    dist = np.full(n_nodes, np.inf)
+    settled = np.zeros(n_nodes, dtype=np.bool_)
+    touched = np.empty(n_nodes, dtype=np.int64)
+    seen = np.full(n, -1, dtype=np.int64)
+    heap_d = np.empty(64, dtype=np.float64)
+    heap_v = np.empty(64, dtype=np.int64)
+    cap = 64 + 8 * starts.size * block
+    out_a = np.empty(cap, dtype=np.int64)
+    out_b = np.empty(cap, dtype=np.int64)
+    out_d = np.empty(cap, dtype=np.float64)
+    m = 0
+    for a in _sources(starts, block, n):
+        n_touched = 0
+        size = 0
+        for end in range(2):
+            s = seg_node[a, end]
+            if dist[s] == np.inf:
+                dist[s] = 0.0
+                touched[n_touched] = s
+                n_touched += 1
+                heap_d[size] = 0.0
+                heap_v[size] = s
+                size += 1
+        while size > 0:
+            # Pop the minimum (lazy deletion: stale entries are skipped).
+            d = heap_d[0]
+            x = heap_v[0]
+            size -= 1
+            if size > 0:
+                last_d = heap_d[size]
+                last_v = heap_v[size]
+                i = 0
+                while True:
+                    c = 2 * i + 1
+                    if c >= size:
+                        break
+                    if c + 1 < size and heap_d[c + 1] < heap_d[c]:
+                        c += 1
+                    if heap_d[c] < last_d:
+                        heap_d[i] = heap_d[c]
+                        heap_v[i] = heap_v[c]
+                        i = c
+                    else:
+                        break
+                heap_d[i] = last_d
+                heap_v[i] = last_v
+            if settled[x] or d > dist[x]:
+                continue
+            settled[x] = True
+            # Nodes settle in increasing distance, so the first visit of a
+            # segment is at its nearest end point: that is its distance.
+            for k in range(inc_ptr[x], inc_ptr[x + 1]):
+                b = inc_seg[k]
+                if b > a and seen[b] != a:
+                    seen[b] = a
+                    if m == cap:
+                        cap *= 2
+                        out_a = _grow_int(out_a, cap)
+                        out_b = _grow_int(out_b, cap)
+                        out_d = _grow_float(out_d, cap)
+                    out_a[m] = a
+                    out_b[m] = b
+                    out_d[m] = d
+                    m += 1
+            for k in range(adj_ptr[x], adj_ptr[x + 1]):
+                y = adj_node[k]
+                nd = d + adj_w[k]
+                if nd <= limit and nd < dist[y]:
+                    if dist[y] == np.inf:
+                        touched[n_touched] = y
+                        n_touched += 1
+                    dist[y] = nd
+                    if size == heap_d.size:
+                        heap_d = _grow_float(heap_d, 2 * size)
+                        heap_v = _grow_int(heap_v, 2 * size)
+                    i = size
                     size += 1
-            while size > 0:
-                # Pop the minimum (lazy deletion: stale entries are skipped).
-                d = heap_d[0]
-                x = heap_v[0]
-                size -= 1
-                if size > 0:
-                    last_d = heap_d[size]
-                    last_v = heap_v[size]
-                    i = 0
-                    while True:
-                        c = 2 * i + 1
-                        if c >= size:
-                            break
-                        if c + 1 < size and heap_d[c + 1] < heap_d[c]:
-                            c += 1
-                        if heap_d[c] < last_d:
-                            heap_d[i] = heap_d[c]
-                            heap_v[i] = heap_v[c]
-                            i = c
+                    while i > 0:
+                        parent = (i - 1) // 2
+                        if heap_d[parent] > nd:
+                            heap_d[i] = heap_d[parent]
+                            heap_v[i] = heap_v[parent]
+                            i = parent
                         else:
                             break
-                    heap_d[i] = last_d
-                    heap_v[i] = last_v
-                if settled[x] or d > dist[x]:
-                    continue
-                settled[x] = True
-                # Nodes settle in increasing distance, so the first visit of a
-                # segment is at its nearest end point: that is its distance.
-                for k in range(inc_ptr[x], inc_ptr[x + 1]):
-                    b = inc_seg[k]
-                    if b > a and seen[b] != a:
-                        seen[b] = a
-                        if m == cap:
-                            cap *= 2
-                            out_a = _grow_int(out_a, cap)
-                            out_b = _grow_int(out_b, cap)
-                            out_d = _grow_float(out_d, cap)
-                        out_a[m] = a
-                        out_b[m] = b
-                        out_d[m] = d
-                        m += 1
-                for k in range(adj_ptr[x], adj_ptr[x + 1]):
-                    y = adj_node[k]
-                    nd = d + adj_w[k]
-                    if nd <= limit and nd < dist[y]:
-                        if dist[y] == np.inf:
-                            touched[n_touched] = y
-                            n_touched += 1
-                        dist[y] = nd
-                        if size == heap_d.size:
-                            heap_d = _grow_float(heap_d, 2 * size)
-                            heap_v = _grow_int(heap_v, 2 * size)
-                        i = size
-                        size += 1
-                        while i > 0:
-                            parent = (i - 1) // 2
-                            if heap_d[parent] > nd:
-                                heap_d[i] = heap_d[parent]
-                                heap_v[i] = heap_v[parent]
-                                i = parent
-                            else:
-                                break
-                        heap_d[i] = nd
-                        heap_v[i] = y
-            for t in range(n_touched):
-                dist[touched[t]] = np.inf
-                settled[touched[t]] = False
-        return out_a[:m].copy(), out_b[:m].copy(), out_d[:m].copy()
+                    heap_d[i] = nd
+                    heap_v[i] = y
+        for t in range(n_touched):
+            dist[touched[t]] = np.inf
+            settled[touched[t]] = False
+    return out_a[:m].copy(), out_b[:m].copy(), out_d[:m].copy()
 
-    @numba.njit(cache=True, nogil=True)
-    def _sources(starts, block, n):
-        out = np.empty(starts.size * block, dtype=np.int64)
-        m = 0
-        for s in starts:
-            for a in range(s, min(s + block, n)):
-                out[m] = a
-                m += 1
-        return out[:m]
 
-    @numba.njit(cache=True, nogil=True)
-    def _grow_int(arr, cap):
-        new = np.empty(cap, dtype=arr.dtype)
-        new[: arr.size] = arr
-        return new
+def _sources(starts, block, n):
+    out = np.empty(starts.size * block, dtype=np.int64)
+    m = 0
+    for s in starts:
+        for a in range(s, min(s + block, n)):
+            out[m] = a
+            m += 1
+    return out[:m]
 
-    @numba.njit(cache=True, nogil=True)
-    def _grow_float(arr, cap):
-        new = np.empty(cap, dtype=arr.dtype)
-        new[: arr.size] = arr
-        return new
+
+def _grow_int(arr, cap):
+    new = np.empty(cap, dtype=arr.dtype)
+    new[: arr.size] = arr
+    return new
+
+
+def _grow_float(arr, cap):
+    new = np.empty(cap, dtype=arr.dtype)
+    new[: arr.size] = arr
+    return new

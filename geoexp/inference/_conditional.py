@@ -8,11 +8,11 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
-from geoexp._rng import RngLike
+from geoexp._rng import RngLike, Stream
+from geoexp._significance import Alternative, RandomizationTest
 from geoexp.design import CompleteSampler, Draws
 from geoexp.errors import InputError
 from geoexp.inference._draws import ContrastSpec, contrast_test
-from geoexp.inference._significance import Alternative, RandomizationTest
 
 if TYPE_CHECKING:
     from geoexp.design import Design
@@ -145,7 +145,7 @@ def spillover_test(
         null=f"no spillover into {design.mapping.labels[band]} (focal units)",
         estimator=estimator,
         n_draws=n_draws,
-        rng=design.stream(3 + band) if rng is None else rng,
+        rng=design.stream(Stream.SPILLOVER_TEST, band) if rng is None else rng,
         alternative=alternative,
         n_focal=int(focal.size),
         keep_null=keep_null,

@@ -8,8 +8,8 @@ import numpy as np
 import pandas as pd
 
 from geoexp._rng import RngLike
+from geoexp._significance import Alternative, RandomizationTest, significance
 from geoexp.exposure import exposure_probabilities
-from geoexp.inference._significance import Alternative, RandomizationTest, significance
 from geoexp.inference._statistic import contrast_statistic
 
 

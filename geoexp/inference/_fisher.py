@@ -6,9 +6,9 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
-from geoexp._rng import RngLike
+from geoexp._rng import RngLike, Stream
+from geoexp._significance import Alternative, RandomizationTest
 from geoexp.inference._draws import ContrastSpec, contrast_test
-from geoexp.inference._significance import Alternative, RandomizationTest
 
 if TYPE_CHECKING:
     from geoexp.design import Design
@@ -48,7 +48,7 @@ def fisher_test(
         null=f"no effect at all ({labels[contrast.k]} vs {labels[contrast.l]} statistic)",
         estimator=estimator,
         n_draws=n_draws,
-        rng=design.stream(2) if rng is None else rng,
+        rng=design.stream(Stream.FISHER_TEST) if rng is None else rng,
         alternative=alternative,
         keep_null=keep_null,
     )

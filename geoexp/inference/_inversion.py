@@ -24,9 +24,9 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
-from geoexp._rng import RngLike
+from geoexp._rng import RngLike, Stream
+from geoexp._significance import RandomizationTest, significance
 from geoexp.inference._draws import ContrastSpec, draw_sums, population, weight_columns
-from geoexp.inference._significance import RandomizationTest, significance
 from geoexp.inference._statistic import contrast_statistic
 
 if TYPE_CHECKING:
@@ -170,7 +170,7 @@ def constant_effect_test(
     k, l = contrast.k, contrast.l
     n_cond = probabilities.shape[1]
     cols = weight_columns(y, probabilities, contrast, observed)
-    rng = design.stream(10 + k) if rng is None else rng
+    rng = design.stream(Stream.INVERSION, k) if rng is None else rng
     sums = draw_sums(design.sampler, design.graph, design.mapping, cols, n_draws, rng)
     obs_k = cols[observed == k].sum(axis=0)
     obs_l = cols[observed == l].sum(axis=0)
@@ -313,7 +313,7 @@ def rate_ratio_test(
     k, l = contrast.k, contrast.l
     n_cond = probabilities.shape[1]
     cols = _ratio_columns(y, probabilities, contrast, observed, baseline)
-    rng = design.stream(10 + k) if rng is None else rng
+    rng = design.stream(Stream.RATE_RATIO, k) if rng is None else rng
     sums = draw_sums(design.sampler, design.graph, design.mapping, cols, n_draws, rng)
     obs_k = cols[observed == k].sum(axis=0)
     obs_l = cols[observed == l].sum(axis=0)

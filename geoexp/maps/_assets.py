@@ -3,29 +3,30 @@
 folium's saved pages link Leaflet, jQuery, Bootstrap, icon fonts and plugins
 from content networks; on a network that blocks them (common in agencies) the
 page shows nothing. geoexp's maps use only Leaflet and Leaflet.draw, so this
-module swaps those links for the script and style text of an installed copy,
-turns the images the stylesheets name into ``data:`` URIs, and drops the
-links nothing on our maps uses.
+module swaps those links for the script and style text of the copies shipped
+with geoexp (``geoexp/maps/assets/vendor``: Leaflet 1.9.4, BSD 2-Clause;
+Leaflet.draw 1.0.4, MIT; their licences and a README lie beside them), turns
+the images the stylesheets name into ``data:`` URIs, and drops the links
+nothing on our maps uses. The files keep their copyright headers.
 
-The copy comes from the ``django-leaflet`` distribution, which ships Leaflet
-and Leaflet.draw as static files. Its Python module is never imported (it
-needs a configured Django): the files are only located and read. If it is not
-installed, the page keeps content-network links for Leaflet and Leaflet.draw
-and a warning says the map needs the internet.
+If the shipped copies are missing (a broken install), the page keeps
+content-network links for Leaflet and Leaflet.draw and a warning says the map
+needs the internet.
 """
 
 from __future__ import annotations
 
 import base64
 import functools
-import importlib.util
+import importlib.resources
 import json
 import re
 import warnings
 from dataclasses import dataclass
-from pathlib import Path
+from importlib.resources.abc import Traversable
 
-ASSET_PACKAGE = "django-leaflet"
+LEAFLET_VERSION = "1.9.4"
+LEAFLET_DRAW_VERSION = "1.0.4"
 
 # Links in folium's template that our maps never use: jQuery, Bootstrap, icon
 # fonts and the awesome-markers plugin serve markers and popups we do not draw.
@@ -53,74 +54,65 @@ class OfflineAssetWarning(UserWarning):
 
 @dataclass(frozen=True)
 class _Bundle:
-    folder: Path  # .../static/leaflet
+    folder: Traversable  # .../geoexp/maps/assets/vendor
+
+    def file(self, relative: str) -> Traversable:
+        return self.folder.joinpath(*relative.split("/"))
 
     def text(self, relative: str) -> str:
-        return (self.folder / relative).read_text(encoding="utf-8")
+        return self.file(relative).read_text(encoding="utf-8")
 
 
 @functools.cache
 def _find_bundle() -> _Bundle | None:
-    # find_spec locates the package without running its __init__ (which needs Django).
-    try:
-        spec = importlib.util.find_spec("leaflet")
-    except (ImportError, ValueError):
-        return None
-    if spec is None or not spec.submodule_search_locations:
-        return None
-    for root in spec.submodule_search_locations:
-        folder = Path(root) / "static" / "leaflet"
-        js, draw = folder / "leaflet.js", folder / "draw" / "leaflet.draw.js"
-        # Another distribution also installs a module called "leaflet"; check
-        # that these really are Leaflet 1.x and Leaflet.draw 1.x.
-        if js.is_file() and draw.is_file():
-            head = js.read_text(encoding="utf-8", errors="replace")[:200]
-            draw_head = draw.read_text(encoding="utf-8", errors="replace")[:200]
-            if "Leaflet 1." in head and "Leaflet.draw 1." in draw_head:
-                return _Bundle(folder)
+    folder = importlib.resources.files("geoexp.maps").joinpath("assets", "vendor")
+    bundle = _Bundle(folder)
+    needed = ("leaflet/leaflet.js", "leaflet/leaflet.css", "leaflet-draw/leaflet.draw.js")
+    if all(bundle.file(name).is_file() for name in needed):
+        return bundle
     return None
 
 
 def offline_assets_available() -> bool:
-    """True if an installed copy of Leaflet and Leaflet.draw can be inlined."""
+    """True if the shipped copies of Leaflet and Leaflet.draw can be inlined."""
     return _find_bundle() is not None
 
 
-def _data_uri(path: Path) -> str:
-    mime = _MIME.get(path.suffix.lower(), "application/octet-stream")
+def _data_uri(path: Traversable) -> str:
+    mime = _MIME.get("." + path.name.rsplit(".", 1)[-1].lower(), "application/octet-stream")
     return f"data:{mime};base64,{base64.b64encode(path.read_bytes()).decode('ascii')}"
 
 
 def _css_with_data_uris(bundle: _Bundle, relative: str, keep_images: tuple[str, ...]) -> str:
-    css_path = bundle.folder / relative
+    folder = relative.rsplit("/", 1)[0]
 
     def swap(match: re.Match[str]) -> str:
         target = match.group(1)
         if target.startswith(("data:", "#")):
             return match.group(0)
-        name = Path(target).name
+        name = target.rsplit("/", 1)[-1]
         if name not in keep_images:
             # Marker icons etc.: nothing on our maps shows them.
             return "none"
-        return f'url("{_data_uri(css_path.parent / target)}")'
+        return f'url("{_data_uri(bundle.file(f"{folder}/{target}"))}")'
 
-    return _CSS_URL.sub(swap, css_path.read_text(encoding="utf-8"))
+    return _CSS_URL.sub(swap, bundle.text(relative))
 
 
 def _asset_for(url: str, bundle: _Bundle) -> str | None:
     """Inline text (a <script> or <style> element) that replaces a linked asset, if known."""
     name = url.rsplit("/", 1)[-1].lower()
     if name == "leaflet.js":
-        return f"<script>{_no_script_end(bundle.text('leaflet.js'))}</script>\n"
+        return f"<script>{_no_script_end(bundle.text('leaflet/leaflet.js'))}</script>\n"
     if name == "leaflet.draw.js":
-        return f"<script>{_no_script_end(bundle.text('draw/leaflet.draw.js'))}</script>\n"
+        return f"<script>{_no_script_end(bundle.text('leaflet-draw/leaflet.draw.js'))}</script>\n"
     if name == "leaflet.css":
-        css = _css_with_data_uris(bundle, "leaflet.css", ("layers.png", "layers-2x.png"))
+        css = _css_with_data_uris(bundle, "leaflet/leaflet.css", ("layers.png", "layers-2x.png"))
         return f"<style>{css}</style>\n"
     if name == "leaflet.draw.css":
         css = _css_with_data_uris(
             bundle,
-            "draw/leaflet.draw.css",
+            "leaflet-draw/leaflet.draw.css",
             ("spritesheet.png", "spritesheet-2x.png", "spritesheet.svg"),
         )
         return f"<style>{css}</style>\n"
@@ -180,8 +172,8 @@ def warn_if_remote(remote: list[str], where: str) -> None:
     if not remote:
         return
     reason = (
-        f"the Python package {ASSET_PACKAGE!r} (which ships Leaflet and Leaflet.draw) is not "
-        f"installed; install it with: pip install {ASSET_PACKAGE}"
+        "the copies of Leaflet and Leaflet.draw shipped with geoexp (geoexp/maps/assets/vendor) "
+        "are missing; reinstall geoexp"
         if _find_bundle() is None
         else "these assets have no installed copy"
     )

@@ -11,6 +11,7 @@ in the trial file.
 """
 
 from geoexp.outcomes._counts import (
+    MAX_DROPPED_SHARE,
     REASONS,
     DropReport,
     OutcomeTable,
@@ -20,6 +21,7 @@ from geoexp.outcomes._counts import (
 )
 
 __all__ = [
+    "MAX_DROPPED_SHARE",
     "REASONS",
     "DropReport",
     "OutcomeTable",

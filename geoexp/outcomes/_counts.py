@@ -20,6 +20,7 @@ import json
 import math
 import os
 import re
+from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Literal
@@ -49,6 +50,8 @@ REASONS = (
 _FIELDS = tuple(r.replace(" ", "_") for r in REASONS)
 UNTYPED = "untyped"
 _LAYER = "outcomes"
+# Above this share of dropped incidents counting stops with an error (see count_incidents).
+MAX_DROPPED_SHARE = 0.5
 _META_PREFIX = "outcomes_"
 
 
@@ -143,6 +146,7 @@ class DropReport:
     tolerance_m: float | None = None
     source: str = ""
     dropped_path: str | None = None
+    max_dropped_share: float | None = MAX_DROPPED_SHARE
 
     def counts(self) -> dict[str, int]:
         """Dropped incidents by reason (plain-words keys, as in the side file)."""
@@ -189,6 +193,13 @@ class DropReport:
             text += (
                 " No incident was near any unit: check that the incidents' CRS (crs=, or "
                 "x/y against lon/lat) is right."
+            )
+        if self.max_dropped_share is None:
+            text += " No limit was set on the share of incidents dropped."
+        elif self.max_dropped_share != MAX_DROPPED_SHARE:
+            text += (
+                f" The limit on dropped incidents was set to {self.max_dropped_share:.0%} "
+                f"(default {MAX_DROPPED_SHARE:.0%}) on purpose."
             )
         if self.dropped_path:
             text += f" The dropped rows, with a 'reason' column, are in '{self.dropped_path}'."
@@ -448,6 +459,7 @@ def count_incidents(
     date_format: DateFormat | None = None,
     layer: str | None = None,
     dropped_path: str | os.PathLike | None = None,
+    max_dropped_share: float | None = MAX_DROPPED_SHARE,
 ) -> OutcomeTable:
     """Count incidents per unit in a pre-period and a post-period.
 
@@ -490,6 +502,19 @@ def count_incidents(
         Layer of a multi-layer incidents file.
     dropped_path : path, optional
         Write the dropped rows here as CSV, with a ``reason`` column.
+    max_dropped_share : float or None
+        Largest share of incidents that may be dropped, in [0, 1]; default
+        0.5. When more are dropped the counts are not a picture of the
+        incidents but of a mistake in reading them (longitude and latitude
+        swapped, a wrong CRS, the wrong date format or periods), and an
+        analysis of such counts would report "no effect" with confidence.
+        Half is a generous limit: in a correct extract, incidents far from
+        every unit or outside both periods are the exception. Raise it
+        knowingly (it is recorded in the drop report) when, for example,
+        the extract covers a whole city and the trial only a district.
+        With any number, counting also stops when no incident at all is
+        counted or when a period holds no incident. ``None`` turns every
+        stop off: the caller must then read the drop report itself.
 
     Returns
     -------
@@ -499,7 +524,12 @@ def count_incidents(
     ------
     geoexp.errors.InputError
         Bad periods, missing columns, day/month dates without
-        ``date_format``, a date column with no readable date.
+        ``date_format``, a date column with no readable date; no incident
+        counted at all; a period with no incident dated in it; more than
+        ``max_dropped_share`` of the incidents dropped. These are raised
+        before anything (the dropped rows' CSV) is written, and say how many
+        incidents were read, how many were dropped for each reason and the
+        likely cause.
     geoexp.errors.CRSError
         Coordinates without a CRS, or a CRS that contradicts the layer.
     geoexp.errors.GeometryError
@@ -507,6 +537,16 @@ def count_incidents(
     """
     units = _as_units(units)
     pre_d, post_d = parse_periods(pre, post)
+    if max_dropped_share is not None and (
+        isinstance(max_dropped_share, bool)
+        or not (
+            isinstance(max_dropped_share, (int, float, np.integer, np.floating))
+            and 0 <= max_dropped_share <= 1
+        )
+    ):
+        raise InputError(
+            f"max_dropped_share must be a share between 0 and 1, got {max_dropped_share!r}"
+        )
     if isinstance(tolerance_m, bool) or not (
         isinstance(tolerance_m, (int, float, np.integer, np.floating))
         and math.isfinite(tolerance_m)
@@ -584,6 +624,10 @@ def count_incidents(
     counts.index.name = units.id_column
 
     per_reason = np.bincount(reason, minlength=len(REASONS) + 1)[1:]
+    if max_dropped_share is not None:
+        _stop_if_mostly_dropped(
+            rows, units, per_reason, in_pre, in_post, (pre_d, post_d), float(max_dropped_share)
+        )
     written = None
     if dropped_path is not None:
         written = os.fspath(dropped_path)
@@ -595,8 +639,107 @@ def count_incidents(
         tolerance_m=float(tolerance_m),
         source=rows.source,
         dropped_path=written,
+        max_dropped_share=None if max_dropped_share is None else float(max_dropped_share),
     )
     return OutcomeTable(counts, pre_d, post_d, float(tolerance_m), drops, types, rows.source)
+
+
+def _likely_cause(
+    rows: IncidentRows,
+    units: UnitSet,
+    per_reason: np.ndarray,
+    periods: tuple[tuple[dt.date, dt.date], ...],
+) -> str:
+    """Plain words on why most incidents were dropped, from the biggest reason."""
+    top = REASONS[int(np.argmax(per_reason))]
+    if top == "outside tolerance":
+        located = np.isfinite(rows.x) & np.isfinite(rows.y)
+        ux0, uy0, ux1, uy1 = (float(v) for v in units.geometry.total_bounds)
+        px0, px1 = float(np.min(rows.x[located])), float(np.max(rows.x[located]))
+        py0, py1 = float(np.min(rows.y[located])), float(np.max(rows.y[located]))
+        inside = (
+            (rows.x[located] >= ux0)
+            & (rows.x[located] <= ux1)
+            & (rows.y[located] >= uy0)
+            & (rows.y[located] <= uy1)
+        )
+        share_in = float(inside.mean())
+        extent = (
+            f"the incidents span x {px0:,.0f} to {px1:,.0f}, y {py0:,.0f} to {py1:,.0f} and the "
+            f"units x {ux0:,.0f} to {ux1:,.0f}, y {uy0:,.0f} to {uy1:,.0f} (in the units' CRS)"
+        )
+        if share_in < 0.5:
+            return (
+                f"{1 - share_in:.0%} of the located incidents fall outside the units' extent "
+                f"({extent}): are longitude and latitude swapped, or is the CRS wrong?"
+            )
+        return (
+            f"the incidents lie within the units' extent ({extent}) but not within the "
+            "snapping tolerance of a unit: is the tolerance too small for this layer?"
+        )
+    if top == "missing coordinates":
+        return (
+            "most incidents have no usable coordinates: are the coordinate columns the right "
+            "ones, and do they hold plain numbers (a decimal point, not a comma)?"
+        )
+    if top in ("missing date", "unparseable date"):
+        return (
+            "most incidents have no readable date: is the date column right, and does "
+            "date_format match how the dates are written?"
+        )
+    dated = rows.dates[~np.isnat(rows.dates)]
+    span = f"the incidents are dated {dated.min()} to {dated.max()}" if len(dated) else ""
+    return (
+        f"most incidents are dated outside both periods ({span}; pre {periods[0][0]} to "
+        f"{periods[0][1]}, post {periods[1][0]} to {periods[1][1]}): are the periods right?"
+    )
+
+
+def _stop_if_mostly_dropped(
+    rows: IncidentRows,
+    units: UnitSet,
+    per_reason: np.ndarray,
+    in_pre: np.ndarray,
+    in_post: np.ndarray,
+    periods: tuple[tuple[dt.date, dt.date], ...],
+    max_share: float,
+) -> None:
+    """Refuse counts that would silently make a wrong analysis (see ``max_dropped_share``)."""
+    n = rows.n
+    n_dropped = int(per_reason.sum())
+    where = f"the incidents '{rows.source}'"
+    by_reason = "; ".join(f"{int(k):,} {r}" for r, k in zip(REASONS, per_reason, strict=True) if k)
+    tally = f"{n:,} read, {n - n_dropped:,} counted, {n_dropped:,} dropped" + (
+        f" ({by_reason})" if by_reason else ""
+    )
+    if n == 0:
+        raise InputError(f"{where} hold no incidents (no rows below the header): nothing to count")
+    dated = ~np.isnat(rows.dates)
+    for name, period, inside in (("pre", periods[0], in_pre), ("post", periods[1], in_post)):
+        if not (inside & dated).any():
+            span = ""
+            if dated.any():
+                span = f" (the incidents are dated {rows.dates[dated].min()} to "
+                span += f"{rows.dates[dated].max()})"
+            raise InputError(
+                f"no incident in {where} is dated in the {name}-period {period[0]} to "
+                f"{period[1]}{span}; an empty period would be analysed as zero incidents "
+                f"everywhere. Check --{name} and the date column ({tally})"
+            )
+    if n_dropped == n:
+        raise InputError(
+            f"no incident in {where} could be counted: {tally}. Likely cause: "
+            f"{_likely_cause(rows, units, per_reason, periods)}"
+        )
+    share = n_dropped / n
+    if share > max_share:
+        raise InputError(
+            f"{share:.0%} of the incidents in {where} were dropped, more than the limit of "
+            f"{max_share:.0%}: {tally}. Likely cause: "
+            f"{_likely_cause(rows, units, per_reason, periods)} If the drops are expected, "
+            "raise the limit knowingly (max_dropped_share=, on the command line "
+            "--allow-dropped); the choice is recorded."
+        )
 
 
 def _write_dropped(rows: IncidentRows, reason: np.ndarray, path: str) -> None:
@@ -624,8 +767,20 @@ def _write_dropped(rows: IncidentRows, reason: np.ndarray, path: str) -> None:
 # ------------------------------------------------------------ trial file
 
 
-def save_outcomes(trial: TrialFile | str | os.PathLike, table: OutcomeTable) -> TrialFile:
+def save_outcomes(
+    trial: TrialFile | str | os.PathLike,
+    table: OutcomeTable,
+    *,
+    wait_s: float | None = None,
+    notify: Callable[[str], None] | None = None,
+) -> TrialFile:
     """Store an outcome table in the trial file: layer ``outcomes`` and ``outcomes_*`` meta keys.
+
+    The write holds the trial's lock and checks the ids against the units the
+    file holds at that moment. The table's fingerprint (over the counts and the
+    periods) is recorded, so that an edit of the stored counts is noticed. Earlier
+    outcomes, and results computed from them, are kept in ``superseded_outcomes``
+    and ``superseded_results``.
 
     Parameters
     ----------
@@ -633,24 +788,18 @@ def save_outcomes(trial: TrialFile | str | os.PathLike, table: OutcomeTable) -> 
         The trial GeoPackage.
     table : OutcomeTable
         Counts for exactly the trial's units.
+    wait_s : float, optional
+        Seconds to wait for another command writing the same trial.
+    notify : callable, optional
+        Receives notes such as "waiting for another geoexp command ...".
 
     Returns
     -------
     TrialFile
-        The re-opened trial file. An earlier outcomes layer is replaced.
+        The re-opened trial file.
     """
-    trial = trial if isinstance(trial, TrialFile) else TrialFile.open(trial)
-    unit_ids = trial.units().index
-    unknown = table.ids[~table.ids.isin(unit_ids)]
-    absent = unit_ids[~unit_ids.isin(table.ids)]
-    if len(unknown) or len(absent):
-        raise InputError(
-            f"the outcome table does not match the units of trial file '{trial.path}': "
-            f"{len(unknown):,} ids not in the trial ({describe_rows(list(unknown))}) and "
-            f"{len(absent):,} trial units without counts ({describe_rows(list(absent))})"
-        )
-    frame = table.counts.reindex(unit_ids)
-    frame.index.name = trial.id_column
+    from geoexp.trialfile import store_outcomes
+
     d = table.drops
     meta = {
         "outcomes_pre": f"{table.pre[0]}/{table.pre[1]}",
@@ -660,9 +809,9 @@ def save_outcomes(trial: TrialFile | str | os.PathLike, table: OutcomeTable) -> 
         "outcomes_drops": json.dumps({**d.counts(), "n_incidents": d.n_incidents, "ties": d.ties}),
         "outcomes_source": table.source,
         "outcomes_dropped_path": d.dropped_path or "",
-        "outcomes_saved_at": dt.datetime.now(dt.UTC).replace(microsecond=0).isoformat(),
     }
-    return trial.write_layers({_LAYER: frame}, meta=meta)
+    path = trial.path if isinstance(trial, TrialFile) else trial
+    return store_outcomes(path, table.counts, meta, wait_s=wait_s, notify=notify)
 
 
 def load_outcomes(trial: TrialFile | str | os.PathLike) -> OutcomeTable:
@@ -676,8 +825,16 @@ def load_outcomes(trial: TrialFile | str | os.PathLike) -> OutcomeTable:
     Returns
     -------
     OutcomeTable
+
+    Raises
+    ------
+    geoexp.errors.TrialIntegrityError
+        The stored counts or periods were edited after they were saved.
     """
-    trial = trial if isinstance(trial, TrialFile) else TrialFile.open(trial)
+    from geoexp.errors import TrialIntegrityError
+    from geoexp.trialfile import outcomes_fingerprint
+
+    trial = TrialFile.open(trial.path if isinstance(trial, TrialFile) else trial)
     if _LAYER not in trial.layers or "outcomes_pre" not in trial.meta:
         raise InputError(
             f"trial file '{trial.path}' holds no outcomes yet; count them and save them with "
@@ -685,6 +842,15 @@ def load_outcomes(trial: TrialFile | str | os.PathLike) -> OutcomeTable:
         )
     meta = trial.meta
     frame = pd.DataFrame(trial.read(_LAYER)).drop(columns="geometry", errors="ignore")
+    recorded = meta.get("outcomes_fingerprint")
+    if recorded and outcomes_fingerprint(frame, meta["outcomes_pre"], meta["outcomes_post"]) != (
+        recorded
+    ):
+        raise TrialIntegrityError(
+            f"the outcomes stored in trial file '{trial.path}' (layer {_LAYER!r} and its periods) "
+            f"were edited after they were saved on {meta.get('outcomes_saved_at', '?')}; count "
+            "them again, or restore the file from a copy"
+        )
     counts = frame.astype(np.int64)
     pre = tuple(dt.date.fromisoformat(s) for s in meta["outcomes_pre"].split("/"))
     post = tuple(dt.date.fromisoformat(s) for s in meta["outcomes_post"].split("/"))

@@ -37,7 +37,7 @@ import pyproj
 import shapely
 
 from geoexp.errors import CRSError, GeometryError, InputError, describe_rows
-from geoexp.units._crs import describe_crs, parse_crs
+from geoexp.units._crs import describe_crs, parse_crs, require_geographic_reference
 from geoexp.units._read import read_layer
 
 # Date problems, coded per incident.
@@ -271,6 +271,8 @@ def _point_xy(named: InputRows, frame: gpd.GeoDataFrame) -> tuple[np.ndarray, np
 
 def _to_target(px, py, src: pyproj.CRS, dst: pyproj.CRS) -> tuple[np.ndarray, np.ndarray]:
     if not src.equals(dst, ignore_axis_order=True):
+        require_geographic_reference(dst, f"incidents in {describe_crs(src)}")
+        require_geographic_reference(src, f"units in {describe_crs(dst)} and these incidents")
         # always_xy: longitude first whatever the CRS's official axis order.
         transformer = pyproj.Transformer.from_crs(src, dst, always_xy=True)
         px, py = transformer.transform(px, py)

@@ -26,13 +26,17 @@ from typing import TYPE_CHECKING
 import numpy as np
 import pandas as pd
 
-from geoexp._rng import RngLike, as_seed_sequence, child_sequence
+from geoexp._rng import RngLike, Stream, as_seed_sequence, child_sequence
 from geoexp.errors import InputError
 from geoexp.estimate import DEFAULT_FLOOR, contrast_units
-from geoexp.exposure import condition_bits
-from geoexp.inference import contrast_statistic, significance
-from geoexp.inference._conditional import MIN_FOCAL
-from geoexp.inference._significance import ALTERNATIVES, Alternative
+from geoexp.exposure import condition_bits, unpack_bits
+from geoexp.inference import (
+    ALTERNATIVES,
+    MIN_FOCAL,
+    Alternative,
+    contrast_statistic,
+    significance,
+)
 from geoexp.power._models import OutcomeMeasure, OutcomeModel
 
 if TYPE_CHECKING:
@@ -42,7 +46,6 @@ _WORD = 64
 # unpacked bits and their products are float64: significance() counts ties within a
 # relative 1e-9, which float32 sums of thousands of weights would not honour
 _BLOCK_BYTES = 32 * 2**20
-_STREAM = 30  # child stream of the spec's seed used by power (0-29 are the design's and tests')
 
 
 @dataclass(frozen=True)
@@ -141,20 +144,12 @@ def _num(value: float, digits: int) -> str:
     return f"{value:.{digits}f}" if np.isfinite(value) else "-"
 
 
-def _unpack(words: np.ndarray) -> np.ndarray:
-    """(rows, 64 * n_words) uint8 indicators; bit r % 64 of word r // 64 is draw r."""
-    words = np.ascontiguousarray(words, dtype="<u8")
-    return np.unpackbits(
-        words.view(np.uint8).reshape(words.shape[0], -1), axis=1, bitorder="little"
-    )
-
-
 def _sim_conditions(bits: np.ndarray, n_sims: int) -> np.ndarray:
     """Condition code of every held unit in draws 0 .. n_sims - 1: (n_held, n_sims)."""
     n_words = -(-n_sims // _WORD)
     out = np.zeros((bits.shape[1], n_sims), dtype=np.intp)
     for c in range(bits.shape[0]):
-        out[_unpack(bits[c][:, :n_words])[:, :n_sims].astype(bool)] = c
+        out[unpack_bits(bits[c][:, :n_words])[:, :n_sims].astype(bool)] = c
     return out
 
 
@@ -197,8 +192,8 @@ def _contrast_draws(
         lo = max(first, w * _WORD) - w * _WORD
         hi = min(end, w_end * _WORD) - w * _WORD
         out = slice(w * _WORD + lo - first, w * _WORD + hi - first)
-        uk = _unpack(bits[k][rows, w:w_end])[:, lo:hi].astype(np.float64)
-        ul = _unpack(bits[l][rows, w:w_end])[:, lo:hi].astype(np.float64)
+        uk = unpack_bits(bits[k][rows, w:w_end])[:, lo:hi].astype(np.float64)
+        ul = unpack_bits(bits[l][rows, w:w_end])[:, lo:hi].astype(np.float64)
         sk = uk.T @ wk
         sl = ul.T @ wl
         null[out] = contrast_statistic(
@@ -286,7 +281,7 @@ def simulate_power(
     n_draws_probabilities
         Draws for the exposure probabilities (default: the spec's ``draws``).
     rng
-        Seed of the simulation (default: child stream 30 of the spec's seed).
+        Seed of the simulation (default: the design's power stream).
     floor
         Positivity floor of the rows' units (default: the spec's, else
         :data:`geoexp.estimate.DEFAULT_FLOOR`), as in the analysis: each
@@ -355,7 +350,7 @@ def _simulate(
     n_prob = int(n_draws_probabilities or design.spec.draws)
     # the very probabilities the analysis will use: the design's Monte Carlo stream
     probs = condition_bits(
-        design.sampler, design.graph, mapping, n_prob, design.stream(1)
+        design.sampler, design.graph, mapping, n_prob, design.stream(Stream.MONTE_CARLO)
     ).probabilities()
 
     notes: list[str] = []
@@ -385,7 +380,7 @@ def _simulate(
         plan.append((k, population, test))
 
     used = np.unique(np.concatenate([p for _, p, _ in plan])) if plan else np.zeros(0, np.int64)
-    seed = design.stream(_STREAM) if rng is None else as_seed_sequence(rng)
+    seed = design.stream(Stream.POWER) if rng is None else as_seed_sequence(rng)
     details: dict = {"probabilities": probs, "used": used}
     results: list[ContrastPower] = []
     if used.size:

@@ -1,17 +1,23 @@
 from __future__ import annotations
 
+import contextlib
 import datetime as dt
+import json
 import shutil
-from dataclasses import dataclass
+import sqlite3
+from collections.abc import Callable, Iterator
+from dataclasses import dataclass, field
 from pathlib import Path
 from typing import TYPE_CHECKING
 
 import geopandas as gpd
 import pandas as pd
 import pyogrio
+import pyogrio.errors
 
 from geoexp._atomic import atomic_path
-from geoexp.errors import InputError, LockedTrialError
+from geoexp.errors import GeoexpError, InputError, LockedTrialError, TrialWriteError
+from geoexp.trialfile._lock import Notify, trial_lock
 
 if TYPE_CHECKING:
     from geoexp.design import Assignment, Design, DesignSpec
@@ -19,6 +25,13 @@ if TYPE_CHECKING:
 
 META_LAYER = "trial_meta"
 FORMAT_VERSION = "1"
+OUTCOMES_LAYER = "outcomes"
+RESULTS_LAYER = "results"
+UNIT_DIGESTS_LAYER = "unit_fingerprints"
+SUPERSEDED_ASSIGNMENTS = "superseded_assignments"
+SUPERSEDED_OUTCOMES = "superseded_outcomes"
+SUPERSEDED_RESULTS = "superseded_results"
+SUPERSEDED_META = "superseded_meta"
 
 
 def _now() -> str:
@@ -38,9 +51,77 @@ def _flat(frame: pd.DataFrame, id_column: str) -> pd.DataFrame:
     return out.reset_index()
 
 
+def _meta_frame(meta: dict[str, str]) -> pd.DataFrame:
+    return pd.DataFrame({"key": list(meta), "value": [str(v) for v in meta.values()]})
+
+
+def _drop_attribute_tables(path: Path, names: list[str]) -> None:
+    """Remove non-spatial layers from a GeoPackage (GDAL's Python bindings are not needed)."""
+    if not names:
+        return
+    con = sqlite3.connect(path)
+    try:
+        with con:
+            tables = {
+                r[0] for r in con.execute("SELECT name FROM sqlite_master WHERE type='table'")
+            }
+            for name in names:
+                kind = con.execute(
+                    "SELECT data_type FROM gpkg_contents WHERE table_name = ?", (name,)
+                ).fetchone()
+                if kind is None:
+                    continue
+                if kind[0] != "attributes":  # spatial layers are overwritten, never dropped
+                    raise ValueError(f"layer {name!r} is spatial")
+                con.execute(f'DROP TABLE IF EXISTS "{name}"')
+                for registry in (
+                    "gpkg_contents",
+                    "gpkg_ogr_contents",
+                    "gpkg_extensions",
+                    "gpkg_data_columns",
+                ):
+                    if registry in tables:
+                        con.execute(f"DELETE FROM {registry} WHERE table_name = ?", (name,))
+    finally:
+        con.close()
+
+
+@contextlib.contextmanager
+def _failures_named(path: Path) -> Iterator[None]:
+    """Turn a failed write (no space left, permissions, GDAL errors) into one clear error."""
+    try:
+        yield
+    except GeoexpError:
+        raise
+    except (OSError, sqlite3.Error, pyogrio.errors.DataSourceError, pyogrio.errors.DataLayerError,
+            pyogrio.errors.FieldError, pyogrio.errors.FeatureError) as err:  # fmt: skip
+        raise TrialWriteError(
+            f"could not write trial file {str(path)!r}: {err}. The file was left as it was "
+            "before this command (every write goes to a temporary copy that replaces the file "
+            "only once it is complete)."
+        ) from err
+
+
+@dataclass(frozen=True)
+class _Change:
+    """What one locked write does to a trial file (built from the file as read under the lock)."""
+
+    layers: dict[str, pd.DataFrame] = field(default_factory=dict)
+    meta: dict[str, str] | None = None  # the whole new meta; None keeps it
+    drop: tuple[str, ...] = ()
+    # called with the written temporary file; returns meta keys to add (e.g. digests of layers
+    # as read back, so that later checks compare like with like)
+    after: Callable[[Path, TrialFile], dict[str, str]] | None = None
+
+
 @dataclass(frozen=True)
 class TrialFile:
-    """A geoexp trial GeoPackage on disk. Open it with :meth:`open`."""
+    """A geoexp trial GeoPackage on disk. Open it with :meth:`open`.
+
+    A ``TrialFile`` is a snapshot: its ``meta`` is what the file held when it
+    was opened. Every write re-reads the file under the trial's lock, so
+    writing through an old snapshot never undoes another command's write.
+    """
 
     path: Path
     meta: dict[str, str]
@@ -87,6 +168,16 @@ class TrialFile:
         """Content hash of the design spec."""
         return self.meta.get("spec_hash", "")
 
+    @property
+    def design_fingerprint(self) -> str:
+        """The recorded design fingerprint (64 hex digits; '' for files written before them)."""
+        return self.meta.get("design_fingerprint", "")
+
+    @property
+    def draw_number(self) -> int:
+        """1 for the first assignment drawn into the file, 2 after one replacement, ..."""
+        return int(self.meta.get("draw_number", "0") or 0)
+
     def spec(self) -> DesignSpec:
         """The design spec stored in the file."""
         import tomllib
@@ -127,26 +218,112 @@ class TrialFile:
         return self.read("assignment")
 
     def write_layers(
-        self, layers: dict[str, pd.DataFrame], meta: dict[str, str] | None = None
+        self,
+        layers: dict[str, pd.DataFrame],
+        meta: dict[str, str] | None = None,
+        *,
+        wait_s: float | None = None,
+        notify: Notify | None = None,
     ) -> TrialFile:
-        """Write (overwrite) layers and meta keys atomically; returns the re-opened file.
+        """Write (overwrite) layers and meta keys atomically under the trial's lock.
 
-        Frames indexed by unit id are written with the id as a column.
+        The file is re-read under the lock and ``meta`` is merged into the meta
+        it holds then (not into this snapshot's). Frames indexed by unit id are
+        written with the id as a column. Returns the re-opened file.
         """
-        with atomic_path(self.path) as tmp:
-            shutil.copy2(self.path, tmp)
-            for name, frame in layers.items():
-                if frame.index.name == self.id_column:
-                    frame = _flat(frame, self.id_column)
+
+        def change(current: TrialFile) -> _Change:
+            flat = {
+                name: _flat(frame, current.id_column)
+                if frame.index.name == current.id_column
+                else frame
+                for name, frame in layers.items()
+            }
+            return _Change(flat, {**current.meta, **meta} if meta else None)
+
+        return update_trial(self.path, change, wait_s=wait_s, notify=notify)
+
+
+def update_trial(
+    path: str | Path,
+    change: Callable[[TrialFile], _Change],
+    *,
+    wait_s: float | None = None,
+    notify: Notify | None = None,
+) -> TrialFile:
+    """Read-modify-write a trial under its lock: ``change`` sees the file as it is now."""
+    path = Path(path)
+    with trial_lock(path, wait_s=wait_s, notify=notify):
+        current = TrialFile.open(path)
+        todo = change(current)
+        with _failures_named(path), atomic_path(path) as tmp:
+            shutil.copy2(path, tmp)
+            _drop_attribute_tables(tmp, list(todo.drop))
+            for name, frame in todo.layers.items():
                 _write(tmp, frame, name)
-            if meta:
-                merged = {**self.meta, **meta}
-                _write(
-                    tmp,
-                    pd.DataFrame({"key": list(merged), "value": list(merged.values())}),
-                    META_LAYER,
-                )
-        return TrialFile.open(self.path)
+            meta = todo.meta
+            if todo.after is not None:
+                meta = {**(meta if meta is not None else current.meta), **todo.after(tmp, current)}
+            if meta is not None:
+                _write(tmp, _meta_frame(meta), META_LAYER)
+        return TrialFile.open(path)
+
+
+def append_rows(current: TrialFile, layer: str, rows: pd.DataFrame) -> pd.DataFrame:
+    """The rows of a record layer (e.g. ``superseded_outcomes``) with ``rows`` appended."""
+    if layer in current.layers:
+        return pd.concat(
+            [pyogrio.read_dataframe(current.path, layer=layer), rows], ignore_index=True
+        )
+    return rows.reset_index(drop=True)
+
+
+def _prefixed(meta: dict[str, str], prefix: str) -> dict[str, str]:
+    return {k: v for k, v in meta.items() if k.startswith(prefix)}
+
+
+def superseded_outcomes_rows(current: TrialFile, reason: str, when: str) -> pd.DataFrame | None:
+    """The stored outcomes as rows for ``superseded_outcomes`` (None if none are stored)."""
+    if OUTCOMES_LAYER not in current.layers:
+        return None
+    rows = pyogrio.read_dataframe(current.path, layer=OUTCOMES_LAYER)
+    info = {
+        "draw_number": current.draw_number,
+        **_prefixed(current.meta, "outcomes_"),
+        "superseded_at": when,
+        "superseded_reason": reason,
+    }
+    return pd.concat([pd.DataFrame(info, index=rows.index), rows], axis=1)
+
+
+def superseded_results_rows(current: TrialFile, reason: str, when: str) -> pd.DataFrame | None:
+    """The stored results as rows for ``superseded_results`` (None if none are stored)."""
+    if RESULTS_LAYER not in current.layers:
+        return None
+    rows = pyogrio.read_dataframe(current.path, layer=RESULTS_LAYER)
+    info = {
+        "draw_number": current.draw_number,
+        **_prefixed(current.meta, "results_"),
+        "superseded_at": when,
+        "superseded_reason": reason,
+    }
+    return pd.concat([pd.DataFrame(info, index=rows.index), rows], axis=1)
+
+
+def _without(meta: dict[str, str], *prefixes: str) -> dict[str, str]:
+    return {k: v for k, v in meta.items() if not k.startswith(prefixes)}
+
+
+def retire_results(current: TrialFile, reason: str) -> _Change:
+    """A change that moves stored results into ``superseded_results`` (for new outcomes)."""
+    rows = superseded_results_rows(current, reason, _now())
+    if rows is None:
+        return _Change()
+    return _Change(
+        {SUPERSEDED_RESULTS: append_rows(current, SUPERSEDED_RESULTS, rows)},
+        _without(current.meta, "results_"),
+        (RESULTS_LAYER,),
+    )
 
 
 def write_trial(
@@ -157,51 +334,60 @@ def write_trial(
     *,
     replace: bool = False,
     reason: str = "",
+    wait_s: float | None = None,
+    notify: Notify | None = None,
 ) -> TrialFile:
-    """Write a drawn design into a trial GeoPackage, atomically, and lock it.
+    """Write a drawn design into a trial GeoPackage, atomically and under its lock, and lock it.
 
     If the file already holds a drawn assignment, this refuses with
-    :class:`LockedTrialError` unless ``replace=True``; the previous assignment
-    is then appended to the ``superseded_assignments`` layer with the time it
-    was replaced and ``reason``, so no drawn assignment is ever lost.
+    :class:`LockedTrialError` unless ``replace=True`` with a ``reason``.
+    Replacing keeps everything: the previous assignment is appended to
+    ``superseded_assignments`` (with the time it was replaced and ``reason``),
+    its stored outcomes and results to ``superseded_outcomes`` and
+    ``superseded_results``, and its whole meta (spec, seed, fingerprints) to
+    ``superseded_meta``, each row with the draw number it belonged to. The
+    new draw has no outcomes or results until they are stored again.
+
+    Parameters
+    ----------
+    path : path
+        The trial GeoPackage (created if missing).
+    design, assignment, probabilities
+        The design, the assignment drawn from it and (optionally) its
+        exposure probabilities.
+    replace : bool
+        Replace a drawn assignment on purpose.
+    reason : str
+        Why (required with ``replace=True``; recorded).
+    wait_s : float, optional
+        Seconds to wait for another command writing the same trial.
+    notify : callable, optional
+        Receives notes such as "waiting for another geoexp command ...".
+
+    Raises
+    ------
+    geoexp.errors.LockedTrialError
+        The trial holds an assignment and ``replace`` is False.
+    geoexp.errors.InputError
+        ``replace=True`` without a reason, or an assignment of another design.
+    geoexp.errors.TrialBusyError, geoexp.errors.TrialWriteError
+        Another writer did not finish in time; the write failed (the file is untouched).
     """
+    from geoexp.design import spec_identity, unit_digests, used_columns
+
     path = Path(path)
-    previous: TrialFile | None = None
-    superseded: pd.DataFrame | None = None
-    if path.exists():
-        previous = TrialFile.open(path)
-        if previous.is_locked and not replace:
-            raise LockedTrialError(
-                f"trial file {str(path)!r} already holds an assignment drawn on "
-                f"{previous.meta.get('drawn_at', '?')} with seed {previous.meta.get('seed', '?')} "
-                f"(design {previous.spec_hash[:12]}). It is locked so that it cannot be redrawn "
-                "silently. To draw again on purpose, ask to replace it (command line: --replace); "
-                "the current assignment will be kept in the layer 'superseded_assignments'."
-            )
-        if previous.is_locked:
-            old = pd.DataFrame(
-                previous.read("assignment").drop(columns="geometry", errors="ignore")
-            )
-            old = old.reset_index()[[previous.id_column, "treated", "condition"]]
-            old.insert(0, "draw_number", int(previous.meta.get("draw_number", "1")))
-            old["spec_hash"] = previous.spec_hash
-            old["seed"] = previous.meta.get("seed", "")
-            old["drawn_at"] = previous.meta.get("drawn_at", "")
-            old["superseded_at"] = _now()
-            old["reason"] = reason
-            if "superseded_assignments" in previous.layers:
-                superseded = pd.concat(
-                    [pyogrio.read_dataframe(path, layer="superseded_assignments"), old],
-                    ignore_index=True,
-                )
-            else:
-                superseded = old
+    if replace and not str(reason).strip():
+        raise InputError(
+            f"replacing the assignment in {str(path)!r} needs a reason, which is recorded beside "
+            "the replaced assignment (command line: --reason '...')"
+        )
     units, spec = design.units, design.spec
     if assignment.spec_hash != spec.hash:
         raise InputError(
             f"the assignment was drawn from design {assignment.spec_hash[:12]}, "
             f"not from this design ({spec.hash[:12]})"
         )
+    fingerprint = design.fingerprint
     id_column = units.id_column
     unit_frame = units.frame.copy()
     unit_frame["eligible"] = design.eligible
@@ -211,37 +397,87 @@ def write_trial(
     assign_frame = gpd.GeoDataFrame(
         table, geometry=units.frame.geometry.reindex(table.index), crs=units.crs
     )
-    draw_number = 1 + (
-        int(previous.meta.get("draw_number", "0")) if previous and previous.is_locked else 0
-    )
-    meta = {
-        "format": "geoexp trial",
-        "format_version": FORMAT_VERSION,
-        "name": spec.name,
-        "id_column": id_column,
-        "spec_toml": spec.to_toml(),
-        "spec_base_dir": spec.base_dir,
-        "spec_hash": spec.hash,
-        "seed": str(spec.seed),
-        "units_source": units.source,
-        "crs_report": units.crs_report,
-        "metres_per_unit": repr(units.metres_per_unit),
-        "distance_unit": "metre",
-        "drawn_at": assignment.drawn_at,
-        "draw_number": str(draw_number),
-        "n_draws": str(probabilities.n_draws if probabilities is not None else 0),
-        "locked": "true",
-        "created_at": previous.meta.get("created_at", _now()) if previous else _now(),
-    }
-    with atomic_path(path) as tmp:
-        _write(tmp, _flat(unit_frame, id_column), "units")
-        _write(tmp, _flat(assign_frame, id_column), "assignment")
-        if probabilities is not None:
-            _write(tmp, _flat(probabilities.to_frame(), id_column), "probabilities")
-        if superseded is not None:
-            _write(tmp, superseded, "superseded_assignments")
-        _write(tmp, pd.DataFrame({"key": list(meta), "value": list(meta.values())}), META_LAYER)
-    return TrialFile.open(path)
+    columns = used_columns(spec, [c for c in units.frame.columns if c != "geometry"])
+    digests = unit_digests(units, columns)
+
+    with trial_lock(path, wait_s=wait_s, notify=notify):
+        previous = TrialFile.open(path) if path.exists() else None
+        if previous is not None and previous.is_locked and not replace:
+            raise LockedTrialError(
+                f"trial file {str(path)!r} already holds an assignment drawn on "
+                f"{previous.meta.get('drawn_at', '?')} with seed {previous.meta.get('seed', '?')} "
+                f"(design {(previous.design_fingerprint or previous.spec_hash)[:12]}). It is "
+                "locked so that it cannot be redrawn silently. To draw again on purpose, ask to "
+                "replace it and say why (command line: --replace --reason '...'); the current "
+                "assignment, its outcomes and results will be kept in the 'superseded_*' layers."
+            )
+        records: dict[str, pd.DataFrame] = {}
+        drop: list[str] = []
+        if previous is not None and previous.is_locked:
+            when = _now()
+            number = previous.draw_number or 1
+            old = pd.DataFrame(
+                previous.read("assignment").drop(columns="geometry", errors="ignore")
+            )
+            old = old.reset_index()[[previous.id_column, "treated", "condition"]]
+            old.insert(0, "draw_number", number)
+            old["spec_hash"] = previous.spec_hash
+            old["design_fingerprint"] = previous.design_fingerprint
+            old["seed"] = previous.meta.get("seed", "")
+            old["drawn_at"] = previous.meta.get("drawn_at", "")
+            old["superseded_at"] = when
+            old["reason"] = reason
+            records[SUPERSEDED_ASSIGNMENTS] = append_rows(previous, SUPERSEDED_ASSIGNMENTS, old)
+            meta_rows = _meta_frame(previous.meta)
+            meta_rows.insert(0, "draw_number", number)
+            meta_rows["superseded_at"] = when
+            meta_rows["reason"] = reason
+            records[SUPERSEDED_META] = append_rows(previous, SUPERSEDED_META, meta_rows)
+            outcomes = superseded_outcomes_rows(previous, reason, when)
+            if outcomes is not None:
+                records[SUPERSEDED_OUTCOMES] = append_rows(previous, SUPERSEDED_OUTCOMES, outcomes)
+            results = superseded_results_rows(previous, reason, when)
+            if results is not None:
+                records[SUPERSEDED_RESULTS] = append_rows(previous, SUPERSEDED_RESULTS, results)
+            drop = [OUTCOMES_LAYER, RESULTS_LAYER, "probabilities"]
+        draw_number = 1 + (previous.draw_number if previous and previous.is_locked else 0)
+        meta = {
+            "format": "geoexp trial",
+            "format_version": FORMAT_VERSION,
+            "name": spec.name,
+            "id_column": id_column,
+            "spec_toml": spec.to_toml(),
+            "spec_json": json.dumps(spec_identity(spec), sort_keys=True),
+            "spec_base_dir": spec.base_dir,
+            "spec_hash": spec.hash,
+            "design_fingerprint": fingerprint.digest,
+            "design_fingerprint_parts": fingerprint.to_json(),
+            "tool_version": fingerprint.parts["tool_version"],
+            "seed": str(spec.seed),
+            "units_source": units.source,
+            "crs_report": units.crs_report,
+            "metres_per_unit": repr(units.metres_per_unit),
+            "distance_unit": "metre",
+            "drawn_at": assignment.drawn_at,
+            "draw_number": str(draw_number),
+            "n_draws": str(probabilities.n_draws if probabilities is not None else 0),
+            "locked": "true",
+            "created_at": previous.meta.get("created_at", _now()) if previous else _now(),
+        }
+        with _failures_named(path), atomic_path(path) as tmp:
+            if previous is not None:
+                # keep every layer this write does not replace (records, anything added later)
+                shutil.copy2(path, tmp)
+                _drop_attribute_tables(tmp, drop)
+            _write(tmp, _flat(unit_frame, id_column), "units")
+            _write(tmp, _flat(assign_frame, id_column), "assignment")
+            _write(tmp, _flat(digests, id_column), UNIT_DIGESTS_LAYER)
+            if probabilities is not None:
+                _write(tmp, _flat(probabilities.to_frame(), id_column), "probabilities")
+            for name, frame in records.items():
+                _write(tmp, frame, name)
+            _write(tmp, _meta_frame(meta), META_LAYER)
+        return TrialFile.open(path)
 
 
 def export_assignment_csv(

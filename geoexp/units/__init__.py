@@ -5,7 +5,9 @@ Shapefile) or takes a GeoDataFrame, checks ids and geometry, brings the layer
 to a projected CRS (see ``geoexp.units._crs`` for the policy) and keys every
 unit by the user's id. Its eligibility methods (:meth:`UnitSet.select`,
 :meth:`UnitSet.top`, :meth:`UnitSet.exclude`, :meth:`UnitSet.subset`) return
-new UnitSets whose ``notes`` record each step in plain words.
+new UnitSets whose ``notes`` record each step in plain words. Attribute rules
+are written in a small language of their own (:func:`parse_rule`), so a rule
+can compare columns but never run code.
 """
 
 from __future__ import annotations
@@ -21,11 +23,28 @@ import pandas as pd
 import pyproj
 
 from geoexp.errors import InputError
+from geoexp.units._crs import (
+    Planar,
+    describe_crs,
+    is_planar,
+    planar_crs,
+    require_geographic_reference,
+)
 from geoexp.units._eligibility import exclude_mask, select_mask, subset_positions, top_positions
 from geoexp.units._read import read_layer
+from geoexp.units._rules import Rule, parse_rule
 from geoexp.units._validate import prepare
 
-__all__ = ["UnitSet"]
+__all__ = [
+    "Planar",
+    "Rule",
+    "UnitSet",
+    "describe_crs",
+    "is_planar",
+    "parse_rule",
+    "planar_crs",
+    "require_geographic_reference",
+]
 
 Kind = Literal["segment", "parcel"]
 
@@ -79,6 +98,7 @@ class UnitSet:
         layer: str | None = None,
         crs: object = None,
         kind: Kind | None = None,
+        planar: Planar | None = None,
     ) -> UnitSet:
         """Read and validate a segment or parcel layer from a file.
 
@@ -95,6 +115,12 @@ class UnitSet:
             accepts). If the layer has a CRS, ``crs`` must match it.
         kind : {"segment", "parcel"}, optional
             Expected kind; an error is raised if the layer holds the other kind.
+        planar : {"m", "ft", "us-ft"}, optional
+            Declare a layer with no CRS to be in local planar coordinates in
+            metres, international feet or US survey feet, instead of naming a
+            CRS it does not have. Outputs then say "local planar coordinates
+            in metres (no CRS)"; web maps and longitude/latitude inputs are
+            refused for it.
 
         Returns
         -------
@@ -114,7 +140,14 @@ class UnitSet:
         frame = read_layer(text, layer, "units")
         label = text if layer is None else f"{text} (layer {layer})"
         return cls._build(
-            frame, id_column, crs=crs, source=text, label=label, kind=kind, from_file=True
+            frame,
+            id_column,
+            crs=crs,
+            source=text,
+            label=label,
+            kind=kind,
+            from_file=True,
+            planar=planar,
         )
 
     @classmethod
@@ -126,6 +159,7 @@ class UnitSet:
         crs: object = None,
         source: str = "<GeoDataFrame>",
         kind: Kind | None = None,
+        planar: Planar | None = None,
     ) -> UnitSet:
         """Validate a GeoDataFrame of segments or parcels; the caller's frame is not changed.
 
@@ -141,19 +175,39 @@ class UnitSet:
             Name used in messages and kept in :attr:`source`.
         kind : {"segment", "parcel"}, optional
             Expected kind of unit.
+        planar : {"m", "ft", "us-ft"}, optional
+            Declare a frame with no CRS to be in local planar coordinates
+            (see :meth:`from_file`).
 
         Returns
         -------
         UnitSet
         """
         return cls._build(
-            frame, id_column, crs=crs, source=source, label=source, kind=kind, from_file=False
+            frame,
+            id_column,
+            crs=crs,
+            source=source,
+            label=source,
+            kind=kind,
+            from_file=False,
+            planar=planar,
         )
 
     @classmethod
-    def _build(cls, frame, id_column, *, crs, source, label, kind, from_file) -> UnitSet:
+    def _build(
+        cls, frame, id_column, *, crs, source, label, kind, from_file, planar=None
+    ) -> UnitSet:
         # ``label`` names the file and layer in messages; ``source`` is kept on the object.
-        ready = prepare(frame, id_column, crs=crs, source=label, kind=kind, from_file=from_file)
+        ready = prepare(
+            frame,
+            id_column,
+            crs=crs,
+            source=label,
+            kind=kind,
+            from_file=from_file,
+            planar=planar,
+        )
         return cls(
             frame=ready.frame,
             kind=ready.kind,
@@ -178,8 +232,18 @@ class UnitSet:
 
     @property
     def crs(self) -> pyproj.CRS:
-        """The units' projected CRS."""
+        """The units' projected CRS, or the local engineering CRS of planar coordinates."""
         return pyproj.CRS(self.frame.crs)
+
+    @property
+    def is_planar(self) -> bool:
+        """True when the units are in local planar coordinates (no geographic reference)."""
+        return self.crs.is_engineering
+
+    @property
+    def crs_label(self) -> str:
+        """The CRS as outputs should name it (name and code, or "local planar coordinates ...")."""
+        return describe_crs(self.crs)
 
     @property
     def n(self) -> int:
@@ -210,8 +274,9 @@ class UnitSet:
         Parameters
         ----------
         where : str, pandas.Series or numpy.ndarray
-            A pandas query expression over the unit attributes and the id
-            (e.g. ``"land_use == 'retail' and incidents_y1 > 0"``), or a boolean
+            A rule over the unit attributes and the id in geoexp's own rule
+            language (see :func:`parse_rule`; e.g. ``"land_use == 'retail' and
+            incidents_y1 > 0"``; missing values compare false), or a boolean
             mask: a Series indexed by the ids or an array in unit order.
 
         Returns

@@ -30,31 +30,19 @@ import shapely
 from geoexp.errors import CRSError, GeometryError, InputError, describe_rows
 from geoexp.units._crs import describe_crs
 from geoexp.units._read import read_layer
+from geoexp.units._rules import Rule
 from geoexp.units._validate import polygonal_part
 
 _POLYGONS = (3, 6)
 
 
 def select_mask(frame: gpd.GeoDataFrame, where: object, source: str) -> tuple[np.ndarray, str]:
-    """Keep-mask from a pandas query string or a boolean mask aligned to the ids."""
+    """Keep-mask from a rule (see :mod:`geoexp.units._rules`) or a boolean mask aligned to the ids."""
     n = len(frame)
     ids = frame.index
     if isinstance(where, str):
-        try:
-            result = frame.eval(where)
-        except Exception as err:  # pandas raises many types for a bad expression
-            columns = [c for c in frame.columns if c != "geometry"]
-            raise InputError(
-                f"the rule {where!r} could not be evaluated on the units of '{source}' ({err}); "
-                f"columns: {describe_rows(columns, limit=len(columns))}; the id is "
-                f"{ids.name!r}"
-            ) from err
-        if not isinstance(result, pd.Series) or not pd.api.types.is_bool_dtype(result.dtype):
-            raise InputError(
-                f"the rule {where!r} must give true/false for each unit, "
-                f"got {getattr(result, 'dtype', type(result).__name__)}"
-            )
-        return result.to_numpy(dtype=bool), f"rule {where!r}"
+        # Our own grammar, never pandas' eval: a rule can name columns, nothing else.
+        return Rule.parse(where).mask(frame, source), f"rule {where!r}"
     if isinstance(where, pd.Series):
         if not where.index.equals(ids):
             missing = ids.difference(where.index)

@@ -197,6 +197,7 @@ def prepare(
     source: str,
     kind: Kind | None,
     from_file: bool,
+    planar: str | None = None,
 ) -> Prepared:
     """Validate ``frame`` and return a private, projected, id-indexed copy with its report."""
     if not isinstance(frame, gpd.GeoDataFrame):
@@ -249,7 +250,7 @@ def prepare(
     # drop() above already copied the attributes; a deep copy keeps nothing shared with the caller.
     attrs = attrs.copy(deep=True).set_axis(ids, axis=0)
     private = gpd.GeoDataFrame(attrs, geometry=gpd.GeoSeries(geoms, index=ids), crs=frame.crs)
-    projected = resolve_crs(private, crs, source)
+    projected = resolve_crs(private, crs, source, planar)
 
     what = "street segments" if found == "segment" else "parcels"
     notes = [f"read {len(ids):,} {what} from '{source}' with ids from {id_name!r}", *notes]

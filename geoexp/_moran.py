@@ -1,13 +1,24 @@
-"""Moran's I of a variable over the exposure graph, with a permutation test."""
+"""Moran's I of a variable over the exposure graph, with a permutation test.
+
+A statistic read off the graph's structure: the graph stays structure only
+(:class:`geoexp.graph.ExposureGraph`). The statistic sits just above the graph,
+below the design check that reports it; ``geoexp.inference.moran`` is its
+public name.
+"""
 
 from __future__ import annotations
 
 from dataclasses import dataclass
+from typing import TYPE_CHECKING
 
 import numpy as np
 
 from geoexp._rng import RngLike, as_generator
+from geoexp._significance import significance
 from geoexp.errors import InputError
+
+if TYPE_CHECKING:
+    from geoexp.graph import ExposureGraph
 
 
 @dataclass(frozen=True)
@@ -33,31 +44,52 @@ class MoranResult:
 
 
 def moran(
-    indptr: np.ndarray,
-    indices: np.ndarray,
-    distances: np.ndarray,
-    values: np.ndarray,
-    distance: float,
-    permutations: int,
-    rng: RngLike,
+    graph: ExposureGraph,
+    values,
+    *,
+    distance: float | None = None,
+    permutations: int = 999,
+    rng: RngLike = None,
 ) -> MoranResult:
-    """Moran (1950) I with binary weights d_ij <= distance, row-standardised (Cliff & Ord 1981).
+    """Moran's I of ``values`` (one per unit) among units within ``distance`` metres.
 
-    Units without a neighbour are left out (their row cannot be standardised).
-    The p-value is two-sided, from random permutations of the values over the
-    units, through the project's one significance routine.
+    Moran (1950) I with binary weights d_ij <= distance, row-standardised
+    (Cliff & Ord 1981). Units without a neighbour are left out (their row
+    cannot be standardised). The p-value is two-sided, from random
+    permutations of the values over the units, through the project's one
+    significance routine.
+
+    Parameters
+    ----------
+    graph : ExposureGraph
+        The units' neighbour pairs and distances.
+    values : array-like
+        One finite number per unit of the graph.
+    distance : float, optional
+        Neighbour distance in metres; defaults to the graph's ``max_distance``.
+    permutations : int
+        Random permutations of the values for the p-value.
+    rng : None, int, SeedSequence or Generator
+        Randomness of the permutations.
+
+    Returns
+    -------
+    MoranResult
     """
-    from geoexp.inference import significance
-
+    d = graph.max_distance if distance is None else float(distance)
+    if d > graph.max_distance + 1e-9:
+        raise InputError(f"the graph holds pairs up to {graph.max_distance:g} m, not {d:g} m")
+    near = graph.within(min(d, graph.max_distance))
+    indptr, indices = near.indptr, near.indices
+    distance, permutations = d, int(permutations)
     y = np.asarray(values, dtype=float)
     n = indptr.size - 1
     if y.shape != (n,):
         raise InputError(f"values must have one number per unit ({n}), got shape {y.shape}")
     if not np.isfinite(y).all():
         raise InputError("values must be finite numbers for every unit")
-    keep = distances <= distance
-    rows = np.repeat(np.arange(n), np.diff(indptr))[keep]
-    cols = indices[keep].astype(np.int64)
+    rows = np.repeat(np.arange(n), np.diff(indptr))
+    cols = indices.astype(np.int64)
     degree = np.bincount(rows, minlength=n)
     has = degree > 0
     if has.sum() < 3:

@@ -1,13 +1,185 @@
-"""Map furniture for printed maps: scale bar, north arrow and labels with a white halo."""
+"""The one static (matplotlib) map renderer for print and reports.
+
+Shared by the briefing pack and the static result map: the print style (one
+set of rc settings, print line widths), units drawn by condition in the
+palette's colours, widths and dash patterns, district outlines, text with a
+white halo, a scale bar and a north arrow, and legend handles.
+"""
 
 from __future__ import annotations
 
 import math
+from collections.abc import Sequence
+from dataclasses import dataclass
 
+import geopandas as gpd
+import numpy as np
+import shapely
 from matplotlib import patheffects
 from matplotlib.axes import Axes
+from matplotlib.collections import LineCollection
+from matplotlib.lines import Line2D
 from matplotlib.patches import Rectangle
 from matplotlib.text import Text
+
+from geoexp.maps._palette import condition_style
+
+# The palette's widths are screen pixels for the web maps; at full width on paper the
+# street grid would swamp the page, so print scales every width (and with it every dash).
+PRINT_WIDTH = 0.55
+PRINT_RC = {
+    # Type 42 (TrueType) keeps text as text, so unit ids can be searched and copied.
+    "pdf.fonttype": 42,
+    "font.family": "DejaVu Sans",
+    "pdf.compression": 6,
+    "axes.linewidth": 0.8,
+    # User text (trial names, descriptions, street names) is text, never math:
+    # a "$" in a name must not start a formula.
+    "text.parse_math": False,
+}
+DISTRICT_COLOUR = "0.15"
+DISTRICT_WIDTH = 1.0
+DISTRICT_DASH = (0, (6, 3))
+
+
+@dataclass(frozen=True)
+class PrintLineStyle:
+    """A condition's line on paper: colour, width (points), dash pattern and drawing order."""
+
+    color: str
+    linewidth: float
+    linestyle: str | tuple[float, tuple[float, ...]]
+    zorder: float
+
+
+def line_style(code: str) -> PrintLineStyle:
+    """The project's style of a condition (:func:`geoexp.maps.condition_style`), sized for paper."""
+    look = condition_style(code)
+    if code == "treated":
+        zorder = 6.0
+    elif code.startswith("spillover_"):
+        zorder = 5.0 - 1.0 / (1 + int(code.rsplit("_", 1)[1]))
+    else:
+        zorder = 2.0
+    return PrintLineStyle(look.colour, look.width * PRINT_WIDTH, look.mpl_linestyle, zorder)
+
+
+def line_segments(geoms: np.ndarray) -> list[np.ndarray]:
+    """Coordinate arrays of the lines to draw: lines as they are, polygons by their boundaries."""
+    if len(geoms) == 0:
+        return []
+    polygonal = np.isin(shapely.get_type_id(geoms), (3, 6))
+    geoms = np.where(polygonal, shapely.boundary(geoms), geoms)
+    parts = shapely.get_parts(geoms)
+    parts = parts[np.isin(shapely.get_type_id(parts), (1, 2))]
+    coords, index = shapely.get_coordinates(parts, return_index=True)
+    return np.split(coords, np.flatnonzero(np.diff(index)) + 1)
+
+
+def draw_units_by_condition(
+    ax: Axes,
+    frame: gpd.GeoDataFrame,
+    conditions: Sequence[str] | None = None,
+    *,
+    alpha: float = 1.0,
+) -> None:
+    """Draw units (column ``condition``) in each condition's print line style.
+
+    Treated units get a black casing, so they stay the darkest lines on a grey
+    printout; point units are drawn as dots.
+    """
+    codes = conditions if conditions is not None else frame["condition"].unique()
+    for code in codes:
+        geoms = frame.geometry.values[frame["condition"].to_numpy() == code]
+        style = line_style(code)
+        segs = line_segments(np.asarray(geoms))
+        if segs and code == "treated":
+            ax.add_collection(
+                LineCollection(
+                    segs,
+                    colors="black",
+                    linewidths=style.linewidth + 1.6,
+                    capstyle="butt",
+                    zorder=style.zorder,
+                    alpha=alpha,
+                )
+            )
+        if segs:
+            ax.add_collection(
+                LineCollection(
+                    segs,
+                    colors=style.color,
+                    linewidths=style.linewidth,
+                    linestyles=[style.linestyle],
+                    capstyle="butt",
+                    zorder=style.zorder,
+                    alpha=alpha,
+                )
+            )
+        points = shapely.get_coordinates(np.asarray(geoms)[shapely.get_type_id(geoms) == 0])
+        if len(points):
+            ax.scatter(
+                points[:, 0],
+                points[:, 1],
+                s=style.linewidth * 6,
+                c=style.color,
+                zorder=7,
+                alpha=alpha,
+            )
+
+
+def condition_handle(code: str, label: str) -> Line2D:
+    """A legend handle for a condition's print line (with the treated casing)."""
+    style = line_style(code)
+    casing = (
+        [
+            patheffects.Stroke(linewidth=style.linewidth + 1.6, foreground="black"),
+            patheffects.Normal(),
+        ]
+        if code == "treated"
+        else None
+    )
+    return Line2D(
+        [],
+        [],
+        color=style.color,
+        linewidth=style.linewidth,
+        linestyle=style.linestyle,
+        label=label,
+        path_effects=casing,
+    )
+
+
+def district_handle(label: str) -> Line2D:
+    """A legend handle for the district outlines."""
+    return Line2D(
+        [],
+        [],
+        color=DISTRICT_COLOUR,
+        linewidth=DISTRICT_WIDTH,
+        linestyle=DISTRICT_DASH,
+        label=label,
+    )
+
+
+def draw_district_outlines(
+    ax: Axes, outlines: gpd.GeoDataFrame | gpd.GeoSeries, *, label: str = "district"
+) -> Line2D:
+    """District outlines (from :func:`geoexp.maps.district_outlines`) as dark dashed lines.
+
+    The collection has the ``gid`` ``"districts"``. Returns a legend handle.
+    """
+    geoms = np.asarray(outlines.geometry.array if hasattr(outlines, "geometry") else outlines.array)
+    lines = LineCollection(
+        line_segments(np.asarray(geoms, dtype=object)),
+        colors=DISTRICT_COLOUR,
+        linewidths=DISTRICT_WIDTH,
+        linestyles=[DISTRICT_DASH],
+        zorder=3,
+    )
+    lines.set_gid("districts")
+    ax.add_collection(lines)
+    return district_handle(label)
 
 
 def halo_text(ax: Axes, x: float, y: float, text: str, *, halo: float = 2.6, **kwargs) -> Text:

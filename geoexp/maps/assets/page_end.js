@@ -1,0 +1,3 @@
+// Leaves the handle (window.geoexpMap) that the browser tests read.
+  window.geoexpMap = handle;
+})();

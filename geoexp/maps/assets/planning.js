@@ -1,0 +1,59 @@
+// The planning and drawing pages: tooltips, probability styles, and the zone export button.
+  function unitTip(meta) {
+    return function (layer) {
+      var p = layer.feature.properties, rows = [["unit", p.id]];
+      if (p.d !== undefined) rows.push(["street", p.d]);
+      if (p.ds !== undefined) rows.push(["district", p.ds]);
+      if (p.c !== undefined) rows.push(["condition", meta.labels[p.c] || p.c]);
+      rows.push(["eligible", p.e ? "yes" : "no"]);
+      if (p.p) { for (var j = 0; j < p.p.length; j++) rows.push(["P(" + meta.prob_labels[j] + ")", fmt(p.p[j])]); }
+      return '<table class="geoexp-tip">' + rows.map(function (r) {
+        return "<tr><td><b>" + esc(r[0]) + "</b></td><td>" + esc(r[1]) + "</td></tr>"; }).join("") + "</table>";
+    };
+  }
+  function probStyle(j, base) {
+    return function (f) {
+      var v = f.properties.p ? f.properties.p[j] : null;
+      if (v === null || v === undefined || v <= 0) {
+        return {color: cfg.never_colour, weight: 1, dashArray: "2 3", opacity: 0.9};
+      }
+      var k = Math.min(cfg.prob_colours.length - 1, Math.floor(v * cfg.prob_colours.length));
+      return {color: cfg.prob_colours[k], weight: base, opacity: 1};
+    };
+  }
+  function layerStyle(lay) {
+    return lay.kind === "probability" ? probStyle(lay.index, lay.weight)
+      : function () { return lay.style; };
+  }
+  var handle = {map: map, layers: {}, groups: {}, expected: {}, drawn: null, legend: null};
+
+  var drawn = groups[cfg.draw_group];
+  handle.drawn = drawn;
+  handle.zones = function () {
+    var fc = drawn.toGeoJSON();
+    var when = new Date().toISOString().slice(0, 10);
+    fc.features.forEach(function (f, i) { f.properties = {zone: i + 1, drawn_on: when}; });
+    return fc;
+  };
+  var Save = L.Control.extend({
+    options: {position: "topleft"},
+    onAdd: function () {
+      var b = L.DomUtil.create("button", "geoexp-save");
+      b.id = "geoexp-save-zones";
+      b.type = "button";
+      b.title = "Save the drawn polygons and rectangles as a GeoJSON file for [eligible] exclude";
+      b.textContent = "Save zones";
+      L.DomEvent.disableClickPropagation(b);
+      L.DomEvent.on(b, "click", function () {
+        var blob = new Blob([JSON.stringify(handle.zones())], {type: "application/geo+json"});
+        var a = document.createElement("a");
+        a.href = URL.createObjectURL(blob);
+        a.download = cfg.zones_filename;
+        document.body.appendChild(a);
+        a.click();
+        setTimeout(function () { URL.revokeObjectURL(a.href); a.remove(); }, 1000);
+      });
+      return b;
+    }
+  });
+  new Save().addTo(map);

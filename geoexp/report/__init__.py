@@ -1,0 +1,22 @@
+"""The results report: one context rendered as HTML (figures embedded) and as Markdown.
+
+:func:`report_context` gathers everything the report says about an
+:class:`geoexp.analysis.Analysis` (findings, design, estimates, displacement,
+figures, exclusions, methods) into one :class:`ReportContext`;
+:func:`write_report` renders it with the package's Jinja2 templates as an HTML
+page that works offline and a Markdown twin with the same sections, numbers and
+wording. :func:`distance_decay_plot` draws the effect by distance band.
+"""
+
+from geoexp.report._context import RESULT_MAP_TITLE, ReportContext, report_context
+from geoexp.report._figures import distance_decay_plot
+from geoexp.report._write import render_report, write_report
+
+__all__ = [
+    "RESULT_MAP_TITLE",
+    "ReportContext",
+    "distance_decay_plot",
+    "render_report",
+    "report_context",
+    "write_report",
+]

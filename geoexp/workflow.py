@@ -1,0 +1,226 @@
+"""The steps after a trial, as one call each: count incidents, then analyse and report.
+
+:func:`count_and_store` reads incident points, counts them per unit and period
+(stopping on counts that would mislead, see
+:func:`geoexp.outcomes.count_incidents`) and stores them in the trial file.
+:func:`analyse_trial` runs the analysis of a trial file, stores the results in
+it and writes the interactive results map and the HTML report with its
+Markdown twin. Both refuse, before anything is written, an output that would
+overwrite the trial file or an input (:func:`geoexp._paths.check_outputs`).
+
+This module sits on top of the package: it may use analysis, maps and the
+report writer; nothing in the package imports it except the command line and
+the demo.
+"""
+
+from __future__ import annotations
+
+import os
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Literal
+
+from geoexp._paths import check_outputs, writing
+from geoexp.analysis import Analysis
+from geoexp.outcomes import MAX_DROPPED_SHARE, OutcomeTable
+from geoexp.trialfile import TrialFile
+
+__all__ = ["AnalysisRun", "analyse_trial", "count_and_store", "report_outputs"]
+
+PathLike = str | os.PathLike
+Period = tuple[object, object]
+
+
+def count_and_store(
+    trial: PathLike,
+    incidents: PathLike,
+    *,
+    pre: Period,
+    post: Period,
+    date_column: str = "date",
+    date_format: str | None = None,
+    type_column: str | None = None,
+    by_type: bool = False,
+    lon: str | None = None,
+    lat: str | None = None,
+    x: str | None = None,
+    y: str | None = None,
+    crs: object = None,
+    layer: str | None = None,
+    tolerance_m: float = 30.0,
+    dropped_path: PathLike | None = None,
+    max_dropped_share: float | None = MAX_DROPPED_SHARE,
+) -> OutcomeTable:
+    """Count incidents per unit and period and store the counts in the trial file.
+
+    Parameters
+    ----------
+    trial : path
+        The trial GeoPackage (written: its outcomes layer is replaced).
+    incidents : path
+        A CSV (with ``lon``/``lat`` or ``x``/``y`` and ``crs``) or a point layer.
+    pre, post : (start, end)
+        The periods, both days included.
+    date_column, date_format, type_column, by_type, lon, lat, x, y, crs, layer
+        As in :func:`geoexp.outcomes.count_incidents`.
+    tolerance_m : float
+        Snapping tolerance in metres; 30 m is a common choice for street
+        segments (common practice).
+    dropped_path : path, optional
+        CSV of the incidents not counted, with a ``reason`` column.
+    max_dropped_share : float or None
+        Largest share of incidents that may be dropped (default 0.5); see
+        :func:`geoexp.outcomes.count_incidents`. The value is recorded in the
+        drop report and in the trial file's meta key
+        ``outcomes_max_dropped_share``.
+
+    Returns
+    -------
+    OutcomeTable
+        The counts as stored.
+
+    Raises
+    ------
+    geoexp.errors.InputError
+        Bad inputs, an output naming the trial file or the incidents, or
+        counts that would mislead; nothing is written in these cases.
+    """
+    from geoexp.outcomes import count_incidents, save_outcomes
+
+    check_outputs({"dropped_path": dropped_path}, {"the incidents": incidents}, trial=trial)
+    table = count_incidents(
+        TrialFile.open(trial),
+        incidents,
+        date_column=date_column,
+        date_format=date_format,
+        type_column=type_column,
+        by_type=by_type,
+        lon=lon,
+        lat=lat,
+        x=x,
+        y=y,
+        crs=crs,
+        layer=layer,
+        tolerance_m=tolerance_m,
+        pre=pre,
+        post=post,
+        dropped_path=dropped_path,
+        max_dropped_share=max_dropped_share,
+    )
+    with writing(trial, "trial file"):
+        stored = save_outcomes(trial, table)
+        # A limit other than the default is a deliberate choice: keep it with the counts (and
+        # replace one kept from an earlier count).
+        key = "outcomes_max_dropped_share"
+        if max_dropped_share != MAX_DROPPED_SHARE or key in stored.meta:
+            value = "" if max_dropped_share is None else repr(float(max_dropped_share))
+            stored.write_layers({}, meta={key: value})
+    return table
+
+
+@dataclass(frozen=True)
+class AnalysisRun:
+    """What :func:`analyse_trial` produced.
+
+    Attributes
+    ----------
+    analysis : geoexp.analysis.Analysis
+        The estimates, tests and verdicts.
+    trial : Path
+        The trial file, now holding the results.
+    report, report_md : Path
+        The HTML report and its Markdown twin.
+    result_map : Path
+        The interactive results map (HTML).
+    """
+
+    analysis: Analysis
+    trial: Path
+    report: Path
+    report_md: Path
+    result_map: Path
+
+    def __str__(self) -> str:
+        return (
+            f"{self.analysis}\nReport: {self.report} (Markdown: {self.report_md}); interactive "
+            f"results map: {self.result_map}\nResults stored in {self.trial}"
+        )
+
+
+def report_outputs(report: PathLike, result_map: PathLike | None = None) -> dict[str, Path]:
+    """Return the files :func:`analyse_trial` writes for ``report``: HTML, Markdown twin, map."""
+    report = Path(report)
+    map_path = (
+        report.with_name(f"{report.stem}_map.html") if result_map is None else Path(result_map)
+    )
+    return {"report": report, "report_md": report.with_suffix(".md"), "result_map": map_path}
+
+
+def analyse_trial(
+    trial: PathLike,
+    *,
+    report: PathLike = "report.html",
+    result_map: PathLike | None = None,
+    outcome: Literal["change", "post"] = "change",
+    estimator: Literal["hajek", "horvitz-thompson"] = "hajek",
+    n_draws: int = 2000,
+    level: float = 0.95,
+    districts=None,
+    tiles: str | None = "auto",
+) -> AnalysisRun:
+    """Analyse a trial file with stored outcomes; store the results; write map and report.
+
+    Runs :func:`geoexp.analysis.analyse` (Aronow & Samii 2017 estimates;
+    randomization tests of Fisher and of Athey, Eckles & Imbens 2018),
+    :func:`geoexp.analysis.save_results`, the interactive results map and the
+    report with its Markdown twin.
+
+    Parameters
+    ----------
+    trial : path
+        The trial GeoPackage, with outcomes (see :func:`count_and_store`).
+    report : path
+        The HTML report; the Markdown twin is the same name with ``.md``.
+    result_map : path, optional
+        The interactive results map; default ``<report stem>_map.html``
+        beside the report.
+    outcome, estimator, n_draws, level
+        As in :func:`geoexp.analysis.analyse`.
+    districts : path or GeoDataFrame, optional
+        District outlines drawn on the results map and the report's map.
+    tiles : str or None
+        Background tiles of the results map (``"auto"``: tiles only where the
+        units lie on land the tiles cover); ``None`` for a plain background.
+
+    Returns
+    -------
+    AnalysisRun
+
+    Raises
+    ------
+    geoexp.errors.InputError
+        An output naming the trial file, a folder, a path under a file, or
+        two outputs on the same file (checked before anything is written);
+        a write that fails (the file and the reason are named).
+    """
+    from geoexp.analysis import analyse, save_results
+    from geoexp.maps import save_result_map
+    from geoexp.report import write_report
+
+    outs = report_outputs(report, result_map)
+    labels = {
+        "report": "the report",
+        "report_md": "the report's Markdown twin",
+        "result_map": "the results map",
+    }
+    check_outputs({labels[k]: v for k, v in outs.items()}, {}, trial=trial)
+    result = analyse(trial, outcome=outcome, estimator=estimator, n_draws=n_draws, level=level)
+    with writing(trial, "trial file"):
+        tf = save_results(trial, result)
+    with writing(outs["result_map"], "results map"):
+        map_path = save_result_map(result, tf, outs["result_map"], tiles=tiles, districts=districts)
+    with writing(outs["report"], "report"):
+        html_path, md_path = write_report(
+            result, outs["report"], trial=tf, result_map_html=map_path, districts=districts
+        )
+    return AnalysisRun(result, Path(trial), Path(html_path), Path(md_path), Path(map_path))
