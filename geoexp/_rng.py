@@ -76,6 +76,8 @@ class Stream(IntEnum):
     FOCAL_UNITS = 5
     POWER = 6
     MORAN = 7
+    RATE_RATIO = 8
+    DISPLACEMENT = 9
 
 
 _ONE_LEVEL = (Stream.ASSIGNMENT, Stream.MONTE_CARLO)

@@ -42,7 +42,9 @@ def test_hajek_estimate_is_the_weighted_difference_in_means(analysis, demo_outpu
     y = units["change"].to_numpy()
     e = analysis.effects[1]
     p1, pc = units["p_spillover_1"].to_numpy(), units["p_pure_control"].to_numpy()
-    pop = (p1 > 0) & (pc > 0)
+    # the row's units: never-eligible units whose probabilities of both reach the floor
+    pop = (p1 >= analysis.floor) & (pc >= analysis.floor) & ~units["eligible"].to_numpy(bool)
+    assert (pop == units["in_spillover_1"].to_numpy()).all()
     k = pop & (units["condition"] == "spillover_1").to_numpy()
     c = pop & (units["condition"] == "pure_control").to_numpy()
     expected = np.average(y[k], weights=1 / p1[k]) - np.average(y[c], weights=1 / pc[c])
@@ -226,9 +228,53 @@ def test_linked_pairs_path_runs_on_a_whole_trial(demo_outputs, monkeypatch):
 
     dense = analyse(demo_outputs["trial"], n_draws=100, intervals=False)
     monkeypatch.setattr(_horvitz, "DENSE_LIMIT", 0)
+    monkeypatch.setattr("geoexp.analysis._run.DENSE_LIMIT", 0)  # the note reads the public name
     linked = analyse(demo_outputs["trial"], n_draws=100, intervals=False)
     for a, b in zip(dense.effects, linked.effects, strict=True):
         assert a.estimate == b.estimate
         assert b.joint.startswith("linked pairs")
         assert 0.7 < b.std_error / a.std_error < 1.3
     assert any("linked" not in n and "hinge" in n for n in linked.notes)
+
+
+def test_every_row_is_about_one_set_of_units_and_its_interval_agrees_with_its_test(analysis):
+    # [A] test inversion (Rosenbaum 2002 [from memory]): the printed interval excludes 0
+    # exactly when the row's test at 0 rejects; both are over the row's own units
+    alpha = 1 - analysis.level
+    assert len(analysis.rows) >= len(analysis.effects)
+    for row in analysis.rows:
+        add = row.additive
+        # (a set of non-rejected effects that is not one interval is flagged, and its verdict
+        # is "inconclusive")
+        assert add.excludes_null == (add.test.p_value <= alpha) or (
+            not add.connected and row.verdict.finding == "inconclusive"
+        ), row.label
+        assert row.effect.n_units == row.estimand.n_units
+        assert row.estimand.floor == analysis.floor
+        assert str(row.estimand.n_units) in row.verdict.sentence
+        if row.rate_ratio is not None and np.isfinite(row.rate_ratio.ci_low):
+            assert row.rate_ratio.excludes_null == (row.rate_ratio.test.p_value <= alpha)
+        assert "% of the pure-control mean" not in row.verdict.sentence
+    # spillover rows: the exact test runs on the very units of the estimate
+    for i, row in enumerate(analysis.rows[1 : len(analysis.effects)], start=1):
+        assert row.estimand.group == "never-eligible"
+        assert analysis.fisher[i] is None  # "no effect at all" is not a spillover test
+        if row.exact is not None:
+            assert row.exact.n_focal == row.estimand.n_units
+    # outputs match rows by condition codes, not label text
+    assert [r.exposure_code for r in analysis.rows[: len(analysis.effects)]] == [
+        "treated",
+        "spillover_1",
+        "spillover_2",
+    ]
+    assert {r.reference_code for r in analysis.rows} == {"pure_control"}
+    # the total net effect counts the treated area once (Bowers & Johnson 2003 parts)
+    parts = analysis.displacement[0].target_part + sum(d.buffer_part for d in analysis.displacement)
+    assert analysis.total_net_effect == pytest.approx(parts)
+    for d in analysis.displacement:
+        # the quotient with its spread over the design's assignments
+        assert d.wdq_low < d.wdq_high
+        if not (analysis.verdicts[0].finding == "reduction"):
+            assert d.reading.startswith("not read")
+    frame = analysis.rows_frame()
+    assert {"units", "left_out", "rate_ratio", "ess_exposure", "finding"} <= set(frame)

@@ -327,3 +327,16 @@ def test_check_reports_spatial_autocorrelation_of_the_baseline(region_path, unit
     )
     assert moran.statistic == pytest.approx(again.statistic)
     assert "Moran's I" in str(check)
+
+
+def test_check_says_when_extreme_weights_make_a_contrast_unreliable(region_path, units, graph):
+    # 110 of 120 eligible units treated: pure controls among them are rare, so the
+    # weights of the pure-control side are extreme (Kish effective sample size near 1)
+    design = make(region_path, units, graph, treated=110)
+    check = check_design(design, n_draws=300)
+    direct = next(line for line in check.verdict if line.startswith("Direct effect"))
+    assert "Not reliably estimable" in direct
+    assert "effective sample size" in direct and "fewer treated units" in direct
+    fine = check_design(make(region_path, units, graph), n_draws=300)
+    direct = next(line for line in fine.verdict if line.startswith("Direct effect"))
+    assert "Not reliably estimable" not in direct

@@ -257,3 +257,85 @@ def test_near_pairs_in_blocks_match_the_textbook_variance(monkeypatch):
             y, d, pi, 0, 3, bits, labels=LABELS, estimator="horvitz-thompson", near=(a, b)
         )
         assert e.std_error**2 == pytest.approx(textbook_variance(0, 3, y, d, pi, joint), rel=1e-10)
+
+
+def test_kish_effective_sample_size():
+    from geoexp.estimate import kish_ess
+
+    # [A] Kish (1965): equal weights give n; weights (1, 1, 1, 1000) give
+    # (1003)^2 / (3 + 10^6) = 1.00599...
+    assert kish_ess(np.full(40, 3.7)) == pytest.approx(40)
+    assert kish_ess(np.array([1, 1, 1, 1000.0])) == pytest.approx(1003**2 / (3 + 1000**2))
+    rng = np.random.default_rng(0)
+    w = rng.uniform(1, 50, 200)
+    # [A] Cauchy-Schwarz: 1 <= ESS <= n
+    assert 1 <= kish_ess(w) <= 200
+
+
+def test_contrast_units_apply_the_floor_and_say_why():
+    from geoexp.estimate import contrast_units
+
+    # five units, conditions (treated, band, pure control)
+    p = np.array(
+        [
+            [0.5, 0.2, 0.3],  # kept
+            [0.02, 0.3, 0.68],  # treated below the floor
+            [0.4, 0.6, 0.0],  # never pure control
+            [0.0, 0.5, 0.5],  # never treated
+            [0.3, 0.3, 0.4],  # kept
+        ]
+    )
+    eligible = np.array([True, True, True, False, True])
+    labels = ("treated", "band", "pure control")
+    est = contrast_units(p, eligible, 0, 2, labels=labels, group="eligible", floor=0.05)
+    assert est.units.tolist() == [True, False, False, False, True]
+    assert (est.n_below_floor, est.n_never_reference) == (1, 1)
+    assert "positivity floor" in est.left_out and "never pure control" in est.left_out
+    # [A] expected Kish ESS n^2 / sum(1/pi): 2^2 / (1/0.5 + 1/0.3)
+    assert est.expected_ess_exposure == pytest.approx(4 / (2 + 1 / 0.3))
+    focal = contrast_units(p, eligible, 1, 2, labels=labels, group="never-eligible", floor=0.05)
+    assert focal.units.tolist() == [False, False, False, True, False]
+    none = contrast_units(p, eligible, 0, 2, labels=labels, group="eligible", floor=0.0)
+    assert none.units.sum() == 3  # with no floor, every unit with both probabilities positive
+
+
+def test_adjusted_contrast_equals_weighted_least_squares():
+    # Lin (2013) [from memory]: the treatment coefficient of the regression of y on the
+    # treatment, the centred covariate and their interaction; with unequal probabilities the
+    # regression is weighted by 1/pi. [L] statsmodels WLS with the same weights.
+    import statsmodels.api as sm
+
+    from geoexp.estimate import adjusted_contrast
+
+    rng = np.random.default_rng(1)
+    n = 80
+    x = rng.poisson(5, n).astype(float)
+    p = rng.uniform(0.2, 0.8, (n, 2))
+    observed = rng.integers(0, 2, n)
+    y = 2 + 0.8 * x - 1.5 * (observed == 0) + 0.3 * x * (observed == 0) + rng.normal(0, 1, n)
+    units = np.ones(n, dtype=bool)
+    ours = adjusted_contrast(y, x, observed, p, 0, 1, units)
+    z = (observed == 0).astype(float)
+    xc = x - x.mean()
+    w = 1 / p[np.arange(n), observed]
+    design = np.column_stack([np.ones(n), z, xc, z * xc])
+    reference = sm.WLS(y, design, weights=w).fit().params[1]
+    assert ours == pytest.approx(reference, rel=1e-10)
+
+
+def test_displacement_reading_needs_a_clear_direct_effect_and_parts_add_up():
+    counts = (100, 70, 80, 72, 1000, 1000)
+    unclear = weighted_displacement_quotient(*counts, direct_effect_clear=False)
+    assert unclear.reading.startswith("not read")
+    assert unclear.wdq == weighted_displacement_quotient(*counts).wdq  # descriptive value kept
+    clear = weighted_displacement_quotient(*counts, direct_effect_clear=True)
+    assert "diffusion" in clear.reading
+    quiet = weighted_displacement_quotient(
+        *counts, direct_effect_clear=True, buffer_effect_clear=False
+    )
+    assert quiet.reading.startswith("not read")
+    # [A] TNE = target part + buffer part (Bowers & Johnson 2003), so the total over several
+    # buffers counts the target area once: target part + sum of the buffer parts
+    assert clear.total_net_effect == pytest.approx(clear.target_part + clear.buffer_part)
+    assert clear.control_trend == pytest.approx(1.0)
+    assert clear.target_part == pytest.approx(30.0) and clear.buffer_part == pytest.approx(8.0)

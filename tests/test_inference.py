@@ -59,12 +59,59 @@ def test_exact_two_sample_example():
     assert stats[0] == 4.0
     assert significance(4.0, stats, "greater", exact=True)[0] == pytest.approx(0.05)
     assert significance(4.0, stats, "two-sided", exact=True)[0] == pytest.approx(0.10)
+    # [A] equal-tailed rule by hand: T_obs = 4 is the largest of the 20 values, so
+    # P(T >= 4) = 1/20 and P(T <= 4) = 20/20; p = min(1, 2 * min(1/20, 1)) = 0.10. Here the
+    # null is symmetric about 0, so the absolute-value rule gives the same 0.10.
+    assert significance(4.0, stats, "absolute", exact=True)[0] == pytest.approx(0.10)
+    assert significance(4.0, stats, "less", exact=True)[0] == pytest.approx(1.0)
+    # and at T_obs = -8/3 (the second smallest of the 20 values: only {5,6,7} and
+    # {3,6,7} as controls reach it or below): P(T <= -8/3) = 2/20 → two-sided p = 0.20
+    assert sorted(stats)[1] == pytest.approx(-8 / 3)
+    assert significance(-8 / 3, stats, "two-sided", exact=True)[0] == pytest.approx(0.20)
+
+
+def test_equal_tailed_rule_by_hand():
+    # [A] the (M + 1)/(R + 1) rule on each side: null 0..9 (R = 10), t = 2:
+    # P(T >= 2) = (1 + 8)/11, P(T <= 2) = (1 + 3)/11, p = 2 * 4/11 = 8/11;
+    # the absolute rule counts |T| >= 2: 8 draws, p = 9/11.
+    null = np.arange(10.0)
+    assert significance(2.0, null, "two-sided")[0] == pytest.approx(8 / 11)
+    assert significance(2.0, null, "absolute")[0] == pytest.approx(9 / 11)
+    assert significance(-1.0, null, "two-sided")[0] == pytest.approx(2 / 11)
+    # vectorised: one call for many observed values, each against its own draws
+    obs = np.array([2.0, -1.0, 20.0])
+    p, mc, _ = significance(obs, np.tile(null, (3, 1)), "two-sided")
+    assert p == pytest.approx([8 / 11, 2 / 11, 2 / 11])
+    assert (mc > 0).all()
+
+
+def test_equal_tailed_rule_keeps_its_power_above_alpha_on_a_skewed_null():
+    # [A] an unbiased test rejects at least alpha under every alternative. The null of the
+    # statistic is exponential(1) (skewed, centred away from 0); a planted shift d moves the
+    # observed value to X + d. The absolute-value rule is biased: at d = -1 it rejects only
+    # when X - 1 >= q_0.95 = 3.0, i.e. P = exp(-4) = 0.018 < alpha (analytic); the
+    # equal-tailed rule keeps every rejection rate >= alpha up to Monte Carlo error.
+    rng = np.random.default_rng(8)
+    n_sims, n_draws, alpha = 2000, 399, 0.05
+    null = rng.exponential(1.0, (n_sims, n_draws))
+    x = rng.exponential(1.0, n_sims)
+    mc = np.sqrt(alpha * (1 - alpha) / n_sims)
+    for shift in (-1.5, -1.0, -0.5, -0.2, 0.0, 0.5, 1.0, 2.0):
+        rate = (significance(x + shift, null, "two-sided")[0] <= alpha).mean()
+        assert rate >= alpha - 3 * mc, shift
+    old = (significance(x - 1.0, null, "absolute")[0] <= alpha).mean()
+    assert old < alpha - 3 * mc  # the old rule's power falls below alpha
+    assert abs(old - np.exp(-4)) <= 4 * np.sqrt(np.exp(-4) / n_sims)
 
 
 def test_sampled_p_value_is_never_below_one_over_r_plus_one():
-    p, mc, _ = significance(100.0, np.zeros(999), "two-sided")
+    # the rule of comparing absolute values is now named "absolute"
+    p, mc, _ = significance(100.0, np.zeros(999), "absolute")
     assert p == pytest.approx(1 / 1000)
     assert mc > 0
+    # [A] the equal-tailed two-sided rule doubles the smaller one-sided p: never below 2/(R+1)
+    assert significance(100.0, np.zeros(999), "two-sided")[0] == pytest.approx(2 / 1000)
+    assert significance(100.0, np.zeros(999), "greater")[0] == pytest.approx(1 / 1000)
     # NaN draws count as extreme (conservative)
     assert significance(1.0, np.array([0.0, np.nan]), "greater")[0] == pytest.approx(2 / 3)
 
@@ -197,6 +244,134 @@ def test_test_inversion_covers_a_constant_effect():
     # 95% intervals: coverage of 30 intervals is at least 24 unless something is wrong
     # (binomial(30, 0.95) puts less than 0.1% below 24; scipy.stats.binom)
     assert covered >= 24
+
+
+def test_one_contrast_statistic_for_tests_inversion_and_power():
+    # [L] the Hajek contrast from weighted sums equals the difference of numpy weighted means
+    rng = np.random.default_rng(4)
+    y, p = rng.gamma(2.0, 2.0, 30), rng.uniform(0.1, 0.9, 30)
+    k, l = np.arange(30) < 12, np.arange(30) >= 12
+    from geoexp.inference import contrast_statistic
+
+    hajek = contrast_statistic(
+        (y[k] / p[k]).sum(), (1 / p[k]).sum(), (y[l] / p[l]).sum(), (1 / p[l]).sum()
+    )
+    assert hajek == pytest.approx(
+        np.average(y[k], weights=1 / p[k]) - np.average(y[l], weights=1 / p[l])
+    )
+    # every caller uses this one function (not a copy of it)
+    import geoexp.inference._draws as draws_module
+    import geoexp.inference._inversion as inversion_module
+    import geoexp.power._simulate as power_module
+
+    for module in (draws_module, inversion_module, power_module):
+        assert module.contrast_statistic is contrast_statistic
+
+
+def test_inverted_interval_excludes_zero_exactly_when_its_test_rejects():
+    # [A] test inversion (Rosenbaum 2002 [from memory]): the interval is the set of effects
+    # the same test does not reject, so at the search's resolution it excludes 0 exactly when
+    # the test at 0 rejects; checked over datasets with and without an effect
+    from geoexp.inference import constant_effect_test
+
+    design = lattice_design(n_eligible=80, m=30)
+    mapping = design.mapping
+    probs = exposure_probabilities(design.sampler, design.graph, mapping, 3000, rng=1).probabilities
+    base = np.random.default_rng(3).gamma(2.0, 2.0, design.units.n)
+    seen = set()
+    for s, effect in enumerate((0.0, -3.0, -6.0, 0.0, -3.0, -6.0, 4.0, 0.0)):
+        treated = design.sampler.draw(900 + s)
+        cond = assign_conditions(design.graph, mapping, treated)
+        y = base + effect * (cond == 0)
+        spec = ContrastSpec(0, 2, design.eligible)
+        res = constant_effect_test(design, cond, y, probs, spec, np.zeros(3), n_draws=300, rng=s)
+        rejects = res.test.p_value <= 0.05
+        assert res.excludes_null == rejects or not res.connected
+        assert res.ci_low <= res.estimate <= res.ci_high
+        seen.add(rejects)
+    assert seen == {True, False}  # both cases occurred, so the check could fail
+
+
+def test_rate_ratio_interval_covers_a_planted_ratio():
+    # Coverage of the inverted rate-ratio interval under a true multiplicative effect; 95%
+    # intervals: binomial(30, 0.95) puts less than 0.1% below 24 (scipy.stats.binom)
+    from geoexp.inference import rate_ratio_test
+
+    design = lattice_design(n_eligible=80, m=30)
+    mapping = design.mapping
+    probs = exposure_probabilities(design.sampler, design.graph, mapping, 3000, rng=1).probabilities
+    rng = np.random.default_rng(6)
+    mu = rng.gamma(2.0, 3.0, design.units.n)
+    pre = rng.poisson(mu).astype(float)
+    covered, rejected = 0, 0
+    for s in range(30):
+        treated = design.sampler.draw(400 + s)
+        cond = assign_conditions(design.graph, mapping, treated)
+        post = rng.poisson(mu * np.where(cond == 0, 0.6, 1.0)).astype(float)
+        spec = ContrastSpec(0, 2, design.eligible)
+        res = rate_ratio_test(
+            design, cond, post, probs, spec, np.ones(3), n_draws=300, rng=50 + s, baseline=pre
+        )
+        assert res.ci_low < res.estimate < res.ci_high
+        assert res.excludes_null == (res.test.p_value <= 0.05)
+        covered += res.ci_low <= 0.6 <= res.ci_high
+        rejected += res.test.p_value <= 0.05
+    assert covered >= 24
+    assert rejected >= 15  # a 40% reduction is seen in most trials
+
+
+def _treated_row_pvalues(effect, band_effect, n_sims, n_draws=99):
+    from geoexp.estimate import contrast_units
+    from geoexp.inference import constant_effect_test
+
+    design = lattice_design(n_eligible=80, m=30)
+    mapping = design.mapping
+    probs = exposure_probabilities(
+        design.sampler, design.graph, mapping, 4000, rng=21
+    ).probabilities
+    base = np.random.default_rng(22).gamma(0.8, 4.0, design.units.n)  # skewed outcomes
+    est = contrast_units(
+        probs, design.eligible, 0, 2, labels=mapping.labels, group="eligible", floor=0.05
+    )
+    spec = ContrastSpec(0, 2, est.units)
+    band = ContrastSpec(1, 2, ~design.eligible)
+    out = []
+    for s in range(n_sims):
+        treated = design.sampler.draw(3000 + s)
+        cond = assign_conditions(design.graph, mapping, treated)
+        y = base + effect * (cond == 0) + band_effect * (cond == 1)
+        # the band's effect in the model: its Hajek estimate on the never-eligible units
+        w1, w2 = (cond == 1) & band.mask, (cond == 2) & band.mask
+        plug = np.average(y[w1], weights=1 / probs[w1, 1]) - np.average(
+            y[w2], weights=1 / probs[w2, 2]
+        )
+        res = constant_effect_test(
+            design,
+            cond,
+            y,
+            probs,
+            spec,
+            np.array([0.0, plug, 0.0]),
+            n_draws=n_draws,
+            rng=8000 + s,
+            interval=False,
+        )
+        out.append(res.test.p_value)
+    return np.array(out)
+
+
+def test_treated_row_test_has_its_size_and_power_above_alpha_both_ways():
+    # Size by simulation: no treated effect, a spillover of +3 in the band (plugged in at its
+    # estimate): rejection at 5% within 2 Monte Carlo SE of 5% (a 3 SE margin for the
+    # plug-in). Unbiasedness [A]: under small planted shifts either way on skewed outcomes
+    # the equal-tailed test rejects at least alpha (up to 3 Monte Carlo SE).
+    n = 160
+    mc = np.sqrt(0.05 * 0.95 / n)
+    rate = (_treated_row_pvalues(0.0, 3.0, n) <= 0.05).mean()
+    assert abs(rate - 0.05) <= 3 * mc
+    for shift in (-0.6, 0.6):
+        rate = (_treated_row_pvalues(shift, 0.0, 80) <= 0.05).mean()
+        assert rate >= 0.05 - 3 * np.sqrt(0.05 * 0.95 / 80), shift
 
 
 def _lattice_graph(side: int) -> ExposureGraph:

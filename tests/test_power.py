@@ -312,3 +312,35 @@ def test_power_command_on_the_demo_spec(demo_outputs):
     assert "Designs compared" in result.output
     bad = CliRunner().invoke(app, ["power", spec, "--rate-ratio", "treated"])
     assert bad.exit_code != 0
+
+
+def test_power_simulates_the_analysis_rows_units(lattice):
+    # the power module and the analysis define each contrast over the same units
+    from geoexp.estimate import DEFAULT_FLOOR, contrast_units
+
+    result, details = _simulate(
+        lattice,
+        NormalOutcome(),
+        n_sims=10,
+        n_draws=10,
+        alpha=0.05,
+        outcome="post",
+        alternative="two-sided",
+        n_draws_probabilities=None,
+        rng=1,
+    )
+    probs = details["probabilities"]
+    pc = lattice.mapping.pure_control
+    for k, group in ((0, "eligible"), (1, "never-eligible")):
+        est = contrast_units(
+            probs,
+            lattice.eligible,
+            k,
+            pc,
+            labels=lattice.mapping.labels,
+            group=group,
+            floor=DEFAULT_FLOOR,
+        )
+        rows = details[lattice.mapping.codes[k]]["rows"]
+        np.testing.assert_array_equal(details["used"][rows], np.flatnonzero(est.units))
+        assert result.contrasts[k].n_units == est.n_units

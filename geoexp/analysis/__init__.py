@@ -7,7 +7,7 @@ the benefit (diffusion of benefits)? The report of the answer (HTML and
 Markdown) is written by :func:`geoexp.report.write_report`, above this layer.
 """
 
-from geoexp.analysis._run import Analysis, analyse, save_results
+from geoexp.analysis._run import Analysis, ContrastResult, analyse, save_results
 from geoexp.analysis._verdict import Verdict
 
-__all__ = ["Analysis", "Verdict", "analyse", "save_results"]
+__all__ = ["Analysis", "ContrastResult", "Verdict", "analyse", "save_results"]

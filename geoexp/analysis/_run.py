@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 from collections.abc import Callable
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import Literal
 
@@ -11,27 +11,32 @@ import numpy as np
 import pandas as pd
 
 from geoexp._rng import Stream
-from geoexp.analysis._verdict import Verdict, direct_verdict, spillover_verdict
+from geoexp.analysis._verdict import Verdict, approximation_supported, row_verdict
 from geoexp.design import Assignment, CompleteSampler, Design, SaturationSampler
 from geoexp.errors import InputError
 from geoexp.estimate import (
+    DEFAULT_FLOOR,
+    DENSE_LIMIT,
     ContrastEstimate,
     DisplacementIndex,
-    _horvitz,
+    Estimand,
+    adjusted_contrast,
+    contrast_units,
     estimate_contrast,
     saturation_effects,
     weighted_displacement_quotient,
 )
 from geoexp.exposure import condition_bits, dependence_pairs
 from geoexp.inference import (
+    MIN_FOCAL,
     ContrastSpec,
+    InvertedTest,
     RandomizationTest,
-    default_focal_units,
+    constant_effect_test,
     fisher_test,
-    invert_constant_effect,
+    rate_ratio_test,
     spillover_test,
 )
-from geoexp.inference._conditional import MIN_FOCAL
 from geoexp.outcomes import OutcomeTable, load_outcomes
 from geoexp.trialfile import (
     TrialFile,
@@ -46,11 +51,107 @@ OUTCOME_WORDS = {
     "change": "change in incidents from the pre-period to the post-period",
     "post": "incidents in the post-period",
 }
+# A row for the eligible units next to treated units is added when both of its sides have at
+# least this expected Kish effective sample size (see geoexp.estimate.Estimand).
+MIN_ROW_ESS = 10
+
+
+@dataclass(frozen=True, eq=False)
+class ContrastResult:
+    """Everything about one contrast row, all computed over the same units.
+
+    Attributes
+    ----------
+    exposure_code, reference_code
+        Condition codes (``"treated"``, ``"spillover_1"``, ``"pure_control"``): outputs
+        match rows by these, never by label text.
+    estimand
+        The units (which, how many, why others are left out) of every number below.
+    period, outcome
+        The period and the outcome of the additive estimate, in words.
+    effect, effect_ht
+        The headline (Hajek) and Horvitz–Thompson estimates over the units, with
+        Kish effective sample sizes and the Aronow & Samii (2017) standard error.
+    additive
+        The randomization test of no additive effect and its inversion: the
+        interval and the p-value the verdict uses.
+    rate_ratio
+        Post-period rate ratio with its interval and test (randomization
+        inversion of a multiplicative effect); None when not computed.
+    exact
+        Spillover rows on focal units: the exact conditional test of no
+        spillover (Athey, Eckles & Imbens 2018) on the same units; else None.
+    show_approximation
+        Whether the normal-approximation interval is shown (calibration rule in
+        :mod:`geoexp.analysis._verdict`).
+    sensitivity
+        The estimate under the other outcome definitions, by name.
+    verdict
+        The one verdict of the row.
+    """
+
+    exposure_code: str
+    reference_code: str
+    estimand: Estimand
+    period: str
+    outcome: str
+    effect: ContrastEstimate
+    effect_ht: ContrastEstimate
+    additive: InvertedTest
+    rate_ratio: InvertedTest | None
+    exact: RandomizationTest | None
+    show_approximation: bool
+    sensitivity: dict
+    verdict: Verdict
+
+    @property
+    def label(self) -> str:
+        """The row's label, naming its units' group."""
+        return f"{self.estimand.contrast} ({self.estimand.group} units)"
+
+    def to_frame(self) -> pd.DataFrame:
+        """One-row frame."""
+        rr = self.rate_ratio
+        row = {
+            "row": self.label,
+            "exposure": self.exposure_code,
+            "reference": self.reference_code,
+            "units": self.estimand.who,
+            "left_out": self.estimand.left_out,
+            "n_units": self.estimand.n_units,
+            "period": self.period,
+            "outcome": self.outcome,
+            "estimate": self.effect.estimate,
+            "ci_low": self.additive.ci_low,
+            "ci_high": self.additive.ci_high,
+            "p_value": self.additive.test.p_value,
+            "approx_ci_low": self.effect.ci_low if self.show_approximation else np.nan,
+            "approx_ci_high": self.effect.ci_high if self.show_approximation else np.nan,
+            "rate_ratio": rr.estimate if rr else np.nan,
+            "rate_ratio_low": rr.ci_low if rr else np.nan,
+            "rate_ratio_high": rr.ci_high if rr else np.nan,
+            "p_value_rate_ratio": rr.test.p_value if rr else np.nan,
+            "p_value_no_spillover": self.exact.p_value if self.exact else np.nan,
+            "ess_exposure": self.effect.ess_exposure,
+            "ess_reference": self.effect.ess_reference,
+            **{f"sensitivity: {k}": v for k, v in self.sensitivity.items()},
+            "finding": self.verdict.finding,
+        }
+        return pd.DataFrame([row]).set_index("row")
 
 
 @dataclass(frozen=True, eq=False)
 class Analysis:
-    """Everything the analysis of a trial found, with the numbers behind each sentence."""
+    """Everything the analysis of a trial found, with the numbers behind each sentence.
+
+    ``rows`` holds one :class:`ContrastResult` per contrast row (the treated
+    row, one row per spillover band on the units that can never be treated,
+    and, where the design supports one, a row per band on the eligible units
+    next to treated ones). The tuples ``effects`` ... ``verdicts`` follow the
+    first rows (treated, then each band on never-eligible units) in condition
+    order. ``fisher`` holds the test of "no effect at all" for the treated row
+    only (None on spillover rows: rejecting it is not evidence of spillover).
+    """
 
     name: str
     spec_hash: str
@@ -62,7 +163,7 @@ class Analysis:
     n_draws_tests: int
     effects: tuple[ContrastEstimate, ...]
     effects_ht: tuple[ContrastEstimate, ...]
-    fisher: tuple[RandomizationTest, ...]
+    fisher: tuple[RandomizationTest | None, ...]
     spillover_tests: tuple[RandomizationTest | None, ...]
     intervals: tuple[tuple[float, float], ...]
     verdicts: tuple[Verdict, ...]
@@ -72,59 +173,91 @@ class Analysis:
     band_edges: tuple[float, ...] = ()
     saturation: pd.DataFrame | None = None
     distance_unit: str = "m"
+    rows: tuple[ContrastResult, ...] = ()
+    floor: float = DEFAULT_FLOOR
+    total_net_effect: float = float("nan")
+    control_trend: float = float("nan")
     # what the analysis was computed from (see geoexp.trialfile.verify_trial)
     design_fingerprint: str = ""
     outcomes_fingerprint: str = ""
 
     def to_frame(self) -> pd.DataFrame:
-        """One row per contrast: estimates, intervals, p-values and verdicts."""
-        rows = []
+        """One row per main contrast: estimates, intervals, p-values and verdicts."""
+        out = []
         for i, e in enumerate(self.effects):
             spill = self.spillover_tests[i] if i < len(self.spillover_tests) else None
-            rows.append(
+            fisher = self.fisher[i] if i < len(self.fisher) else None
+            row = self.rows[i] if i < len(self.rows) else None
+            out.append(
                 {
                     "contrast": e.contrast,
+                    "units": e.units,
                     "outcome": self.outcome_words,
                     "estimator": e.estimator,
                     "estimate": e.estimate,
                     "std_error": e.std_error,
-                    "ci_low": e.ci_low,
-                    "ci_high": e.ci_high,
-                    "ri_ci_low": self.intervals[i][0],
-                    "ri_ci_high": self.intervals[i][1],
+                    "ci_low": self.intervals[i][0],
+                    "ci_high": self.intervals[i][1],
+                    "approx_ci_low": e.ci_low if row and row.show_approximation else np.nan,
+                    "approx_ci_high": e.ci_high if row and row.show_approximation else np.nan,
                     "estimate_ht": self.effects_ht[i].estimate,
                     "std_error_ht": self.effects_ht[i].std_error,
                     "mean_exposed": e.mean_exposure,
                     "mean_reference": e.mean_reference,
-                    "p_value": self.fisher[i].p_value,
-                    "mc_error": self.fisher[i].mc_error,
+                    "p_value": self.verdicts[i].p_value,
+                    "mc_error": row.additive.test.mc_error if row else np.nan,
+                    "p_value_no_effect_at_all": fisher.p_value if fisher else np.nan,
                     "p_value_no_spillover": spill.p_value if spill else np.nan,
                     "mc_error_no_spillover": spill.mc_error if spill else np.nan,
                     "n_focal": spill.n_focal if spill else 0,
+                    "rate_ratio": row.rate_ratio.estimate if row and row.rate_ratio else np.nan,
+                    "rate_ratio_low": row.rate_ratio.ci_low if row and row.rate_ratio else np.nan,
+                    "rate_ratio_high": (
+                        row.rate_ratio.ci_high if row and row.rate_ratio else np.nan
+                    ),
                     "n_units": e.n_units,
                     "n_exposed": e.n_exposure,
                     "n_reference": e.n_reference,
                     "n_excluded": e.n_excluded,
-                    "n_draws": self.fisher[i].n_draws,
+                    "ess_exposed": e.ess_exposure,
+                    "ess_reference": e.ess_reference,
+                    "n_draws": self.n_draws_tests,
                     "percent_of_reference": self.verdicts[i].percent_of_reference,
                     "finding": self.verdicts[i].finding,
                 }
             )
-        return pd.DataFrame(rows).set_index("contrast")
+        return pd.DataFrame(out).set_index("contrast")
+
+    def rows_frame(self) -> pd.DataFrame:
+        """Every contrast row (including rows for eligible neighbours), one line each."""
+        if not self.rows:
+            return pd.DataFrame()
+        return pd.concat([r.to_frame() for r in self.rows])
 
     def __str__(self) -> str:
         lines = [
             f"Analysis of {self.name} (design {self.spec_hash[:12]})",
             f"Outcome: {self.outcome_words}; {self.estimator} estimator; "
-            f"{int(round(100 * self.level))}% intervals.",
+            f"{int(round(100 * self.level))}% intervals; positivity floor {self.floor:g}.",
             "",
         ]
-        lines += [f"- {v.sentence}" for v in self.verdicts]
+        lines += [f"- {r.verdict.sentence}" for r in self.rows] or [
+            f"- {v.sentence}" for v in self.verdicts
+        ]
+        if self.fisher and self.fisher[0] is not None:
+            lines.append(f"- Whole trial: {self.fisher[0]}")
         lines.append("")
+        lines += [f"  {r.estimand}" for r in self.rows]
         lines += [f"  {e}" for e in self.effects]
         if self.displacement:
             lines.append("")
             lines += [f"  {d}" for d in self.displacement]
+            if np.isfinite(self.total_net_effect):
+                lines.append(
+                    f"  Total net effect (treated area counted once, every band added): "
+                    f"{self.total_net_effect:+.1f} incidents prevented; control trend "
+                    f"(pure controls after / before) {self.control_trend:.3f}"
+                )
         if self.notes:
             lines.append("")
             lines += [f"Note: {n}" for n in self.notes]
@@ -164,25 +297,37 @@ def analyse(
     n_draws: int = 2000,
     level: float = 0.95,
     intervals: bool = True,
+    floor: float | None = None,
 ) -> Analysis:
-    """Analyse a trial: direct and spillover effects, randomization tests, verdicts.
+    """Analyse a trial: one row per contrast, each with its own units, tests and verdict.
 
     The design is rebuilt from the trial file and checked to draw the stored
     assignment again; the exposure probabilities and joint probabilities come
     from the same draws of the design's own sampler as at drawing time.
 
-    - Effects: Hajek (default) and Horvitz–Thompson contrasts of treated and of
-      each spillover band against pure controls, with the conservative
-      variance of Aronow & Samii (2017), each over the units with positive
-      probability of both conditions.
-    - Fisher's randomization test of no effect at all for each contrast, and
-      the conditional test of no spillover on focal units for each band
-      (Athey, Eckles & Imbens 2018), both drawing from the design's sampler.
-    - Intervals for a constant additive effect by test inversion.
-    - A verdict per band (displacement, diffusion of benefits, or no
-      detectable spillover) and the weighted displacement quotient of
-      Bowers & Johnson (2003) with treated units as target, each band as
-      buffer and pure controls as control area.
+    Rows and their units (:func:`geoexp.estimate.contrast_units`):
+
+    - treated vs pure control over the eligible units whose probabilities of
+      both conditions reach the positivity floor;
+    - each spillover band vs pure control over the units that can never be
+      treated (the focal units of the exact conditional test), floor applied;
+    - each band vs pure control over the eligible units, where the design gives
+      both sides an expected effective sample size of at least
+      :data:`MIN_ROW_ESS`.
+
+    On each row, over its units: the Hajek contrast of the outcome (default:
+    the change from the pre-period, a difference-in-differences Hajek
+    estimator, chosen by calibration: see DEVELOPERS.md) with the conservative
+    variance of Aronow & Samii (2017); the randomization test of no additive
+    effect and the interval that inverts it (Rosenbaum 2002), both with the
+    equal-tailed two-sided rule; the post-period rate ratio with its own
+    inverted interval; on band rows the exact conditional test of no spillover
+    (Athey, Eckles & Imbens 2018); a sensitivity line with the other outcome
+    definitions (post-period only; regression-adjusted on the pre-period, Lin
+    2013); one verdict (:func:`geoexp.analysis._verdict.row_verdict`). Fisher's
+    test of no effect at all is reported once for the whole trial. The
+    weighted displacement quotient of Bowers & Johnson (2003) is descriptive,
+    read only when the treated row shows a clear reduction.
 
     Parameters
     ----------
@@ -199,7 +344,10 @@ def analyse(
     level
         Confidence level of the intervals; tests are read at 1 - level.
     intervals
-        Whether to invert tests for constant-effect intervals.
+        Whether to invert the tests into intervals (the tests are run either way).
+    floor
+        Positivity floor (default: the spec's ``positivity_floor`` if it has one,
+        else :data:`geoexp.estimate.DEFAULT_FLOOR`).
     """
     tf = trial if isinstance(trial, TrialFile) else TrialFile.open(trial)
     integrity = verify_trial(tf)  # refuses a trial whose design or outcomes changed
@@ -244,7 +392,7 @@ def analyse(
     # the linked pairs tell structural zero joint probabilities from Monte Carlo zeros, and
     # carry the variance alone when the trial is too big for all pairs
     near = _near_pairs(design)
-    if n_big * n_big > _horvitz.DENSE_LIMIT:
+    if n_big * n_big > DENSE_LIMIT:
         notes.append(
             "joint exposure probabilities are computed for the pairs of units whose conditions can "
             "hinge on a common treatment decision; other pairs depend on each other only through "
@@ -252,89 +400,151 @@ def analyse(
             "Horvitz-Thompson estimator; for the Hajek estimator it omits a term of relative size "
             "about one over the units per condition)"
         )
+    floor = _floor(design, floor)
     unit = "incidents"
     words = OUTCOME_WORDS[outcome]
-    effects, effects_ht, fishers, spills, cis, verdicts = [], [], [], [], [], []
     alpha = 1 - level
-    every = np.ones(design.units.n, dtype=bool)
-    # headline contrasts first, then the HT twins
-    for k in range(pc):
-        spec = ContrastSpec(k, pc, every)
-        common = dict(labels=mapping.labels, outcome=words, level=level, near=near)
-        e = estimate_contrast(y, observed, probs, k, pc, bits, estimator=estimator, **common)
-        other = "horvitz-thompson" if estimator == "hajek" else "hajek"
-        e_ht = estimate_contrast(y, observed, probs, k, pc, bits, estimator=other, **common)
-        f = fisher_test(design, observed, y, probs, spec, n_draws=n_draws, estimator="hajek")
-        s = None
-        if k > 0:
-            focal = default_focal_units(design, probs, k)
-            if focal.size < MIN_FOCAL and isinstance(design.sampler, CompleteSampler):
-                focal = _random_focal_units(design, probs, k)
-                notes.append(
-                    f"{mapping.labels[k]}: too few units are never treated, so the spillover test "
-                    f"holds the assignment of {focal.size} focal units chosen at random (from the "
-                    "design's seed, before looking at outcomes) and redraws the rest"
-                )
-            if focal.size >= MIN_FOCAL:
-                s = spillover_test(
-                    design, observed, assignment.treated, y, probs, k, focal=focal, n_draws=n_draws
-                )
-            else:
-                notes.append(
-                    f"{mapping.labels[k]}: only {focal.size} units that are never treated can be "
-                    "in this band or pure controls; no exact spillover test"
-                )
-        ci = (np.nan, np.nan)
-        if intervals:
-            effects_now = np.zeros(mapping.n_conditions)
-            for j, prev in enumerate(effects):
-                effects_now[j] = prev.estimate
-            ci = invert_constant_effect(
-                design,
-                observed,
-                y,
-                probs,
-                spec,
-                effects_now,
-                n_draws=n_draws,
-                level=level,
-                center=e.estimate,
-                scale=max(e.std_error, 1e-6),
-            )
-        base = _reference_level(post, observed, probs, k, pc)
-        verdict = (
-            direct_verdict(e, f, alpha, unit, base, ci if intervals else None)
-            if k == 0
-            else spillover_verdict(e, s, alpha, unit, base, ci if intervals else None)
+    labels = mapping.labels
+    plan = _plan_rows(design, probs, floor, notes)
+
+    def estimate(est: Estimand, which: str) -> ContrastEstimate:
+        return estimate_contrast(
+            y,
+            observed,
+            probs,
+            est.exposure,
+            pc,
+            bits,
+            estimator=which,
+            labels=labels,
+            outcome=words,
+            level=level,
+            near=near,
+            units=est.units,
+            units_words=est.who,
         )
-        effects.append(e)
-        effects_ht.append(e_ht)
-        fishers.append(f)
-        spills.append(s)
-        cis.append(ci)
-        verdicts.append(verdict)
-        if e.n_excluded:
-            notes.append(
-                f"{e.contrast}: {e.n_excluded} units left out because they can be "
-                f"{mapping.labels[k]} but never {mapping.labels[pc]} under this design (positivity)"
+
+    other = "horvitz-thompson" if estimator == "hajek" else "hajek"
+    effects = [(estimate(est, estimator), estimate(est, other)) for _, est, _ in plan]
+    # the other conditions' effects in each test's model: the main rows' estimates
+    plug = np.zeros(mapping.n_conditions)
+    ratios = np.ones(mapping.n_conditions)
+    for (k, est, _), (e, _) in zip(plan, effects, strict=True):
+        if est.group != "eligible" or k == 0:
+            plug[k] = e.estimate if np.isfinite(e.estimate) else 0.0
+            r = _hajek(post, observed, probs, k, pc, est.units, pre)
+            ratios[k] = r if np.isfinite(r) and r > 0 else 1.0
+    rows: list[ContrastResult] = []
+    fisher0 = None
+    for (k, est, focal), (e, e_other) in zip(plan, effects, strict=True):
+        spec = ContrastSpec(k, pc, est.units)
+        where = f"{labels[k]} units ({est.who})"
+        add = constant_effect_test(
+            design,
+            observed,
+            y,
+            probs,
+            spec,
+            plug,
+            n_draws=n_draws,
+            level=level,
+            center=e.estimate if np.isfinite(e.estimate) else 0.0,
+            scale=max(e.std_error, 1e-6) if np.isfinite(e.std_error) else 1.0,
+            null=f"no additive effect on {where}, other effects at their estimates",
+            interval=intervals,
+        )
+        rate = rate_ratio_test(
+            design,
+            observed,
+            post,
+            probs,
+            spec,
+            ratios,
+            n_draws=n_draws,
+            level=level,
+            null=f"rate ratio 1 on {where}, other ratios at their estimates",
+            interval=intervals,
+            baseline=pre if (pre[est.units] > 0).any() else None,
+        )
+        exact = None
+        if k == 0 and fisher0 is None:
+            fisher0 = fisher_test(design, observed, y, probs, spec, n_draws=n_draws)
+        elif focal is not None:
+            exact = spillover_test(
+                design, observed, assignment.treated, y, probs, k, focal=focal, n_draws=n_draws
             )
+        sensitivity = _sensitivity(outcome, pre, post, observed, probs, k, pc, est.units)
+        show = approximation_supported(e, k == 0) and estimator == "hajek"
+        verdict = row_verdict(
+            est,
+            e,
+            add,
+            alpha=alpha,
+            unit=unit,
+            direct=k == 0,
+            rate=rate,
+            exact=exact,
+            show_approximation=show,
+            sensitivity="; ".join(f"{name} {v:+.2f}" for name, v in sensitivity.items()),
+        )
+        rows.append(
+            ContrastResult(
+                exposure_code=mapping.codes[k],
+                reference_code=mapping.codes[pc],
+                estimand=est,
+                period="pre-period and post-period" if outcome == "change" else "post-period",
+                outcome=words,
+                effect=e,
+                effect_ht=e_other,
+                additive=add,
+                rate_ratio=rate,
+                exact=exact,
+                show_approximation=show,
+                sensitivity=sensitivity,
+                verdict=verdict,
+            )
+        )
+        if est.n_never_reference or est.n_below_floor:
+            notes.append(f"{est.contrast}, {est.group} units: left out {est.left_out}")
+    main = rows[:pc]
     displacement = []
+    clear = main[0].verdict.finding == "reduction"
+    sums = {c: (pre[observed == c].sum(), post[observed == c].sum()) for c in range(pc + 1)}
     for k in range(1, pc):
-        sums = {c: (pre[observed == c].sum(), post[observed == c].sum()) for c in (0, k, pc)}
         try:
             displacement.append(
                 weighted_displacement_quotient(
-                    *sums[0], *sums[k], *sums[pc], buffer=mapping.labels[k]
+                    *sums[0],
+                    *sums[k],
+                    *sums[pc],
+                    buffer=mapping.labels[k],
+                    direct_effect_clear=clear,
+                    buffer_effect_clear=main[k].verdict.finding
+                    in ("displacement", "diffusion of benefits"),
                 )
             )
         except InputError as err:
             notes.append(f"no displacement quotient for {mapping.labels[k]}: {err}")
+    if displacement and intervals:
+        displacement = _wdq_intervals(
+            design, observed, pre, post, ratios, displacement, n_draws=n_draws, level=level
+        )
+    tne, trend = float("nan"), float("nan")
+    if displacement:
+        d0 = displacement[0]
+        trend = d0.control_after / d0.control_before
+        # the treated area once, each band's buffer part added
+        tne = (d0.target_before * trend - d0.target_after) + sum(
+            d.buffer_before * trend - d.buffer_after for d in displacement
+        )
     per_unit = assignment.to_frame()
     per_unit["pre"] = pre
     per_unit["post"] = post
     per_unit["change"] = post - pre
     for k, code in enumerate(mapping.codes):
         per_unit[f"p_{code}"] = probs[:, k]
+    for r in main:
+        per_unit[f"in_{r.exposure_code}"] = r.estimand.units
     drops = getattr(outcomes, "drops", None)
     if drops is not None and getattr(drops, "n_dropped", 0):
         notes.append(f"incidents not counted: {drops}")
@@ -347,21 +557,180 @@ def analyse(
         level=level,
         n_draws_probabilities=r_prob,
         n_draws_tests=n_draws,
-        effects=tuple(effects),
-        effects_ht=tuple(effects_ht),
-        fisher=tuple(fishers),
-        spillover_tests=tuple(spills),
-        intervals=tuple(cis),
-        verdicts=tuple(verdicts),
+        effects=tuple(r.effect for r in main),
+        effects_ht=tuple(r.effect_ht for r in main),
+        fisher=tuple([fisher0] + [None] * (len(main) - 1)),
+        spillover_tests=tuple(r.exact for r in main),
+        intervals=tuple((r.additive.ci_low, r.additive.ci_high) for r in main),
+        verdicts=tuple(r.verdict for r in main),
         displacement=tuple(displacement),
         per_unit=per_unit,
         notes=tuple(notes),
         band_edges=mapping.band_edges,
         saturation=_saturation_table(design, assignment, y),
         distance_unit=mapping.unit,
+        rows=tuple(rows),
+        floor=floor,
+        total_net_effect=tne,
+        control_trend=trend,
         design_fingerprint=integrity.design_fingerprint,
         outcomes_fingerprint=outcomes_fp,
     )
+
+
+def _wdq_intervals(
+    design: Design,
+    observed: np.ndarray,
+    pre: np.ndarray,
+    post: np.ndarray,
+    ratios: np.ndarray,
+    indices: list[DisplacementIndex],
+    *,
+    n_draws: int,
+    level: float,
+) -> list[DisplacementIndex]:
+    """Each quotient with the spread it has over the design's own assignments.
+
+    Outcomes are imputed under the fitted rate ratios (the rows' estimates):
+    Y_i(pure control) = post_i / rho_{d_i}. For every draw of the design the
+    counts of the target, each buffer and the control area are those the draw
+    would have produced, and the quotient of Bowers & Johnson (2003) is
+    recomputed; the interval holds the central ``level`` share of those
+    quotients. It shows how much the quotient moves with which units happen to
+    be treated, which the published quotient does not report; it is a
+    randomization interval under the fitted model, not a test.
+    """
+    from geoexp.exposure import exposure_probabilities
+
+    mapping = design.mapping
+    pc = mapping.pure_control
+    base = post / ratios[observed]
+    cols = pd.DataFrame({"pre": pre, "base": base}, index=design.graph.ids)
+    sums = exposure_probabilities(
+        design.sampler,
+        design.graph,
+        mapping,
+        n_draws,
+        design.stream(Stream.DISPLACEMENT),
+        covariates=cols,
+    ).covariate_sums
+    before = sums[:, :, 0]
+    after = sums[:, :, 1] * ratios[None, :]
+    with np.errstate(invalid="ignore", divide="ignore"):
+        sm = after[:, 0] / after[:, pc] - before[:, 0] / before[:, pc]
+        out = []
+        for k, d in enumerate(indices, start=1):
+            bm = after[:, k] / after[:, pc] - before[:, k] / before[:, pc]
+            q = bm / sm
+            q = q[np.isfinite(q)]
+            lo, hi = np.quantile(q, [(1 - level) / 2, (1 + level) / 2]) if q.size else (np.nan,) * 2
+            out.append(replace(d, wdq_low=float(lo), wdq_high=float(hi)))
+    return out
+
+
+def _floor(design: Design, floor: float | None) -> float:
+    """The positivity floor: the argument, else the spec's, else the default."""
+    if floor is None:
+        floor = getattr(design.spec, "positivity_floor", None)
+    return DEFAULT_FLOOR if floor is None else float(floor)
+
+
+def _plan_rows(
+    design: Design, probs: np.ndarray, floor: float, notes: list[str]
+) -> list[tuple[int, Estimand, np.ndarray | None]]:
+    """The rows: (condition, units, focal units of the exact test or None), main rows first."""
+    mapping = design.mapping
+    pc, labels = mapping.pure_control, mapping.labels
+    common = dict(labels=labels, floor=floor)
+    plan = [(0, contrast_units(probs, design.eligible, 0, pc, group="eligible", **common), None)]
+    for k in range(1, pc):
+        est = contrast_units(probs, design.eligible, k, pc, group="never-eligible", **common)
+        focal = np.flatnonzero(est.units)
+        if focal.size < MIN_FOCAL and isinstance(design.sampler, CompleteSampler):
+            chosen = _random_focal_units(design, probs, k)
+            within = np.zeros(design.units.n, dtype=bool)
+            within[chosen] = True
+            est = contrast_units(
+                probs, design.eligible, k, pc, group="all", within=within, **common
+            )
+            focal = np.flatnonzero(est.units)
+            notes.append(
+                f"{labels[k]}: too few units are never treated, so the spillover test holds the "
+                f"assignment of {focal.size} focal units chosen at random (from the design's "
+                "seed, before looking at outcomes) and redraws the rest; the band's row is about "
+                "those units"
+            )
+        if focal.size < MIN_FOCAL:
+            notes.append(
+                f"{labels[k]}: only {focal.size} units that are never treated can be in this "
+                "band or pure controls; no exact spillover test"
+            )
+            focal = None
+        plan.append((k, est, focal))
+    for k in range(1, pc):
+        est = contrast_units(probs, design.eligible, k, pc, group="eligible", **common)
+        ess = min(est.expected_ess_exposure, est.expected_ess_reference)
+        if est.n_units >= MIN_FOCAL and ess >= MIN_ROW_ESS:
+            plan.append((k, est, None))
+        else:
+            notes.append(
+                f"{labels[k]}: no row for the eligible units next to treated units ({est.n_units} "
+                f"units, expected effective sample size {ess:.0f} on the thinner side; at least "
+                f"{MIN_ROW_ESS} needed)"
+            )
+    return plan
+
+
+def _hajek(
+    y: np.ndarray,
+    observed: np.ndarray,
+    probs: np.ndarray,
+    k: int,
+    l: int,
+    units: np.ndarray,
+    baseline: np.ndarray,
+) -> float:
+    """Rate ratio: each side's Hajek mean of ``y`` over its Hajek mean of ``baseline``."""
+    hk, hl = units & (observed == k), units & (observed == l)
+    if not hk.any() or not hl.any():
+        return float("nan")
+    wk, wl = 1 / probs[hk, k], 1 / probs[hl, l]
+    with np.errstate(invalid="ignore", divide="ignore"):
+        rk = np.average(y[hk], weights=wk) / np.average(baseline[hk], weights=wk)
+        rl = np.average(y[hl], weights=wl) / np.average(baseline[hl], weights=wl)
+        return float(rk / rl) if rl > 0 else float("nan")
+
+
+def _sensitivity(
+    outcome: str,
+    pre: np.ndarray,
+    post: np.ndarray,
+    observed: np.ndarray,
+    probs: np.ndarray,
+    k: int,
+    l: int,
+    units: np.ndarray,
+) -> dict:
+    """The row's estimate under the other outcome definitions (same units, same weights)."""
+
+    def hajek_difference(v: np.ndarray) -> float:
+        hk, hl = units & (observed == k), units & (observed == l)
+        if not hk.any() or not hl.any():
+            return float("nan")
+        return float(
+            np.average(v[hk], weights=1 / probs[hk, k])
+            - np.average(v[hl], weights=1 / probs[hl, l])
+        )
+
+    out = {}
+    if outcome != "change":
+        out["change from the pre-period"] = hajek_difference(post - pre)
+    if outcome != "post":
+        out["post-period only"] = hajek_difference(post)
+    out["post-period adjusted for the pre-period (Lin 2013)"] = adjusted_contrast(
+        post, pre, observed, probs, k, l, units
+    )
+    return out
 
 
 def _random_focal_units(design: Design, probs: np.ndarray, band: int) -> np.ndarray:
@@ -392,15 +761,6 @@ def _saturation_table(design: Design, assignment: Assignment, y: np.ndarray) -> 
         )
     except InputError:
         return None
-
-
-def _reference_level(
-    post: np.ndarray, observed: np.ndarray, probs: np.ndarray, k: int, pc: int
-) -> float:
-    """Hajek mean post-period count of the contrast's pure controls (the base for percentages)."""
-    hit = (observed == pc) & (probs[:, pc] > 0) & (probs[:, k] > 0)
-    w = 1 / probs[hit, pc]
-    return float((post[hit] * w).sum() / w.sum()) if hit.any() else float("nan")
 
 
 def save_results(

@@ -8,10 +8,17 @@ from typing import TYPE_CHECKING
 import numpy as np
 import pandas as pd
 
+from geoexp._moran import moran
 from geoexp._rng import Stream
 from geoexp._tables import markdown_table
 from geoexp.errors import DesignError
-from geoexp.exposure import ExposureProbabilities, PositivityReport
+from geoexp.exposure import (
+    DEFAULT_FLOOR,
+    Estimand,
+    ExposureProbabilities,
+    PositivityReport,
+    contrast_units,
+)
 
 if TYPE_CHECKING:
     from geoexp.design._assignment import Assignment
@@ -226,8 +233,6 @@ def _autocorrelation(design: Design, x: np.ndarray, cols: list[str]):
     """Moran's I of the first balance column within the first band, if it varies."""
     if not cols or np.ptp(x[:, 0]) == 0:
         return None
-    from geoexp.inference import moran  # inference needs the design package: import on use
-
     try:
         return moran(
             design.graph,
@@ -286,52 +291,79 @@ def _balance(design, probs, x, cols, assignment) -> pd.DataFrame:
     return pd.DataFrame(out).set_index(["covariate", "contrast"])
 
 
+def _suggestions(estimand: Estimand, thin: str, direct: bool) -> str:
+    """Design changes that would help the thin side of a contrast."""
+    if thin == "reference":
+        return (
+            "fewer treated units, a smaller gap between treated units, or a randomized-saturation "
+            "design with pure-control clusters (more units that are often pure controls)"
+        )
+    if direct:
+        return "more treated units"
+    return "a bigger band or more treated units (more units that are often in the band)"
+
+
+def _row_line(head: str, estimand: Estimand, *, direct: bool) -> str:
+    """What the design check says about one contrast row: its units, weights and estimability.
+
+    A contrast is called estimable only when both sides' expected Kish (1965)
+    effective sample size over the row's units reaches :data:`MIN_EXPECTED_UNITS`;
+    units whose probability of either condition is below the positivity floor
+    leave the estimand, and the line says how many and why (their weights
+    would make the Hajek estimate biased toward zero and unstable).
+    """
+    e = estimand
+    line = (
+        f"{head} Over {e.who}: expected effective sample sizes {e.expected_ess_exposure:.0f} "
+        f"({e.exposure_label}) and {e.expected_ess_reference:.0f} ({e.reference_label}) per draw"
+        f" (Kish); left out: {e.left_out}."
+    )
+    ess = {"exposure": e.expected_ess_exposure, "reference": e.expected_ess_reference}
+    thin = min(ess, key=ess.get)
+    side = e.exposure_label if thin == "exposure" else e.reference_label
+    if e.n_units < MIN_EXPECTED_UNITS or ess[thin] < MIN_EXPECTED_UNITS:
+        line += (
+            f" Not reliably estimable: the {side} side's weights are extreme (expected effective "
+            f"sample size {ess[thin]:.1f} of {e.n_units} units; at least {MIN_EXPECTED_UNITS} "
+            f"needed). Would help: {_suggestions(e, thin, direct)}."
+        )
+    elif e.n_below_floor + e.n_never_reference > 0.2 * max(e.n_candidates, 1):
+        line += (
+            f" Estimable only for the {e.n_units} units kept: "
+            f"{e.n_below_floor + e.n_never_reference} units cannot be compared with stable "
+            f"weights and leave the estimand. Would help: {_suggestions(e, thin, direct)}."
+        )
+    else:
+        line += " Estimable."
+    return line
+
+
 def _verdict(design, probs, expected, positivity, balance) -> list[str]:
     mapping = design.mapping
     pc = mapping.pure_control
     p = probs.probabilities
     lines = []
     elig = design.eligible
-    direct = positivity.contrasts[0]
+    floor = getattr(design.spec, "positivity_floor", None)
+    floor = DEFAULT_FLOOR if floor is None else float(floor)
     exp_t = expected["expected_units"].iloc[0]
     exp_c = expected["expected_eligible"].iloc[pc]
-    line = (
+    direct = contrast_units(p, elig, 0, pc, labels=mapping.labels, group="eligible", floor=floor)
+    head = (
         f"Direct effect (treated vs pure control): about {exp_t:.0f} treated and {exp_c:.0f} "
-        f"eligible pure controls per draw; {direct.n_units} units can be in either."
+        f"eligible pure controls per draw."
     )
-    if direct.exposure_only:
-        line += (
-            f" {len(direct.exposure_only)} eligible units can never be pure controls (always near "
-            "a treated unit) and fall out of this estimate."
-        )
-    if exp_c < MIN_EXPECTED_UNITS or exp_t < MIN_EXPECTED_UNITS:
-        line += " Too few units on one side: the direct effect cannot be estimated reliably."
-    else:
-        line += " Estimable."
-    lines.append(line)
+    lines.append(_row_line(head, direct, direct=True))
     for k in range(1, pc):
-        c = positivity.contrasts[k]
         e_k = expected["expected_units"].iloc[k]
-        line = (
-            f"Spillover, {mapping.labels[k]} (vs pure control): about {e_k:.0f} units per draw in "
-            f"this band; {c.n_units} units can be in either."
+        focal = contrast_units(
+            p, elig, k, pc, labels=mapping.labels, group="never-eligible", floor=floor
         )
-        if c.exposure_only:
-            line += f" {len(c.exposure_only)} units can be in this band but never pure controls; they fall out."
-        if e_k < MIN_EXPECTED_UNITS or c.n_units < MIN_EXPECTED_UNITS:
-            line += " Too few units: this band's spillover cannot be estimated reliably."
-        else:
-            line += " Estimable."
-        lines.append(line)
-    for k in range(pc):
-        both = (p[:, k] > 0) & (p[:, pc] > 0)
-        small = both & ((p[:, k] < SMALL_PROBABILITY) | (p[:, pc] < SMALL_PROBABILITY))
-        if small.sum() > 0.2 * max(both.sum(), 1):
-            lines.append(
-                f"{int(small.sum())} of {int(both.sum())} units in the {mapping.labels[k]} contrast "
-                f"have a probability below {SMALL_PROBABILITY} of one condition; their weights exceed "
-                f"{1 / SMALL_PROBABILITY:.0f} and will make that estimate noisy."
-            )
+        head = (
+            f"Spillover, {mapping.labels[k]} (vs pure control): about {e_k:.0f} units per draw in "
+            "this band."
+        )
+        lines.append(_row_line(head, focal, direct=False))
     if len(balance):
         structural = balance[balance["mean_over_draws"].abs() > BALANCE_THRESHOLD]
         for (cov, contrast), row in structural.iterrows():

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
+import numpy as np
 import pandas as pd
 
 from geoexp.errors import InputError
@@ -19,6 +20,16 @@ class DisplacementIndex:
     weighted displacement quotient WDQ = BM / SM (meaningful only when SM < 0),
     total net effect TNE = [R_b C_a/C_b - R_a] + [D_b C_a/C_b - D_a] (incidents
     prevented, counting the buffer; positive is good).
+
+    The quotient is descriptive: it has no sampling distribution of its own
+    here, and a buffer's ratio moves a lot by chance when the target area's
+    change is small. When ``direct_effect_clear`` is False (the randomization
+    test of the treated units' change does not show a clear reduction) no
+    reading is given; likewise when ``buffer_effect_clear`` is False (the
+    buffer's own test shows no clear spillover: with no spillover at all the
+    quotient is often far from 0). Summing several buffers' TNE counts the target area once
+    per buffer: add the buffer parts to one target part instead
+    (:attr:`target_part`, :attr:`buffer_part`). ``control_trend`` is C_a / C_b.
     """
 
     target_before: float
@@ -32,10 +43,39 @@ class DisplacementIndex:
     wdq: float
     total_net_effect: float
     buffer: str = "buffer"
+    direct_effect_clear: bool | None = None
+    buffer_effect_clear: bool | None = None
+    wdq_low: float = float("nan")
+    wdq_high: float = float("nan")
+
+    @property
+    def control_trend(self) -> float:
+        """C_a / C_b: the control area's own change, against which both areas are read."""
+        return self.control_after / self.control_before
+
+    @property
+    def target_part(self) -> float:
+        """R_b C_a / C_b - R_a: incidents prevented in the target area."""
+        return self.target_before * self.control_trend - self.target_after
+
+    @property
+    def buffer_part(self) -> float:
+        """D_b C_a / C_b - D_a: incidents prevented in the buffer."""
+        return self.buffer_before * self.control_trend - self.buffer_after
 
     @property
     def reading(self) -> str:
         """Plain-language reading of the quotient."""
+        if self.direct_effect_clear is False:
+            return (
+                "not read: the change in the target area is not itself clear (its "
+                "randomization test shows no clear reduction), so the quotient is descriptive only"
+            )
+        if self.buffer_effect_clear is False:
+            return (
+                "not read: the buffer's own test shows no clear spillover, and the quotient "
+                "departs from 0 by chance alone, so it is descriptive only"
+            )
         if self.success_measure >= 0:
             return (
                 "no relative reduction in the target area (success measure >= 0), so the "
@@ -56,13 +96,20 @@ class DisplacementIndex:
         return (
             f"WDQ ({self.buffer}) = {self.wdq:+.3f}: {self.reading}; success measure "
             f"{self.success_measure:+.4f}, buffer measure {self.buffer_measure:+.4f}, total net "
-            f"effect {self.total_net_effect:+.1f} incidents"
+            f"effect {self.total_net_effect:+.1f} incidents (target and this buffer); control "
+            f"trend {self.control_trend:.3f} (after / before); "
+            + (
+                f"randomization interval {self.wdq_low:+.2f} to {self.wdq_high:+.2f}"
+                if np.isfinite(self.wdq_low) and np.isfinite(self.wdq_high)
+                else "descriptive, no interval"
+            )
         )
 
     def to_frame(self) -> pd.DataFrame:
         """One-row frame."""
         row = dict(self.__dict__)
         row["reading"] = self.reading
+        row["control_trend"] = self.control_trend
         return pd.DataFrame([row]).set_index("buffer")
 
 
@@ -75,6 +122,8 @@ def weighted_displacement_quotient(
     control_after: float,
     *,
     buffer: str = "buffer",
+    direct_effect_clear: bool | None = None,
+    buffer_effect_clear: bool | None = None,
 ) -> DisplacementIndex:
     """Compute the weighted displacement quotient of Bowers & Johnson (2003).
 
@@ -111,4 +160,6 @@ def weighted_displacement_quotient(
         float(wdq),
         float(tne),
         buffer,
+        direct_effect_clear,
+        buffer_effect_clear,
     )

@@ -11,7 +11,7 @@ import pandas as pd
 from scipy.stats import norm
 
 from geoexp.errors import InputError
-from geoexp.exposure import ConditionBits
+from geoexp.exposure import ConditionBits, kish_ess
 
 Estimator = Literal["hajek", "horvitz-thompson"]
 
@@ -46,6 +46,9 @@ class ContrastEstimate:
     n_excluded: int
     level: float
     joint: str
+    units: str = "every unit with positive probability of both conditions"
+    ess_exposure: float = float("nan")
+    ess_reference: float = float("nan")
 
     @property
     def contrast(self) -> str:
@@ -58,7 +61,9 @@ class ContrastEstimate:
             f"{self.contrast} ({self.estimator}, {self.outcome}): {self.estimate:+.3f} "
             f"(SE {self.std_error:.3f}; {pct}% CI {self.ci_low:+.3f} to {self.ci_high:+.3f}); "
             f"{self.n_exposure} exposed and {self.n_reference} reference units observed of "
-            f"{self.n_units} in the estimand, {self.n_excluded} excluded by positivity"
+            f"{self.n_units} in the estimand ({self.units}), {self.n_excluded} excluded by "
+            f"positivity; effective sample sizes {self.ess_exposure:.0f} and "
+            f"{self.ess_reference:.0f} (Kish)"
         )
 
     def to_frame(self) -> pd.DataFrame:
@@ -286,6 +291,8 @@ def estimate_contrast(
     level: float = 0.95,
     bit_rows: np.ndarray | None = None,
     near: tuple[np.ndarray, np.ndarray] | None = None,
+    units: np.ndarray | None = None,
+    units_words: str | None = None,
 ) -> ContrastEstimate:
     """Estimate tau = mu(k) - mu(l) over the units with positive probability of both.
 
@@ -316,6 +323,17 @@ def estimate_contrast(
     near
         Linked pairs of positions (:func:`geoexp.exposure.dependence_pairs`), used when the
         population is too large for all pairs.
+    units
+        Boolean mask of the units of the estimand (an :class:`Estimand`'s ``units``);
+        default every unit with positive probability of both conditions.
+    units_words
+        The units in words, repeated in the result.
+
+    Notes
+    -----
+    The result carries Kish's (1965) effective sample size (sum w)^2 / sum w^2 of
+    each side's weights 1/pi at the observed assignment: far below the number of
+    units observed in a condition, it says that a few units carry the estimate.
     """
     y = np.asarray(y, dtype=np.float64)
     observed = np.asarray(observed)
@@ -325,6 +343,10 @@ def estimate_contrast(
     eligible = (pk > 0) & (pl > 0)
     # units that can be exposed but never be in the reference condition: positivity losses
     lost = (pk > 0) & (pl <= 0)
+    if units is not None:
+        units = np.asarray(units, dtype=bool)
+        lost = units & ~eligible
+        eligible = eligible & units
     pop = np.flatnonzero(eligible)
     rows = pop if bit_rows is None else np.asarray(bit_rows)[pop]
     n = pop.size
@@ -368,4 +390,7 @@ def estimate_contrast(
         n_excluded=int(lost.sum()),
         level=level,
         joint=joint,
+        units=units_words or "every unit with positive probability of both conditions",
+        ess_exposure=float(kish_ess(1 / qk[in_k])) if in_k.any() else 0.0,
+        ess_reference=float(kish_ess(1 / ql[in_l])) if in_l.any() else 0.0,
     )

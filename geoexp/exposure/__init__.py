@@ -8,6 +8,7 @@ probabilities that the variance estimators of the analysis need (Aronow &
 Samii 2017).
 """
 
+from geoexp.exposure._estimand import DEFAULT_FLOOR, Estimand, contrast_units, kish_ess
 from geoexp.exposure._joint import (
     ConditionBits,
     ConditionIndicators,
@@ -28,6 +29,10 @@ from geoexp.exposure._probabilities import (
 from geoexp.exposure._reach import BandedReach, band_codes
 
 __all__ = [
+    "DEFAULT_FLOOR",
+    "Estimand",
+    "contrast_units",
+    "kish_ess",
     "BandedReach",
     "band_codes",
     "condition_sums",

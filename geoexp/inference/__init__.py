@@ -8,22 +8,40 @@ Ord 1981) of a variable over the exposure graph is here too, with the other
 statistics.
 """
 
-from geoexp.inference._conditional import FixedFocalSampler, default_focal_units, spillover_test
+from geoexp._moran import MoranResult, moran
+from geoexp._significance import ALTERNATIVES, Alternative, RandomizationTest, significance
+from geoexp.inference._conditional import (
+    MIN_FOCAL,
+    FixedFocalSampler,
+    default_focal_units,
+    spillover_test,
+)
 from geoexp.inference._draws import ContrastSpec
 from geoexp.inference._fisher import fisher_test
-from geoexp.inference._inversion import invert_constant_effect
-from geoexp.inference._moran import MoranResult, moran
-from geoexp.inference._significance import RandomizationTest, significance
+from geoexp.inference._inversion import (
+    InvertedTest,
+    constant_effect_test,
+    invert_constant_effect,
+    rate_ratio_test,
+)
+from geoexp.inference._statistic import contrast_statistic
 
 __all__ = [
+    "ALTERNATIVES",
+    "MIN_FOCAL",
+    "Alternative",
     "ContrastSpec",
     "FixedFocalSampler",
+    "InvertedTest",
     "MoranResult",
     "RandomizationTest",
+    "contrast_statistic",
     "default_focal_units",
     "fisher_test",
     "invert_constant_effect",
     "moran",
     "significance",
     "spillover_test",
+    "constant_effect_test",
+    "rate_ratio_test",
 ]

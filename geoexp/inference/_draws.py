@@ -8,9 +8,9 @@ import numpy as np
 import pandas as pd
 
 from geoexp._rng import RngLike
-from geoexp.errors import InputError
+from geoexp._significance import Alternative, RandomizationTest, significance
 from geoexp.exposure import exposure_probabilities
-from geoexp.inference._significance import Alternative, RandomizationTest, significance
+from geoexp.inference._statistic import contrast_statistic
 
 
 @dataclass(frozen=True)
@@ -55,13 +55,12 @@ def weight_columns(
 
 
 def statistic_from_sums(sk: np.ndarray, sl: np.ndarray, estimator: str, n: int) -> np.ndarray:
-    """The contrast from sums over the units in k (``sk``) and in l (``sl``), per row."""
-    with np.errstate(invalid="ignore", divide="ignore"):
-        if estimator == "hajek":
-            return sk[..., 0] / sk[..., 1] - sl[..., 2] / sl[..., 3]
-        if estimator == "horvitz-thompson":
-            return (sk[..., 0] - sl[..., 2]) / max(n, 1)
-    raise InputError(f"estimator must be 'hajek' or 'horvitz-thompson', got {estimator!r}")
+    """The contrast from sums over the units in k (``sk``) and in l (``sl``), per row.
+
+    The columns are those of :func:`weight_columns`; the statistic itself is
+    :func:`geoexp.inference.contrast_statistic`, shared with the power module.
+    """
+    return contrast_statistic(sk[..., 0], sk[..., 1], sl[..., 2], sl[..., 3], estimator, n)
 
 
 def observed_sums(cols: np.ndarray, observed: np.ndarray, code: int) -> np.ndarray:

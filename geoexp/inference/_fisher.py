@@ -7,8 +7,8 @@ from typing import TYPE_CHECKING
 import numpy as np
 
 from geoexp._rng import RngLike, Stream
+from geoexp._significance import Alternative, RandomizationTest
 from geoexp.inference._draws import ContrastSpec, contrast_test
-from geoexp.inference._significance import Alternative, RandomizationTest
 
 if TYPE_CHECKING:
     from geoexp.design import Design

@@ -156,8 +156,13 @@ def change_colours(change: np.ndarray, limit: float) -> np.ndarray:
     return np.where(np.isfinite(change), hexes, NEVER_COLOUR).astype(object)
 
 
-def effect_words(effect) -> str:
-    return f"{effect.estimate:+.2f} ({effect.ci_low:+.2f} to {effect.ci_high:+.2f})"
+def effect_words(effect, verdict=None) -> str:
+    """Estimate with the interval printed beside its verdict (test inversion), else the
+    normal approximation."""
+    low, high = effect.ci_low, effect.ci_high
+    if verdict is not None and np.isfinite([verdict.ci_low, verdict.ci_high]).any():
+        low, high = verdict.ci_low, verdict.ci_high
+    return f"{effect.estimate:+.2f} ({low:+.2f} to {high:+.2f})"
 
 
 def treated_rings(data: ResultData) -> np.ndarray | None:

@@ -188,7 +188,7 @@ def _draw(analysis, trial, ax, districts):
     colours = change_colours(data.change, limit)
     conditions = data.per_unit["condition"].astype(str).to_numpy()
     geoms = np.asarray(units.geometry.array, dtype=object)
-    estimates = {code: effect for code, effect, _ in data.rows}
+    estimates = {code: (effect, verdict) for code, effect, verdict in data.rows}
     # Pure controls first and treated last, so treated units sit on top.
     for depth, code in enumerate(reversed(data.codes)):
         members = np.flatnonzero(conditions == code)
@@ -237,7 +237,7 @@ def _draw(analysis, trial, ax, districts):
         style = condition_style(code)
         text = f"{data.labels[code]} ({data.counts[code]:,})"
         if code in estimates:
-            text += f": {effect_words(estimates[code])}"
+            text += f": {effect_words(*estimates[code])}"
         condition_handles.append(_legend_line(style.width * PRINT_WIDTH, style.dash, text))
     # Legend and caption go under the map, so that they hide no units.
     legend = ax.legend(

@@ -227,12 +227,20 @@ def _ramp_html(limit: float, clipped: bool) -> str:
     )
 
 
+def _interval(effect, verdict) -> str:
+    low, high = verdict.ci_low, verdict.ci_high
+    if not (np.isfinite(low) or np.isfinite(high)):
+        low, high = effect.ci_low, effect.ci_high
+    return f"{low:+.2f} to {high:+.2f}"
+
+
 def _estimates_html(data: ResultData, analysis: Analysis) -> str:
     level = int(round(100 * analysis.level))
     head = f"<tr><th>vs pure control</th><th>estimate</th><th>{level}% interval</th><th>p</th></tr>"
     body = "".join(
         f"<tr><td>{html.escape(data.labels[code])}</td><td>{e.estimate:+.2f}</td>"
-        f"<td>{e.ci_low:+.2f} to {e.ci_high:+.2f}</td>"
+        # the interval printed beside the verdict: the inversion of the test whose p is shown
+        f"<td>{_interval(e, v)}</td>"
         f"<td>{f'{v.p_value:.2g}' if np.isfinite(v.p_value) else 'n/a'}</td></tr>"
         for code, e, v in data.rows
     )

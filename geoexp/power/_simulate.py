@@ -28,10 +28,15 @@ import pandas as pd
 
 from geoexp._rng import RngLike, Stream, as_seed_sequence, child_sequence
 from geoexp.errors import InputError
+from geoexp.estimate import DEFAULT_FLOOR, contrast_units
 from geoexp.exposure import condition_bits, unpack_bits
-from geoexp.inference import default_focal_units, significance
-from geoexp.inference._conditional import MIN_FOCAL
-from geoexp.inference._significance import Alternative
+from geoexp.inference import (
+    ALTERNATIVES,
+    MIN_FOCAL,
+    Alternative,
+    contrast_statistic,
+    significance,
+)
 from geoexp.power._models import OutcomeMeasure, OutcomeModel
 
 if TYPE_CHECKING:
@@ -148,11 +153,6 @@ def _sim_conditions(bits: np.ndarray, n_sims: int) -> np.ndarray:
     return out
 
 
-def _hajek(num_k, den_k, num_l, den_l) -> np.ndarray:
-    with np.errstate(invalid="ignore", divide="ignore"):
-        return num_k / den_k - num_l / den_l
-
-
 def _contrast_draws(
     bits: np.ndarray,
     rows: np.ndarray,
@@ -177,7 +177,7 @@ def _contrast_draws(
     wl[:, :n_sims] = y / pl[:, None]
     wl[:, n_sims] = 1 / pl
     in_k, in_l = cond == k, cond == l
-    observed = _hajek(
+    observed = contrast_statistic(
         (in_k * wk[:, :n_sims]).sum(axis=0),
         in_k.T @ wk[:, n_sims],
         (in_l * wl[:, :n_sims]).sum(axis=0),
@@ -196,7 +196,9 @@ def _contrast_draws(
         ul = unpack_bits(bits[l][rows, w:w_end])[:, lo:hi].astype(np.float64)
         sk = uk.T @ wk
         sl = ul.T @ wl
-        null[out] = _hajek(sk[:, :n_sims], sk[:, n_sims:], sl[:, :n_sims], sl[:, n_sims:])
+        null[out] = contrast_statistic(
+            sk[:, :n_sims], sk[:, n_sims:], sl[:, :n_sims], sl[:, n_sims:]
+        )
         w = w_end
     return observed, np.ascontiguousarray(null.T)
 
@@ -229,15 +231,19 @@ def simulate_power(
     alternative: Alternative = "two-sided",
     n_draws_probabilities: int | None = None,
     rng: RngLike = None,
+    floor: float | None = None,
 ) -> PowerResult:
     """Power of a design's randomization tests, by simulating many trials of it.
 
     Each simulated trial draws an assignment from the design's own sampler,
     outcomes from ``model`` given each unit's exposure condition, and runs
-    the tests the analysis runs: Fisher's randomization test of no effect at
-    all with the Hajek contrast of treated against pure control (Fisher 1935),
-    and, for each spillover band, the conditional test of no spillover on
-    focal units that are never treated (Athey, Eckles & Imbens 2018), whose
+    the tests of the analysis's rows over the very same units
+    (:func:`geoexp.estimate.contrast_units`, with the positivity floor): a
+    randomization test of no effect with the Hajek contrast of treated
+    against pure control over the treated row's eligible units (Fisher 1935;
+    the analysis inverts the same statistic), and, for each spillover band,
+    the conditional test of no spillover on the band row's focal units that
+    are never treated (Athey, Eckles & Imbens 2018), whose
     null draws are the design's own draws (conditioning is automatic for
     never-treated units). The Hajek contrasts use the exposure probabilities
     of Aronow & Samii (2017) from the design's own Monte Carlo (the spec's
@@ -275,7 +281,12 @@ def simulate_power(
     n_draws_probabilities
         Draws for the exposure probabilities (default: the spec's ``draws``).
     rng
-        Seed of the simulation (default: child stream 30 of the spec's seed).
+        Seed of the simulation (default: the design's power stream).
+    floor
+        Positivity floor of the rows' units (default: the spec's, else
+        :data:`geoexp.estimate.DEFAULT_FLOOR`), as in the analysis: each
+        contrast is simulated over the very units the analysis will report
+        (:func:`geoexp.estimate.contrast_units`).
 
     Returns
     -------
@@ -291,7 +302,15 @@ def simulate_power(
         alternative=alternative,
         n_draws_probabilities=n_draws_probabilities,
         rng=rng,
+        floor=floor,
     )[0]
+
+
+def _floor(design: Design, floor: float | None) -> float:
+    """The positivity floor: the argument, else the spec's, else the default (as the analysis)."""
+    if floor is None:
+        floor = getattr(design.spec, "positivity_floor", None)
+    return DEFAULT_FLOOR if floor is None else float(floor)
 
 
 def _check_arguments(n_sims, n_draws, alpha, outcome, alternative) -> None:
@@ -302,8 +321,10 @@ def _check_arguments(n_sims, n_draws, alpha, outcome, alternative) -> None:
         raise InputError(f"alpha must lie strictly between 0 and 1, got {alpha!r}")
     if outcome not in ("change", "post"):
         raise InputError(f"outcome must be 'change' or 'post', got {outcome!r}")
-    if alternative not in ("two-sided", "greater", "less"):
-        raise InputError(f"alternative must be two-sided, greater or less, got {alternative!r}")
+    if alternative not in ALTERNATIVES:
+        raise InputError(
+            f"alternative must be one of {', '.join(ALTERNATIVES)}, got {alternative!r}"
+        )
 
 
 def _simulate(
@@ -317,6 +338,7 @@ def _simulate(
     alternative: Alternative,
     n_draws_probabilities: int | None,
     rng: RngLike,
+    floor: float | None = None,
 ) -> tuple[PowerResult, dict]:
     """:func:`simulate_power`, also returning each contrast's statistics (for tests)."""
     _check_arguments(n_sims, n_draws, alpha, outcome, alternative)
@@ -334,15 +356,20 @@ def _simulate(
     notes: list[str] = []
     plan: list[tuple[int, np.ndarray, str]] = []
     skipped: dict[int, str] = {}
+    floor = _floor(design, floor)
     for k in range(pc):
+        # the very units of the analysis's row (geoexp.estimate.contrast_units)
+        group = "eligible" if k == 0 else "never-eligible"
+        estimand = contrast_units(
+            probs, design.eligible, k, pc, labels=mapping.labels, group=group, floor=floor
+        )
+        population = np.flatnonzero(estimand.units)
         if k == 0:
-            population = np.flatnonzero((probs[:, 0] > 0) & (probs[:, pc] > 0))
-            test = "Fisher randomization test of no effect at all (Hajek contrast)"
+            test = "randomization test of no effect on treated units (Hajek contrast)"
             if population.size == 0:
                 skipped[k] = "no unit can be both treated and a pure control"
                 continue
         else:
-            population = default_focal_units(design, probs, k)
             test = "conditional test of no spillover on never-treated focal units"
             if population.size < MIN_FOCAL:
                 skipped[k] = (
@@ -389,11 +416,9 @@ def _simulate(
         )
         details[mapping.codes[k]] = {"rows": rows, "observed": observed, "null": null}
         defined = np.isfinite(observed)
-        rejected = 0
-        for s in np.flatnonzero(defined):
-            # one call per simulated trial: the project's one significance routine
-            p_value = significance(float(observed[s]), null[s], alternative)[0]
-            rejected += p_value <= alpha
+        # the project's one significance routine, vectorised over the simulated trials
+        p_values = significance(observed, null, alternative)[0]
+        rejected = int((defined & (p_values <= alpha)).sum())
         power = rejected / n_sims
         planted = float(
             np.mean(

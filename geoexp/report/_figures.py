@@ -23,10 +23,15 @@ def distance_decay_plot(analysis: Analysis, ax=None):
     scale = 1.0 if analysis.distance_unit == "m" else 1 / 0.3048
     edges = (0.0, *(e * scale for e in analysis.band_edges))
     mids = [(a + b) / 2 for a, b in zip(edges[:-1], edges[1:], strict=True)]
+    # the intervals printed beside the verdicts (test inversion), else the approximation
+    bounds = [
+        (v.ci_low, v.ci_high) if np.isfinite([v.ci_low, v.ci_high]).all() else (e.ci_low, e.ci_high)
+        for e, v in zip(analysis.effects, analysis.verdicts, strict=True)
+    ]
     spill = analysis.effects[1:]
     est = np.array([e.estimate for e in spill])
-    lo = np.array([e.ci_low for e in spill])
-    hi = np.array([e.ci_high for e in spill])
+    lo = np.array([b[0] for b in bounds[1:]])
+    hi = np.array([b[1] for b in bounds[1:]])
     ax.axhline(0, color="0.4", lw=1, ls="--")
     ax.errorbar(
         mids,
@@ -43,7 +48,7 @@ def distance_decay_plot(analysis: Analysis, ax=None):
     ax.errorbar(
         [0],
         [d.estimate],
-        yerr=[[d.estimate - d.ci_low], [d.ci_high - d.estimate]],
+        yerr=[[d.estimate - bounds[0][0]], [bounds[0][1] - d.estimate]],
         fmt="s",
         color="#D55E00",
         capsize=4,

@@ -1,7 +1,9 @@
 """Moran's I of a variable over the exposure graph, with a permutation test.
 
 A statistic read off the graph's structure: the graph stays structure only
-(:class:`geoexp.graph.ExposureGraph`), the statistics live in ``inference``.
+(:class:`geoexp.graph.ExposureGraph`). The statistic sits just above the graph,
+below the design check that reports it; ``geoexp.inference.moran`` is its
+public name.
 """
 
 from __future__ import annotations
@@ -12,8 +14,8 @@ from typing import TYPE_CHECKING
 import numpy as np
 
 from geoexp._rng import RngLike, as_generator
+from geoexp._significance import significance
 from geoexp.errors import InputError
-from geoexp.inference._significance import significance
 
 if TYPE_CHECKING:
     from geoexp.graph import ExposureGraph
