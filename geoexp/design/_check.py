@@ -319,7 +319,7 @@ def _row_line(head: str, estimand: Estimand, *, direct: bool) -> str:
         f" (Kish); left out: {e.left_out}."
     )
     ess = {"exposure": e.expected_ess_exposure, "reference": e.expected_ess_reference}
-    thin = min(ess, key=ess.get)
+    thin = min(ess, key=lambda side: ess[side])
     side = e.exposure_label if thin == "exposure" else e.reference_label
     if e.n_units < MIN_EXPECTED_UNITS or ess[thin] < MIN_EXPECTED_UNITS:
         line += (
