@@ -91,7 +91,7 @@ def draw_command(
     csv: Annotated[Path | None, typer.Option(help="Also write the field list as CSV here.")] = None,
 ) -> None:
     """Draw a design's assignment from its spec and seed into a locked trial file."""
-    from geoexp.design import Design
+    from geoexp.design import Design, network_check, refuse_sparse_network
     from geoexp.trialfile import export_assignment_csv, write_trial
 
     if replace and not reason.strip():
@@ -103,6 +103,10 @@ def draw_command(
     check_outputs({"--trial": trial, "--csv": csv}, spec_inputs(spec, loaded))
     # the number of Monte Carlo draws is part of the locked design (the analysis reuses it)
     design = Design.from_spec(loaded if draws is None else loaded.replace(draws=draws))
+    network = network_check(design)
+    refuse_sparse_network(design, network)
+    if network is not None:
+        console.print(str(network))
     assignment = design.draw()
     probs = design.probabilities()
     with writing(trial, "trial file"):
