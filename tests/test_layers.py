@@ -49,14 +49,6 @@ KNOWN_VIOLATIONS: dict[tuple[str, str], str] = {
         "geoexp.inference._conditional",
     ): "power simulation reuses the conditional test's internals; being made public",
     (
-        "geoexp.outcomes._read",
-        "geoexp.units._crs",
-    ): "incident reading reuses the units' CRS handling through its private module",
-    (
-        "geoexp.outcomes._read",
-        "geoexp.units._read",
-    ): "incident reading reuses the units' layer reader through its private module",
-    (
         "geoexp.analysis._run",
         "geoexp.estimate._horvitz",
     ): "the analysis reads the dense-pairs limit from a private module; being made public",

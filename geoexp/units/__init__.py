@@ -27,6 +27,7 @@ from geoexp.units._crs import (
     Planar,
     describe_crs,
     is_planar,
+    parse_crs,
     planar_crs,
     require_geographic_reference,
 )
@@ -43,8 +44,10 @@ __all__ = [
     "describe_crs",
     "is_planar",
     "numbered",
+    "parse_crs",
     "parse_rule",
     "planar_crs",
+    "read_layer",
     "require_geographic_reference",
 ]
 
