@@ -16,7 +16,6 @@ import shapely
 
 from geoexp.trialfile import TrialFile
 
-
 # The commands run in the test's folder; this checkout's package comes first on the path.
 ROOT = Path(__file__).resolve().parents[1]
 
