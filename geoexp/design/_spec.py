@@ -378,10 +378,15 @@ def _validate(spec: DesignSpec) -> None:
         if a.method == "saturation":
             raise DesignError("[rerandomize] cannot be combined with a saturation design")
     u = spec.units
-    if (u.id_column is None) == (not u.number_rows):
+    if u.id_column is None and not u.number_rows:
         raise DesignError(
-            "[units] give id_column (a column of unique ids) or number_rows = true (number the "
-            "units 0, 1, ... in file order), not both and not neither"
+            "[units] needs ['id_column'] (a column of unique ids), or number_rows = true to "
+            "number the units 0, 1, ... in file order when no column holds unique ids"
+        )
+    if u.id_column is not None and u.number_rows:
+        raise DesignError(
+            "[units] give id_column or number_rows = true, not both: number_rows numbers the "
+            "units in file order instead of reading ids from a column"
         )
     if u.planar is not None and u.crs is not None:
         raise DesignError(
