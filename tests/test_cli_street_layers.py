@@ -188,3 +188,37 @@ def test_planar_layer_without_ids_end_to_end(tmp_path):
     for text in [*outputs, (tmp_path / "list.csv").read_text(encoding="utf-8")]:
         for word in ("EPSG", "UTM", "WGS 84"):
             assert word not in text
+
+
+def test_baseline_command_mistakes(tmp_path):
+    from typer.testing import CliRunner
+
+    from geoexp.cli import app
+
+    _layer_and_incidents(tmp_path)
+    frame = pyogrio.read_dataframe(tmp_path / "streets.gpkg")
+    frame["segment_id"] = [f"s{k}" for k in range(len(frame))]
+    frame.loc[[2, 5], "segment_id"] = "s7"
+    with warnings.catch_warnings():
+        warnings.filterwarnings("ignore", message="'crs' was not provided")
+        frame.to_file(tmp_path / "doubled.gpkg", engine="pyogrio")
+    common = ["--incidents", str(tmp_path / "last_year.csv"), "--x", "x", "--y", "y"]
+    common += ["--crs", "planar", "--planar", "m", "--out", str(tmp_path / "out.gpkg")]
+    runner = CliRunner()
+    both = runner.invoke(
+        app,
+        ["baseline", str(tmp_path / "streets.gpkg"), "--number-rows", "--id-column", "d"] + common,
+    )
+    assert both.exit_code == 2 and "--number-rows" in both.output
+    doubled = runner.invoke(
+        app, ["baseline", str(tmp_path / "doubled.gpkg"), "--id-column", "segment_id", *common]
+    )
+    assert doubled.exit_code == 2
+    assert "'s7'" in doubled.output and "more than once" in doubled.output
+    taken = runner.invoke(
+        app,
+        ["baseline", str(tmp_path / "streets.gpkg"), "--number-rows", "--column", "district"]
+        + common,
+    )
+    assert taken.exit_code == 2 and "already has a column 'district'" in taken.output
+    assert not (tmp_path / "out.gpkg").exists()
