@@ -1,6 +1,7 @@
 from __future__ import annotations
 
 import sys
+import warnings
 from pathlib import Path
 from typing import Annotated
 
@@ -42,8 +43,15 @@ console = Console(stderr=False, highlight=False, soft_wrap=True, markup=False, e
 errors = Console(stderr=True, highlight=False, soft_wrap=True, markup=False, emoji=False)
 
 
+def _plain_warning(message, category, filename, lineno, line=None) -> str:
+    # A warning to a user (a street network not split at crossings) is a sentence, not a
+    # source line of geoexp.
+    return f"Warning: {message}\n"
+
+
 def main() -> None:
     """Entry point: mistakes give a message and exit status 2, defects one line and status 1."""
+    warnings.formatwarning = _plain_warning
     try:
         app()
     except ClickException as err:  # raised outside a command (not in standalone mode)
