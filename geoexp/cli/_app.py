@@ -245,7 +245,10 @@ def count_command(
     lat: Annotated[str | None, typer.Option(help="Latitude column (CSV in WGS 84).")] = None,
     x: Annotated[str | None, typer.Option(help="x column (CSV in a projected CRS).")] = None,
     y: Annotated[str | None, typer.Option(help="y column (CSV in a projected CRS).")] = None,
-    crs: Annotated[str | None, typer.Option(help="CRS of x/y columns, e.g. EPSG:32633.")] = None,
+    crs: Annotated[
+        str | None,
+        typer.Option(help="CRS of x/y columns, e.g. EPSG:32633 (planar: the units' local grid)."),
+    ] = None,
     tolerance: ToleranceOpt = 30.0,
     dropped: Annotated[
         Path | None, typer.Option(help="CSV for the incidents not counted, with reasons.")
