@@ -576,3 +576,15 @@ def test_readme_spec_examples_pass_the_strict_schema():
         ("field", "instructions_column"),
     ]:
         assert needed in seen, needed
+
+
+def test_readme_names_every_spec_key():
+    """The README's key table names every key the schema accepts."""
+    from pathlib import Path
+
+    from geoexp.design._schema import SCHEMA, TOP
+
+    text = (Path(__file__).resolve().parents[1] / "README.md").read_text(encoding="utf-8")
+    keys = set(TOP) | {k for table in SCHEMA.values() for k in table}
+    missing = sorted(k for k in keys if f"`{k}`" not in text)
+    assert missing == []
