@@ -266,8 +266,5 @@ def test_spec_keys_checked(units, exposure, message):
         "assignment": {"treated": 2},
         "exposure": {"metric": "network", **exposure},
     }
-    if "crs" in units:
-        data["units"].pop("planar")
-        data["units"]["planar"] = "m"
     with pytest.raises(DesignError, match=message):
         DesignSpec.from_dict(data)
