@@ -130,20 +130,27 @@ class AnalysisRun:
         The trial file, now holding the results.
     report, report_md : Path
         The HTML report and its Markdown twin.
-    result_map : Path
-        The interactive results map (HTML).
+    result_map : Path or None
+        The interactive results map (HTML); None for a layer in local planar
+        coordinates, which cannot be placed on a web map.
     """
 
     analysis: Analysis
     trial: Path
     report: Path
     report_md: Path
-    result_map: Path
+    result_map: Path | None
 
     def __str__(self) -> str:
+        where = (
+            f"interactive results map: {self.result_map}"
+            if self.result_map is not None
+            else "no interactive results map: the units are in local planar coordinates (no "
+            "CRS), which a web map cannot place; the report's own map needs none"
+        )
         return (
-            f"{self.analysis}\nReport: {self.report} (Markdown: {self.report_md}); interactive "
-            f"results map: {self.result_map}\nResults stored in {self.trial}"
+            f"{self.analysis}\nReport: {self.report} (Markdown: {self.report_md}); {where}\n"
+            f"Results stored in {self.trial}"
         )
 
 
@@ -206,6 +213,7 @@ def analyse_trial(
     from geoexp.analysis import analyse, save_results
     from geoexp.maps import save_result_map
     from geoexp.report import write_report
+    from geoexp.units import is_planar
 
     outs = report_outputs(report, result_map)
     labels = {
@@ -217,10 +225,22 @@ def analyse_trial(
     result = analyse(trial, outcome=outcome, estimator=estimator, n_draws=n_draws, level=level)
     with writing(trial, "trial file"):
         tf = save_results(trial, result)
-    with writing(outs["result_map"], "results map"):
-        map_path = save_result_map(result, tf, outs["result_map"], tiles=tiles, districts=districts)
+    map_path = None
+    # A layer declared planar has no place on the Earth: no web map, the report's
+    # static map only.
+    if not is_planar(tf.units().crs):
+        with writing(outs["result_map"], "results map"):
+            map_path = save_result_map(
+                result, tf, outs["result_map"], tiles=tiles, districts=districts
+            )
     with writing(outs["report"], "report"):
         html_path, md_path = write_report(
             result, outs["report"], trial=tf, result_map_html=map_path, districts=districts
         )
-    return AnalysisRun(result, Path(trial), Path(html_path), Path(md_path), Path(map_path))
+    return AnalysisRun(
+        result,
+        Path(trial),
+        Path(html_path),
+        Path(md_path),
+        None if map_path is None else Path(map_path),
+    )

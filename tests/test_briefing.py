@@ -237,6 +237,28 @@ def test_scale_bar_honours_a_feet_crs():
     assert drawn_ft == pytest.approx(500 / 0.3048006096, rel=1e-9)
 
 
+def test_planar_feet_scale_bar_and_grid_north():
+    from geoexp.maps import scale_bar_and_north_arrow
+    from geoexp.units import planar_crs
+
+    crs = planar_crs("ft")
+    mpu = crs.axis_info[0].unit_conversion_factor
+    assert mpu == 0.3048  # the international foot, exactly (1959 agreement)
+    # a local grid has no geographic reference: the arrow points to grid north
+    assert true_north_angle(crs, 1_000.0, 2_000.0) == 0.0
+    fig = Figure(figsize=(6, 4))
+    ax = fig.add_axes((0, 0, 1, 1))
+    ax.set_xlim(0, 12_000)  # 12,000 ft; a quarter is 3,000 ft
+    ax.set_ylim(0, 8_000)
+    scale_bar_and_north_arrow(ax, crs=crs, metres_per_unit=mpu, bounds=(0, 0, 12_000, 8_000))
+    blocks = [p for p in ax.patches if isinstance(p, Rectangle) and p.get_zorder() == 21]
+    # largest 1-2-5 step within 3,000 ft is 2,000 ft, drawn 2,000 data units long
+    assert sum(p.get_width() for p in blocks) == pytest.approx(2_000.0)
+    texts = [t.get_text() for t in ax.texts]
+    assert "2000 ft" in texts and "grid N" in texts
+    assert not any(t.endswith(" m") or t.endswith("km") for t in texts)
+
+
 @pytest.mark.parametrize(("lon", "lat"), [(-21.0, -30.0), (-19.0, -33.8), (-23.5, -31.0)])
 def test_north_arrow_points_to_true_north(lon, lat):
     # pyproj's meridian convergence (projection factors) is the angle between grid and true north

@@ -45,16 +45,7 @@ LAYERS: list[set[str]] = [
 # Violations being removed in other parts of the code base at the moment; each is allowed
 # here until its removal is merged, then deleted from this list. The checks still fail on
 # any violation not listed. (importer module, imported module): reason.
-KNOWN_VIOLATIONS: dict[tuple[str, str], str] = {
-    (
-        "geoexp.outcomes._read",
-        "geoexp.units._crs",
-    ): "incident reading reuses the units' CRS handling through its private module",
-    (
-        "geoexp.outcomes._read",
-        "geoexp.units._read",
-    ): "incident reading reuses the units' layer reader through its private module",
-}
+KNOWN_VIOLATIONS: dict[tuple[str, str], str] = {}
 
 
 # ----------------------------------------------------------------------------- the checker

@@ -532,3 +532,59 @@ def test_fuzz_reaches_designs(units):
         Design.from_spec(
             DesignSpec.from_dict(with_change(("assignment", "treated"), 30)), units=units
         )
+
+
+def test_readme_spec_examples_pass_the_strict_schema():
+    """Every TOML example in the README is a spec whose keys and values the schema accepts."""
+    import re
+    import tomllib
+    from pathlib import Path
+
+    from geoexp.design._schema import SCHEMA, TOP
+
+    text = (Path(__file__).resolve().parents[1] / "README.md").read_text(encoding="utf-8")
+    blocks = re.findall(r"```toml\n(.*?)```", text, flags=re.S)
+    assert len(blocks) >= 2
+    seen: set[tuple[str, str]] = set()
+    for block in blocks:
+        data = tomllib.loads(block)
+        spec = DesignSpec.from_dict(data, source="README example")  # strict: unknown keys fail
+        assert spec.name == data["name"]
+        for table, keys in data.items():
+            if isinstance(keys, dict):
+                seen |= {(table, k) for k in keys}
+                assert set(keys) <= set(SCHEMA[table])
+            else:
+                assert table in TOP
+    # the keys real data need are shown
+    for needed in [
+        ("units", "crs"),
+        ("units", "planar"),
+        ("units", "id_column"),
+        ("units", "number_rows"),
+        ("eligible", "where"),
+        ("eligible", "top_column"),
+        ("exposure", "snap_tolerance_m"),
+        ("exposure", "split_at_crossings"),
+        ("exposure", "bridge_column"),
+        ("exposure", "accept_sparse_network"),
+        ("rerandomize", "covariates"),
+        ("assignment", "saturations"),
+        ("assignment", "cluster_counts"),
+        ("field", "district_column"),
+        ("field", "description_column"),
+        ("field", "instructions_column"),
+    ]:
+        assert needed in seen, needed
+
+
+def test_readme_names_every_spec_key():
+    """The README's key table names every key the schema accepts."""
+    from pathlib import Path
+
+    from geoexp.design._schema import SCHEMA, TOP
+
+    text = (Path(__file__).resolve().parents[1] / "README.md").read_text(encoding="utf-8")
+    keys = set(TOP) | {k for table in SCHEMA.values() for k in table}
+    missing = sorted(k for k in keys if f"`{k}`" not in text)
+    assert missing == []

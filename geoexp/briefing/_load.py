@@ -50,7 +50,8 @@ def load_trial(trial: TrialFile | str | Path) -> TrialData:
     assign = tf.assignment()
     if units.crs is None:
         raise CRSError(f"the unit layer of {str(tf.path)!r} has no CRS; a map needs one")
-    if not units.crs.is_projected:
+    # a layer declared planar (an engineering CRS) prints with grid north
+    if not (units.crs.is_projected or units.crs.is_engineering):
         raise CRSError(
             f"the unit layer of {str(tf.path)!r} is in {units.crs.name}, a geographic CRS; "
             "trial files hold units in a projected CRS, so this file was not written by geoexp"

@@ -64,6 +64,7 @@ def cover(pages: Pages) -> Figure:
         ),
         ("Pack printed at", pages.printed_at),
         ("Seed", meta.get("seed", "?")),
+        *([("Coordinates", meta["coordinates"])] if meta.get("coordinates") else []),
         ("This pack", f"{plan.n_pages} pages, {plan.paper.upper()}"),
     ]
     for key, value in info:

@@ -1,6 +1,7 @@
 from __future__ import annotations
 
 import sys
+import warnings
 from pathlib import Path
 from typing import Annotated
 
@@ -42,8 +43,15 @@ console = Console(stderr=False, highlight=False, soft_wrap=True, markup=False, e
 errors = Console(stderr=True, highlight=False, soft_wrap=True, markup=False, emoji=False)
 
 
+def _plain_warning(message, category, filename, lineno, line=None) -> str:
+    # A warning to a user (a street network not split at crossings) is a sentence, not a
+    # source line of geoexp.
+    return f"Warning: {message}\n"
+
+
 def main() -> None:
     """Entry point: mistakes give a message and exit status 2, defects one line and status 1."""
+    warnings.formatwarning = _plain_warning
     try:
         app()
     except ClickException as err:  # raised outside a command (not in standalone mode)
@@ -91,7 +99,7 @@ def draw_command(
     csv: Annotated[Path | None, typer.Option(help="Also write the field list as CSV here.")] = None,
 ) -> None:
     """Draw a design's assignment from its spec and seed into a locked trial file."""
-    from geoexp.design import Design
+    from geoexp.design import Design, network_check, refuse_sparse_network
     from geoexp.trialfile import export_assignment_csv, write_trial
 
     if replace and not reason.strip():
@@ -103,6 +111,10 @@ def draw_command(
     check_outputs({"--trial": trial, "--csv": csv}, spec_inputs(spec, loaded))
     # the number of Monte Carlo draws is part of the locked design (the analysis reuses it)
     design = Design.from_spec(loaded if draws is None else loaded.replace(draws=draws))
+    network = network_check(design)
+    refuse_sparse_network(design, network)
+    if network is not None:
+        console.print(str(network))
     assignment = design.draw()
     probs = design.probabilities()
     with writing(trial, "trial file"):
@@ -233,7 +245,10 @@ def count_command(
     lat: Annotated[str | None, typer.Option(help="Latitude column (CSV in WGS 84).")] = None,
     x: Annotated[str | None, typer.Option(help="x column (CSV in a projected CRS).")] = None,
     y: Annotated[str | None, typer.Option(help="y column (CSV in a projected CRS).")] = None,
-    crs: Annotated[str | None, typer.Option(help="CRS of x/y columns, e.g. EPSG:32633.")] = None,
+    crs: Annotated[
+        str | None,
+        typer.Option(help="CRS of x/y columns, e.g. EPSG:32633 (planar: the units' local grid)."),
+    ] = None,
     tolerance: ToleranceOpt = 30.0,
     dropped: Annotated[
         Path | None, typer.Option(help="CSV for the incidents not counted, with reasons.")

@@ -30,6 +30,7 @@ from geoexp.design._fingerprint import (
 )
 from geoexp.design._floor import PureControlFloor
 from geoexp.design._limits import MAX_DRAWS, check_draws, memory_cap_bytes, monte_carlo_bytes
+from geoexp.design._network_check import network_check, refuse_sparse_network
 from geoexp.design._protocol import Sampler, fixed_treated
 from geoexp.design._samplers import (
     BlockedSampler,
@@ -49,6 +50,8 @@ from geoexp.design._spec import (
 )
 
 __all__ = [
+    "network_check",
+    "refuse_sparse_network",
     "MAX_DRAWS",
     "SAMPLER_BUILDERS",
     "Sampler",

@@ -34,7 +34,13 @@ __all__ = ["SAMPLER_BUILDERS", "SamplerInputs", "build_sampler", "eligible_for",
 def units_for(spec: DesignSpec) -> UnitSet:
     """Read the unit layer named by ``spec`` (``[units]``), relative to the spec's folder."""
     u = spec.units
-    return UnitSet.from_file(spec.resolve(u.path), u.id_column, layer=u.layer, crs=u.crs)
+    return UnitSet.from_file(
+        spec.resolve(u.path),
+        None if u.number_rows else u.id_column,
+        layer=u.layer,
+        crs=u.crs,
+        planar=u.planar,
+    )
 
 
 def eligible_for(spec: DesignSpec, units: UnitSet) -> UnitSet:

@@ -11,6 +11,7 @@ import pandas as pd
 from geoexp._moran import moran
 from geoexp._rng import Stream
 from geoexp._tables import markdown_table
+from geoexp.design._network_check import network_check
 from geoexp.errors import DesignError
 from geoexp.exposure import (
     DEFAULT_FLOOR,
@@ -57,6 +58,12 @@ class DesignCheck:
         Plain-language lines: what the design can and cannot estimate.
     probabilities
         The full per-unit probabilities.
+    coordinates
+        The units' CRS as outputs name it ("local planar coordinates in
+        metres (no CRS)" for a layer declared planar).
+    network
+        :class:`geoexp.graph.NetworkDiagnostics` of a design measured along
+        streets (components, units without neighbours, crossings), else None.
     """
 
     name: str
@@ -72,6 +79,8 @@ class DesignCheck:
     notes: tuple[str, ...]
     probabilities: ExposureProbabilities
     autocorrelation: object = None
+    coordinates: str = ""
+    network: object = None
 
     def __str__(self) -> str:
         fmt = {"float_format": lambda v: f"{v:.3f}"}
@@ -79,7 +88,9 @@ class DesignCheck:
             f"Design check: {self.name} (design {self.spec_hash[:12]})",
             f"{self.n_units} units, {self.n_eligible} eligible; {self.n_draws} Monte Carlo draws "
             "of the design's own sampler.",
+            f"Coordinates: {self.coordinates}." if self.coordinates else "",
             "",
+            *self._network_lines(),
             "Expected units per condition:",
             self.expected.to_string(**fmt),
             "",
@@ -98,6 +109,11 @@ class DesignCheck:
         ]
         return "\n".join(parts)
 
+    def _network_lines(self) -> list[str]:
+        if self.network is None:
+            return []
+        return [str(self.network), ""]
+
     def to_markdown(self) -> str:
         """The check as a Markdown section."""
 
@@ -106,8 +122,10 @@ class DesignCheck:
                 f"## Design check: {self.name}",
                 "",
                 f"Design `{self.spec_hash[:12]}`; {self.n_units} units, {self.n_eligible} eligible; "
-                f"{self.n_draws} draws.",
+                f"{self.n_draws} draws."
+                + (f" Coordinates: {self.coordinates}." if self.coordinates else ""),
                 "",
+                *(["### Street network", *self._network_lines()] if self.network else []),
                 "### Expected units per condition",
                 markdown_table(self.expected),
                 "",
@@ -204,6 +222,20 @@ def check_design(
     balance = _balance(design, probs, x, cols, assignment)
     moran = _autocorrelation(design, x, cols)
     verdict = _verdict(design, probs, expected, positivity, balance)
+    network = network_check(design)
+    if network is not None:
+        for line in reversed(network.warnings):
+            verdict.insert(0, f"Street network: {line}")
+        if network.sparse:
+            verdict.insert(
+                0,
+                "The along-street graph is implausibly sparse: drawing is refused"
+                + (
+                    " unless [exposure] accept_sparse_network = true (it is: the draw goes ahead)."
+                    if design.spec.exposure.accept_sparse_network
+                    else "; set [exposure] accept_sparse_network = true to draw anyway."
+                ),
+            )
     if moran is not None and moran.p_value <= 0.05 and moran.statistic > 0:
         verdict.insert(
             len(verdict) - 1,
@@ -226,6 +258,8 @@ def check_design(
         notes=design.notes,
         probabilities=probs,
         autocorrelation=moran,
+        coordinates=design.units.crs_label,
+        network=network,
     )
 
 

@@ -93,6 +93,8 @@ class Design:
                 reach,
                 metric=spec.exposure.metric,
                 snap_tolerance=spec.exposure.snap_tolerance_m,
+                split_at_crossings=spec.exposure.split_at_crossings,
+                bridge_column=spec.exposure.bridge_column,
             )
         elif graph.max_distance + 1e-9 < reach or not graph.ids.equals(units.ids):
             raise DesignError(

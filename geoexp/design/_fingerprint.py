@@ -95,7 +95,16 @@ def used_columns(spec: DesignSpec, columns: Sequence[str]) -> tuple[str, ...]:
         for quoted, plain in _NAME.findall(spec.eligible.where):
             names.append(quoted or plain)
     a, f = spec.assignment, spec.field
-    names += [n for n in (spec.eligible.top_column, a.block_column, a.cluster_column) if n]
+    names += [
+        n
+        for n in (
+            spec.eligible.top_column,
+            a.block_column,
+            a.cluster_column,
+            spec.exposure.bridge_column,
+        )
+        if n
+    ]
     if spec.rerandomize is not None:
         names += list(spec.rerandomize.covariates)
     names += [n for n in (f.district_column, f.description_column, f.instructions_column) if n]
@@ -141,6 +150,10 @@ def frame_digest(frame: pd.DataFrame, *, index: bool = True) -> str:
 
 def _crs_identity(units: UnitSet) -> str:
     crs = units.crs
+    if units.is_planar:
+        # A GeoPackage gives an engineering CRS back in another WKT dialect; its
+        # name and unit (the unit is hashed beside this) are what identify it.
+        return f"planar:{crs.name}"
     authority = crs.to_authority() if crs is not None else None
     return ":".join(authority) if authority else (crs.to_wkt() if crs is not None else "")
 

@@ -96,6 +96,13 @@ def real(low: float, high: float, *, low_open: bool, high_open: bool, what: str)
     return check
 
 
+def flag(value: Any, where: str) -> bool:
+    """true or false (never a number or text)."""
+    if not isinstance(value, bool):
+        raise _fail(where, "true or false", value)
+    return value
+
+
 def choice(*options: str) -> Check:
     """One of the given words."""
 
@@ -154,6 +161,8 @@ SCHEMA: dict[str, dict[str, Check]] = {
         "id_column": text,
         "layer": text,
         "crs": _crs,
+        "planar": choice("m", "ft", "us-ft"),
+        "number_rows": flag,
     },
     "eligible": {
         "where": _rule,
@@ -201,6 +210,9 @@ SCHEMA: dict[str, dict[str, Check]] = {
         "metric": choice("euclidean", "network"),
         "snap_tolerance_m": real(0, 1000, low_open=False, high_open=False, what="metres"),
         "unit": choice("m", "ft"),
+        "split_at_crossings": flag,
+        "bridge_column": text,
+        "accept_sparse_network": flag,
     },
     "field": {
         "district_column": text,

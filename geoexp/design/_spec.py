@@ -35,9 +35,13 @@ class UnitsSpec:
     """Where the units come from."""
 
     path: str
-    id_column: str
+    id_column: str | None = None
     layer: str | None = None
     crs: str | int | None = None  # text pyproj reads, or an EPSG code
+    # a layer with no CRS in local planar coordinates: "m", "ft" or "us-ft"
+    planar: Literal["m", "ft", "us-ft"] | None = None
+    # no unique id column: the units are numbered 0, 1, ... in file order (ids "row")
+    number_rows: bool = False
 
 
 @dataclass(frozen=True)
@@ -87,6 +91,12 @@ class ExposureSpec:
     snap_tolerance_m: float = 1.0
     # the unit outputs show distances in: "ft" when the spec gave bands_ft
     unit: Literal["m", "ft"] = "m"
+    # network metric: join lines where they cross or touch away from their end points
+    split_at_crossings: bool = False
+    # network metric: column marking bridges, tunnels, flyovers (never joined where they cross)
+    bridge_column: str | None = None
+    # network metric: draw even when the along-street graph is implausibly sparse
+    accept_sparse_network: bool = False
 
 
 @dataclass(frozen=True)
@@ -207,7 +217,8 @@ class DesignSpec:
             values = {
                 k: (list(v) if isinstance(v, tuple) else v)
                 for k, v in dataclasses.asdict(section).items()
-                if v is not None and v != () and v != {}
+                # an unset switch (False) is left out, as an unset key is
+                if v is not None and v is not False and v != () and v != {}
             }
             if values:
                 out[name] = values
@@ -366,7 +377,30 @@ def _validate(spec: DesignSpec) -> None:
             raise DesignError(f"[rerandomize] acceptance must lie in (0, 1], got {r.acceptance}")
         if a.method == "saturation":
             raise DesignError("[rerandomize] cannot be combined with a saturation design")
+    u = spec.units
+    if u.id_column is None and not u.number_rows:
+        raise DesignError(
+            "[units] needs ['id_column'] (a column of unique ids), or number_rows = true to "
+            "number the units 0, 1, ... in file order when no column holds unique ids"
+        )
+    if u.id_column is not None and u.number_rows:
+        raise DesignError(
+            "[units] give id_column or number_rows = true, not both: number_rows numbers the "
+            "units in file order instead of reading ids from a column"
+        )
+    if u.planar is not None and u.crs is not None:
+        raise DesignError(
+            "[units] give crs (the layer's real CRS) or planar (a layer with no CRS in local "
+            "planar coordinates), not both"
+        )
     x = spec.exposure
+    if x.metric != "network" and (
+        x.split_at_crossings or x.bridge_column is not None or x.accept_sparse_network
+    ):
+        raise DesignError(
+            "[exposure] split_at_crossings, bridge_column and accept_sparse_network are for "
+            "metric = 'network' (distances along streets)"
+        )
     if x.unit not in ("m", "ft"):
         raise DesignError(f"[exposure] unit must be 'm' or 'ft', got {x.unit!r}")
     if x.metric not in ("euclidean", "network"):

@@ -69,6 +69,11 @@ class NetworkDiagnostics:
     warnings: tuple[str, ...]
 
     @property
+    def sparse(self) -> bool:
+        """True when the along-street pairs are implausibly few (below ``SPARSE_SHARE``)."""
+        return self.ratio < SPARSE_SHARE
+
+    @property
     def ratio(self) -> float:
         """Along-street pairs over straight-line pairs within the outer band (1.0 if none)."""
         return self.network_pairs / self.straight_pairs if self.straight_pairs else 1.0

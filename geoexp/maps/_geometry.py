@@ -21,9 +21,9 @@ DISTRICTS_DRAWN = "district outlines drawn around their units"
 
 
 def metres_per_unit(frame: gpd.GeoDataFrame | gpd.GeoSeries) -> float:
-    """Metres per unit of the frame's projected CRS; refuses a geographic CRS."""
+    """Metres per unit of the frame's projected (or local planar) CRS; refuses a geographic CRS."""
     crs = pyproj.CRS(frame.crs)
-    if not crs.is_projected:
+    if not (crs.is_projected or crs.is_engineering):
         raise CRSError(f"map layers must be in a projected CRS to draw distances; got {crs.name}")
     return float(crs.axis_info[0].unit_conversion_factor)
 

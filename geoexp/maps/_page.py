@@ -23,7 +23,15 @@ from geoexp._atomic import atomic_path
 from geoexp.maps._assets import inline_assets, warn_if_remote
 from geoexp.maps._geometry import metres_per_unit
 from geoexp.maps._palette import condition_style
-from geoexp.maps._web import DECIMALS, WGS84, dump, feature_collection, script_safe, to_web
+from geoexp.maps._web import (
+    DECIMALS,
+    WGS84,
+    dump,
+    feature_collection,
+    refuse_planar,
+    script_safe,
+    to_web,
+)
 
 ZONES_FILENAME = "exclusion_zones.geojson"
 PLAIN_BACKGROUND = "#f3f1ec"
@@ -63,6 +71,7 @@ class Page:
     """
 
     def __init__(self, frame: gpd.GeoDataFrame, tiles: str | None, title: str):
+        refuse_planar(frame.crs)
         folium = _folium()
         self.folium = folium
         self.frame = frame

@@ -11,6 +11,7 @@ from __future__ import annotations
 import math
 from collections.abc import Sequence
 from dataclasses import dataclass
+from typing import Literal
 
 import geopandas as gpd
 import numpy as np
@@ -220,6 +221,7 @@ def scale_bar(
     metres_per_unit: float,
     fraction: float = 0.25,
     anchor: tuple[float, float] = (0.03, 0.04),
+    unit: Literal["m", "ft"] = "m",
 ) -> float:
     """Draw a black-and-white scale bar in metres; return its length in metres.
 
@@ -232,7 +234,10 @@ def scale_bar(
     x0, x1 = ax.get_xlim()
     y0, y1 = ax.get_ylim()
     width_m = (x1 - x0) * metres_per_unit
-    length_m = nice_length(width_m * fraction)
+    # ``unit="ft"`` measures the bar in feet of the layer's own kind (a layer in
+    # local planar feet has no other unit a reader could check it against).
+    per = metres_per_unit if unit == "ft" else 1.0
+    length_m = nice_length(width_m / per * fraction) * per
     length = length_m / metres_per_unit
     height = (y1 - y0) * 0.012
     left = x0 + anchor[0] * (x1 - x0)
@@ -264,7 +269,12 @@ def scale_bar(
             )
         )
     label_y = bottom + height + pad * 0.6
-    for frac, label in ((0.0, "0"), (0.5, f"{length_m / 2:g}"), (1.0, _metres_label(length_m))):
+    if unit == "ft":
+        length_ft = round(length_m / per, 6)
+        marks = ((0.0, "0"), (0.5, f"{length_ft / 2:g}"), (1.0, f"{length_ft:g} ft"))
+    else:
+        marks = ((0.0, "0"), (0.5, f"{length_m / 2:g}"), (1.0, _metres_label(length_m)))
+    for frac, label in marks:
         ax.text(
             left + frac * length,
             label_y,
@@ -282,9 +292,14 @@ def true_north_angle(crs, x: float, y: float) -> float:
 
     Grid north of a projected CRS and true north differ by the meridian
     convergence; this finds true north by stepping north in latitude with pyproj
-    and projecting back.
+    and projecting back. Local planar coordinates (an engineering CRS, no
+    geographic reference) have no true north to find: the angle is 0, grid
+    north, and the arrow says so (see :func:`scale_bar_and_north_arrow`).
     """
-    from pyproj import Transformer
+    from pyproj import CRS, Transformer
+
+    if CRS.from_user_input(crs).is_engineering:
+        return 0.0
 
     to_geographic = Transformer.from_crs(crs, 4326, always_xy=True)
     to_map = Transformer.from_crs(4326, crs, always_xy=True)
@@ -296,7 +311,11 @@ def true_north_angle(crs, x: float, y: float) -> float:
 
 
 def north_arrow(
-    ax: Axes, *, angle: float = 0.0, anchor: tuple[float, float] = (0.95, 0.86)
+    ax: Axes,
+    *,
+    angle: float = 0.0,
+    anchor: tuple[float, float] = (0.95, 0.86),
+    label: str = "N",
 ) -> None:
     """Draw a north arrow pointing ``angle`` degrees counter-clockwise from the map's top."""
     fig = ax.figure
@@ -321,7 +340,7 @@ def north_arrow(
     label_at = (tip[0] + 0.35 * dx, tip[1] + 0.35 * dy)
     ax.text(
         *label_at,
-        "N",
+        label,
         transform=ax.transAxes,
         ha="center",
         va="center",
@@ -329,7 +348,7 @@ def north_arrow(
         fontweight="bold",
         zorder=22,
         bbox={
-            "boxstyle": "circle,pad=0.15",
+            "boxstyle": "circle,pad=0.15" if len(label) == 1 else "round,pad=0.15",
             "facecolor": "white",
             "edgecolor": "none",
             "alpha": 0.9,
@@ -341,8 +360,14 @@ def scale_bar_and_north_arrow(ax: Axes, *, crs, metres_per_unit: float, bounds) 
     """Draw a scale bar and a north arrow pointing to true north at the middle of ``bounds``.
 
     ``bounds`` is ``(xmin, ymin, xmax, ymax)`` in the map's CRS, usually the
-    extent the map shows.
+    extent the map shows. A layer in local planar coordinates gets an arrow to
+    grid north labelled "grid N" and, when its unit is the foot, a scale bar
+    in feet.
     """
-    scale_bar(ax, metres_per_unit=metres_per_unit)
+    from pyproj import CRS
+
+    planar = CRS.from_user_input(crs).is_engineering
+    feet = planar and abs(metres_per_unit - 1.0) > 1e-9
+    scale_bar(ax, metres_per_unit=metres_per_unit, unit="ft" if feet else "m")
     cx, cy = (bounds[0] + bounds[2]) / 2, (bounds[1] + bounds[3]) / 2
-    north_arrow(ax, angle=true_north_angle(crs, cx, cy))
+    north_arrow(ax, angle=true_north_angle(crs, cx, cy), label="grid N" if planar else "N")

@@ -15,17 +15,34 @@ import re
 import geopandas as gpd
 import numpy as np
 import pandas as pd
+import pyproj
 import shapely
 
+from geoexp.errors import CRSError
 from geoexp.maps._geometry import metres_per_unit
+from geoexp.units import describe_crs, is_planar
 
 WGS84 = "EPSG:4326"
 SIMPLIFY_M = 0.5
 DECIMALS = 6  # 1e-6 degree is about 0.1 m
 
 
+def refuse_planar(crs) -> None:
+    """Refuse a web map of a layer in local planar coordinates, saying why and what to use."""
+    if crs is not None and is_planar(crs):
+        raise CRSError(
+            "web maps (the interactive planning, drawing and results maps) place the units on a "
+            f"map of the Earth, but this layer is in {describe_crs(pyproj.CRS(crs))}: it was "
+            "declared planar ([units] planar in the spec, planar= in the library, --planar on "
+            "the command line) and has no geographic reference. Use the printable briefing pack "
+            "(geoexp briefing), whose maps need none, or give the layer its real CRS "
+            "([units] crs) instead of planar"
+        )
+
+
 def to_web(geoms: gpd.GeoSeries, tolerance: float) -> np.ndarray:
     """Simplify in the projected CRS, then reproject to lon/lat and round to ~0.1 m."""
+    refuse_planar(geoms.crs)
     arr = np.asarray(geoms.array, dtype=object)
     if tolerance > 0:
         arr = shapely.simplify(arr, tolerance, preserve_topology=True)

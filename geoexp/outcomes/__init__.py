@@ -7,9 +7,13 @@ pre-period and a post-period, optionally per incident type. What could not be
 counted is reported by reason in a :class:`DropReport` (and, if asked, written
 row by row to a CSV). :meth:`OutcomeTable.from_counts` takes counts that were
 made elsewhere. :func:`save_outcomes` and :func:`load_outcomes` keep the table
-in the trial file.
+in the trial file. :func:`count_onto_units` counts incidents onto a units
+layer before any trial (one period or all time, dated or not, optionally some
+types only) and :func:`write_counted_layer` writes the layer with the new
+column, the baseline a design ranks hot spots by.
 """
 
+from geoexp.outcomes._baseline import BaselineCounts, count_onto_units, write_counted_layer
 from geoexp.outcomes._counts import (
     MAX_DROPPED_SHARE,
     REASONS,
@@ -21,6 +25,9 @@ from geoexp.outcomes._counts import (
 )
 
 __all__ = [
+    "BaselineCounts",
+    "count_onto_units",
+    "write_counted_layer",
     "MAX_DROPPED_SHARE",
     "REASONS",
     "DropReport",

@@ -11,7 +11,9 @@ Policy
   of range values, and missing or empty point geometry, make an incident
   "missing coordinates"; it is dropped and reported, not an error. Geometry
   other than points is an error. x/y columns without ``crs=`` are an error:
-  a CRS is never guessed.
+  a CRS is never guessed. ``crs="planar"`` says the coordinates are the
+  units' own local planar coordinates (only for units declared planar).
+* Undated incidents (``date_column=None``) are read for counts over all time.
 * Dates are calendar dates as written: a time of day or a UTC offset after the
   date is ignored, never converted to another time zone. Text is read as ISO
   8601 (``2024-03-05``, ``2024-03-05T21:30``, also ``2024/03/05``) unless
@@ -37,8 +39,16 @@ import pyproj
 import shapely
 
 from geoexp.errors import CRSError, GeometryError, InputError, describe_rows
-from geoexp.units._crs import describe_crs, parse_crs, require_geographic_reference
-from geoexp.units._read import read_layer
+from geoexp.units import (
+    describe_crs,
+    is_planar,
+    parse_crs,
+    read_layer,
+    require_geographic_reference,
+)
+
+#: ``crs=`` for incidents in the units' own local planar coordinates (a layer declared planar)
+PLANAR_WORD = "planar"
 
 # Date problems, coded per incident.
 DATE_OK, DATE_MISSING, DATE_UNPARSEABLE = 0, 1, 2
@@ -106,7 +116,7 @@ def read_incidents(
     incidents: str | os.PathLike | pd.DataFrame,
     target_crs: pyproj.CRS,
     *,
-    date_column: str,
+    date_column: str | None,
     type_column: str | None,
     x: str | None,
     y: str | None,
@@ -147,6 +157,14 @@ def read_incidents(
     _require_columns(frame, [c for c in needed if c is not None], source)
 
     named = InputRows(frame, source, row_kind)
+    if isinstance(crs, str) and crs.strip().lower() == PLANAR_WORD:
+        if not is_planar(target_crs):
+            raise CRSError(
+                f"crs='planar' says the incidents '{source}' are in the units' local planar "
+                f"coordinates, but the units are in {describe_crs(target_crs)}; give the "
+                "incidents' real CRS"
+            )
+        crs = target_crs
     if x is not None:
         if crs is None:
             raise CRSError(
@@ -178,7 +196,11 @@ def read_incidents(
         )
 
     px, py = _to_target(px, py, src_crs, target_crs)
-    dates, problem = parse_dates(frame[date_column], date_column, date_format, named)
+    if date_column is None:
+        dates = np.full(len(frame), np.datetime64("NaT"), dtype="datetime64[D]")
+        problem = np.full(len(frame), DATE_OK, dtype=np.int8)
+    else:
+        dates, problem = parse_dates(frame[date_column], date_column, date_format, named)
     types = None
     if type_column is not None:
         labels = frame[type_column].astype("str").str.strip()

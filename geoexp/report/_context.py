@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import json
 import os
 from collections.abc import Callable
 from dataclasses import dataclass
@@ -14,6 +15,7 @@ import pandas as pd
 from matplotlib.figure import Figure
 
 from geoexp.cautions import CAUTION
+from geoexp.graph import NetworkInfo
 from geoexp.maps import PRINT_RC
 from geoexp.report._figures import distance_decay_plot, png_bytes
 
@@ -310,6 +312,11 @@ def report_context(
         "test draws": str(analysis.n_draws_tests),
         "distances": "metres" if analysis.distance_unit == "m" else "feet (international)",
     }
+    if meta.get("coordinates"):
+        design_rows["coordinates"] = meta["coordinates"]
+    if meta.get("network"):
+        info = NetworkInfo(**json.loads(meta["network"]))
+        design_rows["street network"] = info.describe()
     return ReportContext(
         title=analysis.name,
         caution=CAUTION,

@@ -174,6 +174,17 @@ class TrialFile:
         return self.meta.get("design_fingerprint", "")
 
     @property
+    def network(self) -> dict | None:
+        """How the street network was formed (``NetworkInfo.to_dict()``), None for straight lines."""
+        text = self.meta.get("network", "")
+        return json.loads(text) if text else None
+
+    @property
+    def coordinates(self) -> str:
+        """The units' CRS as outputs name it, or "local planar coordinates in metres (no CRS)"."""
+        return self.meta.get("coordinates", "")
+
+    @property
     def draw_number(self) -> int:
         """1 for the first assignment drawn into the file, 2 after one replacement, ..."""
         return int(self.meta.get("draw_number", "0") or 0)
@@ -456,6 +467,10 @@ def write_trial(
             "seed": str(spec.seed),
             "units_source": units.source,
             "crs_report": units.crs_report,
+            "coordinates": units.crs_label,
+            "network": json.dumps(design.graph.network.to_dict())
+            if design.graph.network is not None
+            else "",
             "metres_per_unit": repr(units.metres_per_unit),
             "distance_unit": "metre",
             "drawn_at": assignment.drawn_at,

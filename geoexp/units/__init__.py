@@ -27,6 +27,7 @@ from geoexp.units._crs import (
     Planar,
     describe_crs,
     is_planar,
+    parse_crs,
     planar_crs,
     require_geographic_reference,
 )
@@ -36,17 +37,34 @@ from geoexp.units._rules import Rule, parse_rule
 from geoexp.units._validate import prepare
 
 __all__ = [
+    "ROW_ID",
     "Planar",
     "Rule",
     "UnitSet",
     "describe_crs",
     "is_planar",
+    "numbered",
+    "parse_crs",
     "parse_rule",
     "planar_crs",
+    "read_layer",
     "require_geographic_reference",
 ]
 
 Kind = Literal["segment", "parcel"]
+
+#: the id name of units numbered in file order (a layer with no unique id column)
+ROW_ID = "row"
+
+
+def numbered(frame: gpd.GeoDataFrame, source: str) -> gpd.GeoDataFrame:
+    """The layer with its features numbered 0, 1, ... in file order as ids named ``"row"``."""
+    if ROW_ID in frame.columns:
+        raise InputError(
+            f"'{source}' already has a column {ROW_ID!r}; to number the units in file order the "
+            f"id name {ROW_ID!r} must be free: rename that column, or use it as the id column"
+        )
+    return frame.set_axis(pd.RangeIndex(len(frame), name=ROW_ID), axis=0)
 
 
 @dataclass(frozen=True, eq=False)
@@ -93,7 +111,7 @@ class UnitSet:
     def from_file(
         cls,
         path: str | os.PathLike,
-        id_column: str,
+        id_column: str | None,
         *,
         layer: str | None = None,
         crs: object = None,
@@ -106,8 +124,10 @@ class UnitSet:
         ----------
         path : str or os.PathLike
             GeoPackage, GeoJSON or Shapefile (read with pyogrio).
-        id_column : str
+        id_column : str or None
             Column holding the unit ids (integers or text, unique, none missing).
+            ``None`` numbers the units 0, 1, ... in file order, under the id
+            name ``"row"`` (for a layer with no unique id column).
         layer : str, optional
             Layer name; required when the file has more than one spatial layer.
         crs : optional
@@ -139,6 +159,8 @@ class UnitSet:
         text = os.fspath(path)
         frame = read_layer(text, layer, "units")
         label = text if layer is None else f"{text} (layer {layer})"
+        if id_column is None:
+            frame = numbered(frame, label)
         return cls._build(
             frame,
             id_column,
