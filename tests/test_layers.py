@@ -19,6 +19,7 @@ LAYERS: list[set[str]] = [
     {"errors", "_rng", "_atomic", "_optional", "cautions", "_tables", "_engine", "_paths"},
     # core helpers
     {"sampleregion"},  # invented data for the demo and benchmarks; no library code depends on it
+    {"postgis"},  # reading and writing database tables; knows nothing of trials
     {"units"},
     {"graph"},
     {"exposure"},

@@ -154,6 +154,7 @@ SCHEMA: dict[str, dict[str, Check]] = {
         "id_column": text,
         "layer": text,
         "crs": _crs,
+        "query": text,
     },
     "eligible": {
         "where": _rule,
