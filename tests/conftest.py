@@ -52,3 +52,28 @@ def trial(demo):
     from geoexp.trialfile import TrialFile
 
     return TrialFile.open(demo / "trial.gpkg")
+
+
+DATABASE_URL_VARIABLE = "GEOEXP_TEST_DATABASE_URL"
+DATABASE_OPT_OUT_VARIABLE = "GEOEXP_SKIP_DATABASE_TESTS"
+
+
+@pytest.fixture(scope="session")
+def database_url():
+    """URL of a PostgreSQL database with PostGIS for the database tests.
+
+    Without one the tests fail with directions, unless the developer opted out
+    with GEOEXP_SKIP_DATABASE_TESTS=1 (then they skip, with that reason shown).
+    """
+    url = os.environ.get(DATABASE_URL_VARIABLE, "").strip()
+    if url:
+        return url
+    if os.environ.get(DATABASE_OPT_OUT_VARIABLE) == "1" and os.environ.get("CI") != "true":
+        pytest.skip(f"database tests skipped: {DATABASE_OPT_OUT_VARIABLE}=1 was set")
+    pytest.fail(
+        f"the database tests need PostgreSQL with PostGIS: set {DATABASE_URL_VARIABLE}, e.g. "
+        'start a throwaway cluster with  eval "$(bash .ci/test-database start)"  (Debian '
+        "packages postgresql and postgresql-postgis), or opt out locally with "
+        f"{DATABASE_OPT_OUT_VARIABLE}=1",
+        pytrace=False,
+    )

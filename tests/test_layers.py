@@ -28,7 +28,7 @@ LAYERS: list[set[str]] = [
     {"power", "outcomes", "trialfile"},
     {"analysis"},
     {"maps", "briefing", "report"},  # the output layer
-    {"workflow"},  # count, analyse and report as one job
+    {"workflow", "publish"},  # count, analyse and report as one job; tables to a database
     {"quickstart"},  # the demo job
     {"cli"},
 ]

@@ -49,6 +49,15 @@ def spec_inputs(path: Path, spec) -> dict[str, Path]:
     return found
 
 
+def incidents_input(text: str | None) -> Path | str | None:
+    """An ``--incidents`` value: a database URL stays text, anything else is a file path."""
+    from geoexp.postgis import is_database_url
+
+    if text is None or is_database_url(text):
+        return text
+    return Path(text)
+
+
 def read_counts_csv(path: Path, id_column: str):
     """Read a CSV of counts per unit (ids as text), refusing unreadable or empty files."""
     import io
