@@ -77,3 +77,30 @@ def database_url():
         f"{DATABASE_OPT_OUT_VARIABLE}=1",
         pytrace=False,
     )
+
+
+@pytest.fixture(scope="session")
+def city_db(database_url, region):
+    """The sample city's segments, parcels and incidents in a fresh schema; (url, schema)."""
+    import uuid
+
+    import sqlalchemy
+
+    schema = f"city_{uuid.uuid4().hex[:10]}"
+    # SQLAlchemy's own URL form, as an agency's script would write it (psycopg driver)
+    engine = sqlalchemy.create_engine(
+        database_url.replace("postgresql://", "postgresql+psycopg://", 1)
+    )
+    with engine.begin() as conn:
+        conn.execute(sqlalchemy.text(f"CREATE SCHEMA {schema}"))
+    region.segments.to_postgis("segments", engine, schema=schema)
+    region.parcels.to_postgis("parcels", engine, schema=schema)
+    incidents = region.incidents.rename_geometry("geom")
+    incidents["date"] = incidents["date"].dt.date  # a SQL date column, as agencies keep them
+    incidents.to_postgis("incidents", engine, schema=schema)
+    with engine.begin() as conn:
+        conn.execute(sqlalchemy.text(f"CREATE INDEX ON {schema}.segments USING gist (geometry)"))
+    yield database_url, schema
+    with engine.begin() as conn:
+        conn.execute(sqlalchemy.text(f"DROP SCHEMA {schema} CASCADE"))
+    engine.dispose()

@@ -9,8 +9,6 @@ project.
 
 from __future__ import annotations
 
-import uuid
-
 import numpy as np
 import pandas as pd
 import pytest
@@ -28,30 +26,7 @@ POST = ("2025-01-01", "2025-12-31")
 def _engine(url):
     import sqlalchemy
 
-    # SQLAlchemy's own URL form, as an agency's script would write it (psycopg driver)
     return sqlalchemy.create_engine(url.replace("postgresql://", "postgresql+psycopg://", 1))
-
-
-@pytest.fixture(scope="module")
-def city_db(database_url, region):
-    """The sample city's segments, parcels and incidents in a fresh schema; (url, schema)."""
-    import sqlalchemy
-
-    schema = f"city_{uuid.uuid4().hex[:10]}"
-    engine = _engine(database_url)
-    with engine.begin() as conn:
-        conn.execute(sqlalchemy.text(f"CREATE SCHEMA {schema}"))
-    region.segments.to_postgis("segments", engine, schema=schema)
-    region.parcels.to_postgis("parcels", engine, schema=schema)
-    incidents = region.incidents.rename_geometry("geom")
-    incidents["date"] = incidents["date"].dt.date  # a SQL date column, as agencies keep them
-    incidents.to_postgis("incidents", engine, schema=schema)
-    with engine.begin() as conn:
-        conn.execute(sqlalchemy.text(f"CREATE INDEX ON {schema}.segments USING gist (geometry)"))
-    yield database_url, schema
-    with engine.begin() as conn:
-        conn.execute(sqlalchemy.text(f"DROP SCHEMA {schema} CASCADE"))
-    engine.dispose()
 
 
 def _with(url, **params):
