@@ -98,8 +98,9 @@ def test_units_from_a_table_equal_units_from_the_geopackage(city_db, region_path
 def test_units_from_a_query_with_its_own_geometry_name(city_db, region_path):
     url, schema = city_db
     sql = (
-        f"SELECT segment_id, district, geometry AS geom FROM {schema}.segments "
-        "WHERE district = 'Weavers Row' ORDER BY segment_id DESC"
+        # sent as written: '%' and ':30' are SQL text here, not placeholders
+        f"SELECT segment_id, district, '12:30' AS shift, geometry AS geom FROM {schema}.segments "
+        "WHERE district LIKE 'Weavers%' ORDER BY segment_id DESC"
     )
     from_db = UnitSet.from_file(DatabaseSource(url, query=sql), "segment_id")
     expected = UnitSet.from_file(region_path, "segment_id", layer="segments").select(
@@ -108,6 +109,7 @@ def test_units_from_a_query_with_its_own_geometry_name(city_db, region_path):
     assert len(from_db) == len(expected) > 0
     # rows are put in id order whatever order the query returns them in
     assert list(from_db.ids) == sorted(expected.ids)
+    assert (from_db.frame["shift"] == "12:30").all()
     assert from_db.geometry.geom_equals_exact(expected.geometry.loc[from_db.ids], 0).all()
 
 

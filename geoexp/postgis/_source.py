@@ -196,17 +196,21 @@ def connect(url: str):
             "is wanted"
         )
 
-    def open_connection():
-        try:
-            return psycopg.connect(url)
-        except psycopg.Error as err:
-            raise InputError(
-                f"could not connect to the database {mask_url(url)}: {safe_message(err, url)}. "
-                "The password, if one is needed, is read from PGPASSWORD, ~/.pgpass or a "
-                "service file (PGSERVICE)"
-            ) from None
+    del psycopg  # imported above only to name the extra when it is missing
+    return sqlalchemy.create_engine("postgresql+psycopg://", creator=lambda: open_connection(url))
 
-    return sqlalchemy.create_engine("postgresql+psycopg://", creator=open_connection)
+
+def open_connection(url: str):
+    """A psycopg connection opened by libpq from ``url`` as given; failures are InputErrors."""
+    psycopg = import_optional("psycopg", "postgis", "Reading from or writing to PostGIS")
+    try:
+        return psycopg.connect(url)
+    except psycopg.Error as err:
+        raise InputError(
+            f"could not connect to the database {mask_url(url)}: {safe_message(err, url)}. "
+            "The password, if one is needed, is read from PGPASSWORD, ~/.pgpass or a "
+            "service file (PGSERVICE)"
+        ) from None
 
 
 def safe_message(err: BaseException, url: str) -> str:
