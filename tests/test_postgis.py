@@ -236,3 +236,24 @@ def test_incidents_without_geometry_read_by_their_coordinate_columns(city_db, re
     )
     layer = count_incidents(units, region_path, layer="incidents", date_column="date", **common)
     pd.testing.assert_frame_equal(xy.counts, layer.counts)
+
+
+def test_a_spec_reads_its_units_from_a_query(city_db, tmp_path, region_path):
+    from geoexp.design import units_for
+
+    url, schema = city_db
+    spec = demo_spec(region_path, tmp_path)
+    query = f"SELECT * FROM {schema}.segments WHERE district = 'Weavers Row'"
+    units = spec.units.__class__(path=url, id_column="segment_id", query=query)
+    read = units_for(spec.replace(units=units))
+    expected = UnitSet.from_file(region_path, "segment_id", layer="segments")
+    expected = expected.select("district == 'Weavers Row'")
+    pd.testing.assert_frame_equal(read.frame, expected.frame)
+    with pytest.raises(DesignError, match="not both"):
+        spec.replace(
+            units=spec.units.__class__(path=url, id_column="segment_id", layer="a.b", query=query)
+        )
+    with pytest.raises(DesignError, match="database path"):
+        spec.replace(
+            units=spec.units.__class__(path="city.gpkg", id_column="segment_id", query=query)
+        )
