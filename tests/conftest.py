@@ -52,3 +52,55 @@ def trial(demo):
     from geoexp.trialfile import TrialFile
 
     return TrialFile.open(demo / "trial.gpkg")
+
+
+DATABASE_URL_VARIABLE = "GEOEXP_TEST_DATABASE_URL"
+DATABASE_OPT_OUT_VARIABLE = "GEOEXP_SKIP_DATABASE_TESTS"
+
+
+@pytest.fixture(scope="session")
+def database_url():
+    """URL of a PostgreSQL database with PostGIS for the database tests.
+
+    Without one the tests fail with directions, unless the developer opted out
+    with GEOEXP_SKIP_DATABASE_TESTS=1 (then they skip, with that reason shown).
+    """
+    url = os.environ.get(DATABASE_URL_VARIABLE, "").strip()
+    if url:
+        return url
+    if os.environ.get(DATABASE_OPT_OUT_VARIABLE) == "1" and os.environ.get("CI") != "true":
+        pytest.skip(f"database tests skipped: {DATABASE_OPT_OUT_VARIABLE}=1 was set")
+    pytest.fail(
+        f"the database tests need PostgreSQL with PostGIS: set {DATABASE_URL_VARIABLE}, e.g. "
+        'start a throwaway cluster with  eval "$(bash .ci/test-database start)"  (Debian '
+        "packages postgresql and postgresql-postgis), or opt out locally with "
+        f"{DATABASE_OPT_OUT_VARIABLE}=1",
+        pytrace=False,
+    )
+
+
+@pytest.fixture(scope="session")
+def city_db(database_url, region):
+    """The sample city's segments, parcels and incidents in a fresh schema; (url, schema)."""
+    import uuid
+
+    import sqlalchemy
+
+    schema = f"city_{uuid.uuid4().hex[:10]}"
+    # SQLAlchemy's own URL form, as an agency's script would write it (psycopg driver)
+    engine = sqlalchemy.create_engine(
+        database_url.replace("postgresql://", "postgresql+psycopg://", 1)
+    )
+    with engine.begin() as conn:
+        conn.execute(sqlalchemy.text(f"CREATE SCHEMA {schema}"))
+    region.segments.to_postgis("segments", engine, schema=schema)
+    region.parcels.to_postgis("parcels", engine, schema=schema)
+    incidents = region.incidents.rename_geometry("geom")
+    incidents["date"] = incidents["date"].dt.date  # a SQL date column, as agencies keep them
+    incidents.to_postgis("incidents", engine, schema=schema)
+    with engine.begin() as conn:
+        conn.execute(sqlalchemy.text(f"CREATE INDEX ON {schema}.segments USING gist (geometry)"))
+    yield database_url, schema
+    with engine.begin() as conn:
+        conn.execute(sqlalchemy.text(f"DROP SCHEMA {schema} CASCADE"))
+    engine.dispose()

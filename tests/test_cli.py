@@ -21,6 +21,7 @@ COMMANDS = [
     "map",
     "briefing",
     "baseline",
+    "write-tables",
 ]
 
 

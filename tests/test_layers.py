@@ -29,6 +29,7 @@ LAYERS: list[set[str]] = [
     },
     # core helpers
     {"sampleregion"},  # invented data for the demo and benchmarks; no library code depends on it
+    {"postgis"},  # reading and writing database tables; knows nothing of trials
     {"units"},
     {"graph", "_moran"},  # Moran's I over the graph: below the design check that reports it
     {"exposure"},
@@ -37,7 +38,7 @@ LAYERS: list[set[str]] = [
     {"power", "outcomes", "trialfile"},
     {"analysis"},
     {"maps", "briefing", "report"},  # the output layer
-    {"workflow"},  # count, analyse and report as one job
+    {"workflow", "publish"},  # count, analyse and report as one job; tables to a database
     {"quickstart"},  # the demo job
     {"cli"},
 ]

@@ -1,7 +1,12 @@
 """The geoexp command line: thin commands over the library's public functions."""
 
-import geoexp.cli._baseline_commands  # noqa: F401  (register the baseline command)
-from geoexp.cli import _briefing_commands, _map_commands, _power_commands  # noqa: F401  (register commands)
+from geoexp.cli import (  # noqa: F401  (register commands)
+    _baseline_commands,
+    _briefing_commands,
+    _database_commands,
+    _map_commands,
+    _power_commands,
+)
 from geoexp.cli._app import app, main
 
 __all__ = ["app", "main"]

@@ -10,7 +10,7 @@ from rich.console import Console
 
 from geoexp._paths import check_outputs, writing
 from geoexp.cli._failures import ClickException, GeoexpGroup, UserError, as_click_error
-from geoexp.cli._inputs import load_spec, read_counts_csv, spec_inputs
+from geoexp.cli._inputs import incidents_input, load_spec, read_counts_csv, spec_inputs
 from geoexp.cli._options import (
     MAX_DRAWS,
     EstimatorChoice,
@@ -232,7 +232,13 @@ def _period(text: str, what: str) -> tuple[str, str]:
 @app.command("count")
 def count_command(
     trial: Annotated[Path, typer.Argument(help="Trial file (GeoPackage).")],
-    incidents: Annotated[Path, typer.Option(help="Incident points: CSV or point layer.")],
+    incidents: Annotated[
+        str,
+        typer.Option(
+            help="Incident points: CSV, point layer, or postgresql://...?table=schema.name "
+            "(or ?query=SELECT...)."
+        ),
+    ],
     pre: Annotated[str, typer.Option(help="Pre-period START:END (dates, both included).")],
     post: Annotated[str, typer.Option(help="Post-period START:END (dates, both included).")],
     date_column: Annotated[str, typer.Option(help="Column of incident dates.")] = "date",
@@ -259,6 +265,7 @@ def count_command(
     from geoexp.workflow import count_and_store
 
     periods = _period(pre, "--pre"), _period(post, "--post")
+    incidents = incidents_input(incidents)
     check_outputs({"--dropped": dropped}, {"--incidents": incidents}, trial=trial)
     table = count_and_store(
         trial,
@@ -330,7 +337,10 @@ def analyse_command(
         Path, typer.Option(help="HTML report to write (a .md twin goes beside it).")
     ] = Path("report.html"),
     incidents: Annotated[
-        Path | None, typer.Option(help="Incident points to count first (CSV or point layer).")
+        str | None,
+        typer.Option(
+            help="Incident points to count first (CSV, point layer or postgresql:// URL)."
+        ),
     ] = None,
     pre: Annotated[str | None, typer.Option(help="With --incidents: pre-period START:END.")] = None,
     post: Annotated[
@@ -373,6 +383,7 @@ def analyse_command(
     from geoexp.workflow import analyse_trial, count_and_store, report_outputs
 
     outs = report_outputs(report)
+    incidents = incidents_input(incidents)
     check_outputs(
         {
             "--report": outs["report"],

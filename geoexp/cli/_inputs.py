@@ -39,10 +39,23 @@ def load_spec(path: Path):
 
 def spec_inputs(path: Path, spec) -> dict[str, Path]:
     """The design spec and the files it names (units layer, exclusion zones), for the guard."""
-    found = {"the design spec": path, "the spec's units layer": spec.resolve(spec.units.path)}
+    from geoexp.postgis import is_database_url
+
+    found = {"the design spec": path}
+    if not is_database_url(spec.units.path):  # a database table is no file to guard
+        found["the spec's units layer"] = spec.resolve(spec.units.path)
     for i, zone in enumerate(spec.eligible.exclude, start=1):
         found[f"the spec's exclusion zone {i}"] = spec.resolve(zone)
     return found
+
+
+def incidents_input(text: str | None) -> Path | str | None:
+    """An ``--incidents`` value: a database URL stays text, anything else is a file path."""
+    from geoexp.postgis import is_database_url
+
+    if text is None or is_database_url(text):
+        return text
+    return Path(text)
 
 
 def read_counts_csv(path: Path, id_column: str):

@@ -26,20 +26,24 @@ from geoexp.design._samplers import (
 )
 from geoexp.design._spec import DesignSpec
 from geoexp.errors import DesignError, describe_rows
+from geoexp.postgis import DatabaseSource, is_database_url
 from geoexp.units import UnitSet
 
 __all__ = ["SAMPLER_BUILDERS", "SamplerInputs", "build_sampler", "eligible_for", "units_for"]
 
 
 def units_for(spec: DesignSpec) -> UnitSet:
-    """Read the unit layer named by ``spec`` (``[units]``), relative to the spec's folder."""
+    """Read the unit layer named by ``spec`` (``[units]``), relative to the spec's folder.
+
+    A ``postgresql://`` path reads the table named by ``layer`` or the rows of ``query``.
+    """
     u = spec.units
+    id_column = None if u.number_rows else u.id_column
+    if is_database_url(u.path):
+        source = DatabaseSource.parse(u.path, table=u.layer, query=u.query)
+        return UnitSet.from_file(source, id_column, crs=u.crs, planar=u.planar)
     return UnitSet.from_file(
-        spec.resolve(u.path),
-        None if u.number_rows else u.id_column,
-        layer=u.layer,
-        crs=u.crs,
-        planar=u.planar,
+        spec.resolve(u.path), id_column, layer=u.layer, crs=u.crs, planar=u.planar
     )
 
 

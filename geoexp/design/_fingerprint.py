@@ -77,6 +77,7 @@ def spec_identity(spec: DesignSpec) -> dict[str, Any]:
     units = data.get("units", {})
     units.pop("path", None)
     units.pop("layer", None)
+    units.pop("query", None)  # like a path: where the rows come from, not what they are
     eligible = data.get("eligible", {})
     if "exclude" in eligible:
         eligible["exclude"] = len(eligible["exclude"])  # the zones' contents are a part apart

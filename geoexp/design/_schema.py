@@ -163,6 +163,7 @@ SCHEMA: dict[str, dict[str, Check]] = {
         "crs": _crs,
         "planar": choice("m", "ft", "us-ft"),
         "number_rows": flag,
+        "query": text,
     },
     "eligible": {
         "where": _rule,

@@ -32,7 +32,14 @@ Method = Literal["complete", "blocked", "saturation"]
 
 @dataclass(frozen=True)
 class UnitsSpec:
-    """Where the units come from."""
+    """Where the units come from.
+
+    ``path`` is a file, or a ``postgresql://`` URL whose table is named by
+    ``layer`` (``schema.name``) or whose rows come from ``query`` (a SQL
+    ``SELECT``); a URL may not hold a password, since the spec is kept in the
+    trial file (libpq reads it from ``PGPASSWORD``, ``~/.pgpass`` or a service
+    file).
+    """
 
     path: str
     id_column: str | None = None
@@ -42,6 +49,7 @@ class UnitsSpec:
     planar: Literal["m", "ft", "us-ft"] | None = None
     # no unique id column: the units are numbered 0, 1, ... in file order (ids "row")
     number_rows: bool = False
+    query: str | None = None  # SQL for a database path
 
 
 @dataclass(frozen=True)
@@ -319,6 +327,7 @@ def _section(raw: Any, cls: type, name: str, source: str, required: bool = False
 def _validate(spec: DesignSpec) -> None:
     a = spec.assignment
     e = spec.eligible
+    _validate_units(spec.units)
     if spec.draws < 100:
         raise DesignError(f"draws must be at least 100 Monte Carlo draws, got {spec.draws}")
     if a.method not in ("complete", "blocked", "saturation"):
@@ -412,3 +421,20 @@ def _validate(spec: DesignSpec) -> None:
         or any(b2 <= b1 for b1, b2 in zip(bands, bands[1:], strict=False))
     ):
         raise DesignError(f"[exposure] bands_m must be increasing positive metres, got {bands}")
+
+
+def _validate_units(u: UnitsSpec) -> None:
+    from geoexp.postgis import has_password, is_database_url, mask_url
+
+    if not is_database_url(u.path):
+        if u.query is not None:
+            raise DesignError("[units] query is for a database path (postgresql://...) only")
+        return
+    if has_password(u.path):
+        raise DesignError(
+            f"[units] path {mask_url(u.path)} holds a password, which would be kept in the "
+            "trial file: remove it and let libpq read it from PGPASSWORD, ~/.pgpass or a "
+            "service file"
+        )
+    if u.query is not None and u.layer is not None:
+        raise DesignError("[units] give layer (the table) or query for a database, not both")

@@ -33,6 +33,7 @@ from geoexp._atomic import atomic_path
 from geoexp.errors import InputError, describe_rows
 from geoexp.outcomes._read import DATE_MISSING, DATE_UNPARSEABLE, IncidentRows, read_incidents
 from geoexp.outcomes._snap import id_rank, snap
+from geoexp.postgis import DatabaseSource
 from geoexp.trialfile import TrialFile
 from geoexp.units import UnitSet
 
@@ -443,7 +444,7 @@ def _as_units(units: UnitSet | TrialFile) -> UnitSet:
 
 def count_incidents(
     units: UnitSet | TrialFile,
-    incidents: str | os.PathLike | pd.DataFrame,
+    incidents: str | os.PathLike | pd.DataFrame | DatabaseSource,
     *,
     date_column: str,
     tolerance_m: float,
@@ -473,9 +474,11 @@ def count_incidents(
     units : UnitSet or TrialFile
         The trial's units; incidents are reprojected to their CRS, and the
         tolerance is converted with their ``metres_per_unit`` (feet CRSs).
-    incidents : path, GeoDataFrame or DataFrame
+    incidents : path, URL, DatabaseSource, GeoDataFrame or DataFrame
         A CSV (x/y or lon/lat columns), a point layer (GeoPackage, GeoJSON,
-        Shapefile) or a frame.
+        Shapefile), a PostGIS table or query (a ``postgresql://`` URL with
+        ``?table=`` or ``?query=``, the table given as ``layer``, or a
+        :class:`geoexp.postgis.DatabaseSource`) or a frame.
     date_column : str
         Column of incident dates.
     tolerance_m : float
@@ -499,7 +502,7 @@ def count_incidents(
         How dates written as text are read; default ISO 8601 only. Day/month
         text without it raises an error rather than being guessed.
     layer : str, optional
-        Layer of a multi-layer incidents file.
+        Layer of a multi-layer incidents file (or table of a database URL).
     dropped_path : path, optional
         Write the dropped rows here as CSV, with a ``reason`` column.
     max_dropped_share : float or None

@@ -4,7 +4,9 @@ Policy
 ------
 * Sources: a CSV (``.csv``, ``.txt``; ``.tsv`` is tab-separated) with x/y
   columns in a stated CRS or longitude/latitude columns (EPSG:4326); a point
-  layer (GeoPackage, GeoJSON, Shapefile, ...); a GeoDataFrame; a DataFrame with
+  layer (GeoPackage, GeoJSON, Shapefile, ...); a PostGIS table or query (a
+  ``postgresql://`` URL or a ``DatabaseSource``; rows are numbered from 0 in
+  the order the server returns them); a GeoDataFrame; a DataFrame with
   coordinate columns. CSV cells are read as text so that nothing (dates above
   all) is converted behind the user's back.
 * Coordinates: empty, non-numeric, non-finite or (for longitude/latitude) out
@@ -39,7 +41,9 @@ import pyproj
 import shapely
 
 from geoexp.errors import CRSError, GeometryError, InputError, describe_rows
+from geoexp.postgis import DatabaseSource, read_source
 from geoexp.units import (
+    database_source,
     describe_crs,
     is_planar,
     parse_crs,
@@ -113,7 +117,7 @@ class IncidentRows(InputRows):
 
 
 def read_incidents(
-    incidents: str | os.PathLike | pd.DataFrame,
+    incidents: str | os.PathLike | pd.DataFrame | DatabaseSource,
     target_crs: pyproj.CRS,
     *,
     date_column: str | None,
@@ -134,7 +138,12 @@ def read_incidents(
     if x is not None and lon is not None:
         raise InputError("give either x=/y= or lon=/lat=, not both")
 
-    if isinstance(incidents, (str, os.PathLike)):
+    database = database_source(incidents, layer)
+    if database is not None:
+        frame = read_source(database, "incidents", need_geometry=False)
+        source = database.label
+        row_kind = "frame"
+    elif isinstance(incidents, (str, os.PathLike)):
         path = Path(incidents)
         source = os.fspath(incidents)
         if path.suffix.lower() in _CSV_SUFFIXES:
@@ -149,8 +158,8 @@ def read_incidents(
         row_kind = "frame"
     else:
         raise InputError(
-            "incidents must be a file path (CSV or a point layer), a GeoDataFrame or a "
-            f"DataFrame, not {type(incidents).__name__}"
+            "incidents must be a file path (CSV or a point layer), a postgresql:// URL, a "
+            f"GeoDataFrame or a DataFrame, not {type(incidents).__name__}"
         )
 
     needed = [date_column, type_column, x, y, lon, lat]

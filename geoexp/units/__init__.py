@@ -23,6 +23,7 @@ import pandas as pd
 import pyproj
 
 from geoexp.errors import InputError
+from geoexp.postgis import DatabaseSource, read_source
 from geoexp.units._crs import (
     Planar,
     describe_crs,
@@ -32,7 +33,7 @@ from geoexp.units._crs import (
     require_geographic_reference,
 )
 from geoexp.units._eligibility import exclude_mask, select_mask, subset_positions, top_positions
-from geoexp.units._read import read_layer
+from geoexp.units._read import database_source, read_layer
 from geoexp.units._rules import Rule, parse_rule
 from geoexp.units._validate import prepare
 
@@ -41,6 +42,7 @@ __all__ = [
     "Planar",
     "Rule",
     "UnitSet",
+    "database_source",
     "describe_crs",
     "is_planar",
     "numbered",
@@ -65,6 +67,17 @@ def numbered(frame: gpd.GeoDataFrame, source: str) -> gpd.GeoDataFrame:
             f"id name {ROW_ID!r} must be free: rename that column, or use it as the id column"
         )
     return frame.set_axis(pd.RangeIndex(len(frame), name=ROW_ID), axis=0)
+
+
+def _in_id_order(frame: gpd.GeoDataFrame, id_column: str) -> gpd.GeoDataFrame:
+    # A table has no row order of its own; sorting by id keeps assignments reproducible.
+    # Ids of mixed types cannot be sorted: the id checks then report them.
+    if id_column not in frame.columns:
+        return frame
+    try:
+        return frame.sort_values(id_column, kind="stable").reset_index(drop=True)
+    except TypeError:
+        return frame
 
 
 @dataclass(frozen=True, eq=False)
@@ -110,7 +123,7 @@ class UnitSet:
     @classmethod
     def from_file(
         cls,
-        path: str | os.PathLike,
+        path: str | os.PathLike | DatabaseSource,
         id_column: str | None,
         *,
         layer: str | None = None,
@@ -122,8 +135,13 @@ class UnitSet:
 
         Parameters
         ----------
-        path : str or os.PathLike
-            GeoPackage, GeoJSON or Shapefile (read with pyogrio).
+        path : str, os.PathLike or geoexp.postgis.DatabaseSource
+            GeoPackage, GeoJSON or Shapefile (read with pyogrio), or a PostGIS
+            table or query: a ``postgresql://`` URL (``?table=schema.name``
+            in it, or the table given as ``layer``) or a ``DatabaseSource``.
+            Rows from a database are put in the order of their ids, so the
+            same table gives the same assignment whatever order the server
+            returns them in.
         id_column : str or None
             Column holding the unit ids (integers or text, unique, none missing).
             ``None`` numbers the units 0, 1, ... in file order, under the id
@@ -156,6 +174,24 @@ class UnitSet:
         geoexp.errors.CRSError
             No CRS and no ``crs=``, or a ``crs=`` that contradicts the file.
         """
+        database = database_source(path, layer)
+        if database is not None:
+            if id_column is None:
+                raise InputError(
+                    f"{database.label}: a database table has no row order of its own, so its "
+                    "rows cannot be numbered; name its id column instead"
+                )
+            frame = read_source(database, "units")
+            return cls._build(
+                _in_id_order(frame, id_column),
+                id_column,
+                crs=crs,
+                source=database.label,
+                label=database.label,
+                kind=kind,
+                from_file=False,
+                planar=planar,
+            )
         text = os.fspath(path)
         frame = read_layer(text, layer, "units")
         label = text if layer is None else f"{text} (layer {layer})"

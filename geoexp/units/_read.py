@@ -1,4 +1,4 @@
-"""Read a layer from a GeoPackage, GeoJSON or Shapefile with clear errors.
+"""Read a layer from a GeoPackage, GeoJSON, Shapefile or PostGIS table with clear errors.
 
 Every failure names the file; a wrong or missing layer name lists the layers
 the file has, so the user never has to open it in a GIS to find out.
@@ -14,10 +14,31 @@ import pyogrio
 from pyogrio.errors import DataLayerError, DataSourceError
 
 from geoexp.errors import InputError
+from geoexp.postgis import DatabaseSource, is_database_url, read_source
+
+
+def database_source(path: object, layer: str | None) -> DatabaseSource | None:
+    """The database source ``path`` names (a URL or a DatabaseSource), or None for a file.
+
+    With a URL, ``layer`` names the table (``schema.name``) unless the URL does.
+    """
+    if isinstance(path, DatabaseSource):
+        if layer is not None:
+            raise InputError(f"give the table of {path.label} in the source, not as layer=")
+        return path
+    if is_database_url(path):
+        return DatabaseSource.parse(path, table=layer)
+    return None
 
 
 def read_layer(path: str | os.PathLike, layer: str | None, what: str) -> gpd.GeoDataFrame:
-    """Read one layer of ``path`` with pyogrio; ``what`` names the layer's role in messages."""
+    """Read one layer of ``path`` with pyogrio; ``what`` names the layer's role in messages.
+
+    A ``postgresql://`` URL or a DatabaseSource is read from the database instead.
+    """
+    database = database_source(path, layer)
+    if database is not None:
+        return read_source(database, what)
     text = os.fspath(path)
     if not Path(text).exists():
         raise InputError(f"the {what} file '{text}' does not exist")
