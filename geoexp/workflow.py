@@ -41,6 +41,7 @@ def count_and_store(
     date_format: str | None = None,
     type_column: str | None = None,
     by_type: bool = False,
+    keep_types: tuple[str, ...] | None = None,
     lon: str | None = None,
     lat: str | None = None,
     x: str | None = None,
@@ -61,7 +62,7 @@ def count_and_store(
         A CSV (with ``lon``/``lat`` or ``x``/``y`` and ``crs``) or a point layer.
     pre, post : (start, end)
         The periods, both days included.
-    date_column, date_format, type_column, by_type, lon, lat, x, y, crs, layer
+    date_column, date_format, type_column, by_type, keep_types, lon, lat, x, y, crs, layer
         As in :func:`geoexp.outcomes.count_incidents`.
     tolerance_m : float
         Snapping tolerance in metres; 30 m is a common choice for street
@@ -95,6 +96,7 @@ def count_and_store(
         date_format=date_format,
         type_column=type_column,
         by_type=by_type,
+        keep_types=keep_types,
         lon=lon,
         lat=lat,
         x=x,

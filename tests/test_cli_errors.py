@@ -351,7 +351,7 @@ def test_unreadable_spec(command, kind, tmp_path):
 def test_unreadable_counts_table(kind, trial, tmp_path):
     table = bad_file(kind, tmp_path, ".csv")
     before = digest(trial)
-    result = invoke("counts", trial, "--table", table, "--pre", PRE, "--post", POST)
+    result = invoke("load-counts", trial, "--table", table, "--pre", PRE, "--post", POST)
     assert_refused(result, table.name, COUNTS_FAILURES[kind])
     assert digest(trial) == before
 

@@ -9,6 +9,7 @@ import numpy as np
 import pandas as pd
 
 from geoexp._engine import Engine
+from geoexp._progress import tracked
 from geoexp._rng import RngLike, as_seed_sequence
 from geoexp.errors import InputError
 from geoexp.exposure._kernels import scatter_counts, touched_codes_numpy
@@ -278,6 +279,7 @@ def exposure_probabilities(
     counts = np.zeros((graph.n, mapping.n_conditions), dtype=np.int64)
     sizes, sums = [], []
     seen = 0
+    advance = tracked("draws of the design", n_draws)
     for chunk in sampler.iter_chunks(n_draws, seq):
         c, s, x = scatter_counts(
             chunk.indptr,
@@ -293,6 +295,7 @@ def exposure_probabilities(
         )
         counts += c
         seen += chunk.indptr.size - 1
+        advance(chunk.indptr.size - 1)
         if cov is not None:
             sizes.append(s)
             sums.append(x)

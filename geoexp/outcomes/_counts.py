@@ -9,7 +9,11 @@ dropped for exactly one reason, checked in this order:
 4. ``outside periods`` -- the date is in neither period;
 5. ``outside tolerance`` -- no unit lies within the snapping tolerance.
 
-So counted plus dropped always equals the number of input rows. Periods are
+When only some incident types are counted (``keep_types``), an incident of
+another type is set aside as ``other incident type`` before any of these; such
+incidents are left out on purpose and do not count towards the share of
+incidents dropped by mistake. So counted plus dropped (or set aside) always
+equals the number of input rows. Periods are
 closed intervals of calendar dates, ``[start, end]``, both days included.
 """
 
@@ -20,7 +24,7 @@ import json
 import math
 import os
 import re
-from collections.abc import Callable
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Literal
@@ -46,7 +50,9 @@ REASONS = (
     "unparseable date",
     "outside periods",
     "outside tolerance",
+    "other incident type",
 )
+_SET_ASIDE = len(REASONS)  # the code of "other incident type": left out on purpose
 _FIELDS = tuple(r.replace(" ", "_") for r in REASONS)
 UNTYPED = "untyped"
 _LAYER = "outcomes"
@@ -142,6 +148,7 @@ class DropReport:
     unparseable_date: int = 0
     outside_periods: int = 0
     outside_tolerance: int = 0
+    other_incident_type: int = 0
     ties: int = 0
     tolerance_m: float | None = None
     source: str = ""
@@ -154,7 +161,7 @@ class DropReport:
 
     @property
     def n_dropped(self) -> int:
-        """Incidents dropped, all reasons together."""
+        """Incidents not counted, all reasons together (types left out included)."""
         return sum(self.counts().values())
 
     @property
@@ -175,6 +182,7 @@ class DropReport:
             "unparseable date": "had a date that could not be read",
             "outside periods": "had a date outside both periods",
             "outside tolerance": f"lay more than {tol} from every unit",
+            "other incident type": "were of a type not asked for",
         }
         where = f" from '{self.source}'" if self.source else ""
         text = (
@@ -250,6 +258,10 @@ class OutcomeTable:
         Incident types with their own columns, in column order.
     source : str
         Where the incidents or counts came from.
+    type_column : str or None
+        The incidents' column of types, if one was given.
+    kept_types : tuple of str
+        When only some incident types were counted, those types (else empty).
     """
 
     counts: pd.DataFrame
@@ -259,6 +271,8 @@ class OutcomeTable:
     drops: DropReport
     types: tuple[str, ...] = ()
     source: str = ""
+    type_column: str | None = None
+    kept_types: tuple[str, ...] = ()
 
     @classmethod
     def from_counts(
@@ -424,8 +438,19 @@ class OutcomeTable:
             lines.append(
                 f"  each incident snapped to the nearest unit within {self.tolerance_m:g} m"
             )
+        if self.kept_types:
+            lines.append(
+                f"  only incident types {', '.join(self.kept_types)} (column "
+                f"{self.type_column!r}) counted; other types were left out"
+            )
         if self.types:
-            lines.append(f"  by type: {', '.join(self.types)}")
+            lines.append(f"  by type (column {self.type_column!r}), pre and post incidents:"
+                         if self.type_column else "  by type, pre and post incidents:")
+            for label, (pre_col, post_col) in self.type_columns.items():
+                lines.append(
+                    f"    {label}: {int(self.counts[pre_col].sum()):,} pre, "
+                    f"{int(self.counts[post_col].sum()):,} post"
+                )
         lines.append("  " + str(self.drops))
         return "\n".join(lines)
 
@@ -451,6 +476,7 @@ def count_incidents(
     post: Period,
     type_column: str | None = None,
     by_type: bool = False,
+    keep_types: Sequence[str] | None = None,
     x: str | None = None,
     y: str | None = None,
     lon: str | None = None,
@@ -489,6 +515,11 @@ def count_incidents(
     by_type : bool
         Also count each type (columns ``pre__<type>``, ``post__<type>``;
         incidents without a type count as ``untyped``).
+    keep_types : sequence of str, optional
+        Count only incidents of these types (as written in ``type_column``,
+        which it needs); the others are set aside as ``other incident type``
+        and reported, and the choice is stored with the outcomes. A type that
+        no incident has is an error (a misspelt type would count nothing).
     x, y : str, optional
         Projected coordinate columns, in ``crs``.
     lon, lat : str, optional
@@ -555,6 +586,12 @@ def count_incidents(
         raise InputError(f"tolerance_m must be a number of metres >= 0, got {tolerance_m!r}")
     if by_type and type_column is None:
         raise InputError("by_type=True needs type_column=, the column of incident types")
+    if keep_types is not None:
+        if type_column is None:
+            raise InputError("keep_types= needs type_column=, the column of incident types")
+        keep_types = tuple(dict.fromkeys(str(t) for t in keep_types))
+        if not keep_types:
+            raise InputError("keep_types= names no incident type")
     rows = read_incidents(
         incidents,
         units.crs,
@@ -578,6 +615,16 @@ def count_incidents(
     reason[rows.date_problem == DATE_UNPARSEABLE] = 3
     reason[rows.date_problem == DATE_MISSING] = 2
     reason[~located] = 1
+    if keep_types is not None:
+        present = set(pd.unique(rows.types[~pd.isna(rows.types)]).tolist())
+        unknown = [t for t in keep_types if t not in present]
+        if unknown:
+            raise InputError(
+                f"column {type_column!r} of the incidents '{rows.source}' has no incident of "
+                f"type {', '.join(map(repr, unknown))}; its types are "
+                f"{', '.join(map(repr, sorted(present))) or 'none'}"
+            )
+        reason[~np.isin(rows.types.astype(object), np.array(keep_types, dtype=object))] = _SET_ASIDE
 
     candidates = np.flatnonzero(reason == 0)
     geometry = np.asarray(units.geometry.array, dtype=object)
@@ -603,6 +650,9 @@ def count_incidents(
     names: dict[str, str] = {}
     if by_type:
         labels = rows.types.copy()
+        if keep_types is not None:
+            # never counted: any kept label keeps them from adding an "untyped" column
+            labels[reason == _SET_ASIDE] = keep_types[0]
         labels[pd.isna(labels)] = UNTYPED
         codes, uniques = pd.factorize(labels, sort=True)
         types = tuple(str(u) for u in uniques)
@@ -626,7 +676,13 @@ def count_incidents(
     per_reason = np.bincount(reason, minlength=len(REASONS) + 1)[1:]
     if max_dropped_share is not None:
         _stop_if_mostly_dropped(
-            rows, units, per_reason, in_pre, in_post, (pre_d, post_d), float(max_dropped_share)
+            rows,
+            units,
+            per_reason,
+            in_pre & (reason != _SET_ASIDE),
+            in_post & (reason != _SET_ASIDE),
+            (pre_d, post_d),
+            float(max_dropped_share),
         )
     written = None
     if dropped_path is not None:
@@ -641,7 +697,17 @@ def count_incidents(
         dropped_path=written,
         max_dropped_share=None if max_dropped_share is None else float(max_dropped_share),
     )
-    return OutcomeTable(counts, pre_d, post_d, float(tolerance_m), drops, types, rows.source)
+    return OutcomeTable(
+        counts,
+        pre_d,
+        post_d,
+        float(tolerance_m),
+        drops,
+        types,
+        rows.source,
+        type_column=type_column,
+        kept_types=() if keep_types is None else keep_types,
+    )
 
 
 def _likely_cause(
@@ -705,15 +771,22 @@ def _stop_if_mostly_dropped(
     max_share: float,
 ) -> None:
     """Refuse counts that would silently make a wrong analysis (see ``max_dropped_share``)."""
-    n = rows.n
+    # incidents of types left out on purpose are neither counted nor mistakes
+    aside = int(per_reason[_SET_ASIDE - 1])
+    per_reason = per_reason.copy()
+    per_reason[_SET_ASIDE - 1] = 0
+    n = rows.n - aside
     n_dropped = int(per_reason.sum())
     where = f"the incidents '{rows.source}'"
     by_reason = "; ".join(f"{int(k):,} {r}" for r, k in zip(REASONS, per_reason, strict=True) if k)
-    tally = f"{n:,} read, {n - n_dropped:,} counted, {n_dropped:,} dropped" + (
+    left_out = f"{aside:,} of other types left out, " if aside else ""
+    tally = f"{rows.n:,} read, {left_out}{n - n_dropped:,} counted, {n_dropped:,} dropped" + (
         f" ({by_reason})" if by_reason else ""
     )
-    if n == 0:
+    if rows.n == 0:
         raise InputError(f"{where} hold no incidents (no rows below the header): nothing to count")
+    if n == 0:
+        raise InputError(f"{where} hold no incident of the types asked for: nothing to count")
     dated = ~np.isnat(rows.dates)
     for name, period, inside in (("pre", periods[0], in_pre), ("post", periods[1], in_post)):
         if not (inside & dated).any():
@@ -806,6 +879,8 @@ def save_outcomes(
         "outcomes_post": f"{table.post[0]}/{table.post[1]}",
         "outcomes_tolerance_m": "" if table.tolerance_m is None else repr(table.tolerance_m),
         "outcomes_types": json.dumps(list(table.types)),
+        "outcomes_type_column": table.type_column or "",
+        "outcomes_kept_types": json.dumps(list(table.kept_types)),
         "outcomes_drops": json.dumps({**d.counts(), "n_incidents": d.n_incidents, "ties": d.ties}),
         "outcomes_source": table.source,
         "outcomes_dropped_path": d.dropped_path or "",
@@ -859,10 +934,20 @@ def load_outcomes(trial: TrialFile | str | os.PathLike) -> OutcomeTable:
     stored = json.loads(meta["outcomes_drops"])
     drops = DropReport(
         n_incidents=int(stored["n_incidents"]),
-        **{f: int(stored[r]) for r, f in zip(REASONS, _FIELDS, strict=True)},
+        **{f: int(stored.get(r, 0)) for r, f in zip(REASONS, _FIELDS, strict=True)},
         ties=int(stored["ties"]),
         tolerance_m=tol,
         source=meta.get("outcomes_source", ""),
         dropped_path=meta.get("outcomes_dropped_path") or None,
     )
-    return OutcomeTable(counts, pre, post, tol, drops, types, meta.get("outcomes_source", ""))
+    return OutcomeTable(
+        counts,
+        pre,
+        post,
+        tol,
+        drops,
+        types,
+        meta.get("outcomes_source", ""),
+        type_column=meta.get("outcomes_type_column") or None,
+        kept_types=tuple(json.loads(meta.get("outcomes_kept_types") or "[]")),
+    )
