@@ -150,11 +150,14 @@ class AnalysisRun:
 
 
 def report_outputs(report: PathLike, result_map: PathLike | None = None) -> dict[str, Path]:
-    """Return the files :func:`analyse_trial` writes for ``report``: HTML, Markdown twin, map."""
+    """Return the files :func:`analyse_trial` writes for ``report``: HTML, Markdown twin, map.
+
+    The results map is ``results_map.html`` beside ``report.html`` (as in the
+    demo), and ``<stem>_results_map.html`` beside a report of another name.
+    """
     report = Path(report)
-    map_path = (
-        report.with_name(f"{report.stem}_map.html") if result_map is None else Path(result_map)
-    )
+    name = "results_map.html" if report.stem == "report" else f"{report.stem}_results_map.html"
+    map_path = report.with_name(name) if result_map is None else Path(result_map)
     return {"report": report, "report_md": report.with_suffix(".md"), "result_map": map_path}
 
 
@@ -184,8 +187,8 @@ def analyse_trial(
     report : path
         The HTML report; the Markdown twin is the same name with ``.md``.
     result_map : path, optional
-        The interactive results map; default ``<report stem>_map.html``
-        beside the report.
+        The interactive results map; default ``results_map.html`` beside
+        ``report.html``, else ``<report stem>_results_map.html``.
     outcome, estimator, n_draws, level
         As in :func:`geoexp.analysis.analyse`.
     districts : path or GeoDataFrame, optional

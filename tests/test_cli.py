@@ -126,7 +126,7 @@ def test_analyse_counts_with_the_date_format_given(tmp_path, demo_outputs):
     done = CliRunner().invoke(app, [*args, "--date-format", "dmy"])
     assert done.exit_code == 0, done.output
     assert (tmp_path / "r.html").exists() and (tmp_path / "r.md").exists()
-    assert (tmp_path / "r_map.html").exists()
+    assert (tmp_path / "r_results_map.html").exists()
     # The same incidents counted from ISO dates give the same stored counts.
     from geoexp.trialfile import TrialFile
 

@@ -96,8 +96,8 @@ def overwrite_cases():
         ),
         (
             "analyse-report-map-trial",
-            lambda t, f, d: ["analyse", renamed(t, "r_map.html"), "--report", d / "r.html"],
-            "r_map.html",
+            lambda t, f, d: ["analyse", renamed(t, "r_results_map.html"), "--report", d / "r.html"],
+            "r_results_map.html",
             "results map",
         ),
         ("export-csv-trial", lambda t, f, d: ["export", t, "--csv", t], "trial", "--csv"),

@@ -16,7 +16,17 @@ ROOT = Path(__file__).resolve().parents[1] / "geoexp"
 
 # Bottom to top. A package may import packages of its own layer or of lower layers only.
 LAYERS: list[set[str]] = [
-    {"errors", "_rng", "_atomic", "_optional", "cautions", "_tables", "_engine", "_paths", "_progress"},
+    {
+        "errors",
+        "_rng",
+        "_atomic",
+        "_optional",
+        "cautions",
+        "_tables",
+        "_engine",
+        "_paths",
+        "_progress",
+    },
     # core helpers
     {"sampleregion"},  # invented data for the demo and benchmarks; no library code depends on it
     {"units"},

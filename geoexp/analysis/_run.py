@@ -315,7 +315,8 @@ def analyse(
         verdicts.append(verdict)
         if e.n_excluded:
             notes.append(
-                f"{e.contrast}: {e.n_excluded} units left out because they can be "
+                f"{e.contrast}: {e.n_excluded:,} unit{'' if e.n_excluded == 1 else 's'} left out "
+                "because they can be "
                 f"{mapping.labels[k]} but never {mapping.labels[pc]} under this design (positivity)"
             )
     displacement = []

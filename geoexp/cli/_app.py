@@ -10,7 +10,6 @@ from rich.console import Console
 from geoexp._paths import check_outputs, writing
 from geoexp.cli._failures import ClickException, GeoexpGroup, UserError, as_click_error
 from geoexp.cli._inputs import load_spec, read_counts_csv, spec_inputs
-from geoexp.cli._progress_bars import progress_shown
 from geoexp.cli._options import (
     MAX_DRAWS,
     EstimatorChoice,
@@ -19,6 +18,7 @@ from geoexp.cli._options import (
     open_share,
     positive_metres,
 )
+from geoexp.cli._progress_bars import progress_shown
 from geoexp.errors import InputError
 
 app = typer.Typer(
@@ -56,7 +56,10 @@ def _root(
     version: Annotated[
         bool,
         typer.Option(
-            "--version", help="Print geoexp's version and exit.", callback=_show_version, is_eager=True
+            "--version",
+            help="Print geoexp's version and exit.",
+            callback=_show_version,
+            is_eager=True,
         ),
     ] = False,
 ) -> None:
@@ -234,7 +237,7 @@ def export_command(
     check_outputs({"--csv": csv}, {}, trial=trial)
     with writing(csv, "field list"):
         out = export_assignment_csv(trial, csv)
-    console.print(f"{len(out)} units written to {csv}")
+    console.print(f"{len(out):,} unit{'' if len(out) == 1 else 's'} written to {csv}")
 
 
 def _refuse_trial_file(path: Path, option: str) -> None:

@@ -7,6 +7,7 @@ from typing import Annotated
 
 import typer
 
+from geoexp._tables import text_table
 from geoexp.cli._app import (
     OldDrawsOpt,
     QuietOpt,
@@ -117,6 +118,7 @@ def power_command(
     from geoexp.design import Design
     from geoexp.power import NegativeBinomialOutcome, compare_designs, simulate_power
 
+    ratios = _effects(rate_ratio, "--rate-ratio")
     sims = renamed_option(simulated_trials, sims, "--sims", "--simulated-trials")
     draws = renamed_option(test_draws, draws, "--draws", "--test-draws")
     design = Design.from_spec(load_spec(spec))
@@ -124,7 +126,7 @@ def power_command(
     model = NegativeBinomialOutcome(
         baseline=baseline_column,
         dispersion=dispersion,
-        rate_ratios=_effects(rate_ratio, "--rate-ratio"),
+        rate_ratios=ratios,
     )
     common = dict(n_sims=sims, n_draws=draws, alpha=alpha, outcome=outcome.value, rng=seed)
     with progress_shown(quiet):
@@ -140,4 +142,5 @@ def power_command(
         console.print("")
         console.print("Designs compared (power, Monte Carlo error, units per contrast):")
         shown = table.loc[:, (slice(None), ["power", "mc_error", "n_units"])]
-        console.print(shown.to_string(float_format=lambda v: f"{v:.3f}"), markup=False)
+        shown = shown.rename(index=lambda c: str(c).replace("spillover_", "spillover band "))
+        console.print(text_table(shown), markup=False)

@@ -9,7 +9,7 @@ import numpy as np
 import pandas as pd
 
 from geoexp._rng import Stream
-from geoexp._tables import markdown_table
+from geoexp._tables import markdown_table, plural, text_table
 from geoexp.errors import DesignError
 from geoexp.exposure import ExposureProbabilities, PositivityReport
 
@@ -67,24 +67,23 @@ class DesignCheck:
     autocorrelation: object = None
 
     def __str__(self) -> str:
-        fmt = {"float_format": lambda v: f"{v:.3f}"}
         parts = [
             f"Design check: {self.name} (design {self.spec_hash[:12]})",
-            f"{self.n_units} units, {self.n_eligible} eligible; {self.n_draws} Monte Carlo draws "
-            "of the design's own sampler.",
+            f"{plural(self.n_units, 'unit')}, {self.n_eligible:,} eligible; "
+            f"{plural(self.n_draws, 'Monte Carlo draw')} of the design's own sampler.",
             "",
             "Expected units per condition:",
-            self.expected.to_string(**fmt),
+            text_table(self.expected),
             "",
             "Exposure probabilities (units that can be in each condition):",
-            self.probability_summary.to_string(**fmt),
+            text_table(self.probability_summary),
             "",
             str(self.positivity),
             "",
             str(self.autocorrelation) if self.autocorrelation is not None else "",
             "",
             "Balance (standardized differences; |d| > 0.1 is flagged):",
-            self.balance.to_string(**fmt) if len(self.balance) else "  (no covariates)",
+            text_table(self.balance) if len(self.balance) else "  (no covariates)",
             "",
             "Verdict:",
             *(f"- {line}" for line in self.verdict),
@@ -98,8 +97,8 @@ class DesignCheck:
             [
                 f"## Design check: {self.name}",
                 "",
-                f"Design `{self.spec_hash[:12]}`; {self.n_units} units, {self.n_eligible} eligible; "
-                f"{self.n_draws} draws.",
+                f"Design `{self.spec_hash[:12]}`; {plural(self.n_units, 'unit')}, "
+                f"{self.n_eligible:,} eligible; {plural(self.n_draws, 'draw')}.",
                 "",
                 "### Expected units per condition",
                 markdown_table(self.expected),
@@ -297,12 +296,12 @@ def _verdict(design, probs, expected, positivity, balance) -> list[str]:
     exp_c = expected["expected_eligible"].iloc[pc]
     line = (
         f"Direct effect (treated vs pure control): about {exp_t:.0f} treated and {exp_c:.0f} "
-        f"eligible pure controls per draw; {direct.n_units} units can be in either."
+        f"eligible pure controls per draw; {plural(direct.n_units, 'unit')} can be in either."
     )
     if direct.exposure_only:
         line += (
-            f" {len(direct.exposure_only)} eligible units can never be pure controls (always near "
-            "a treated unit) and fall out of this estimate."
+            f" {plural(len(direct.exposure_only), 'eligible unit')} can never be pure controls "
+            "(always near a treated unit) and fall out of this estimate."
         )
     if exp_c < MIN_EXPECTED_UNITS or exp_t < MIN_EXPECTED_UNITS:
         line += " Too few units on one side: the direct effect cannot be estimated reliably."
@@ -314,10 +313,13 @@ def _verdict(design, probs, expected, positivity, balance) -> list[str]:
         e_k = expected["expected_units"].iloc[k]
         line = (
             f"Spillover, {mapping.labels[k]} (vs pure control): about {e_k:.0f} units per draw in "
-            f"this band; {c.n_units} units can be in either."
+            f"this band; {plural(c.n_units, 'unit')} can be in either."
         )
         if c.exposure_only:
-            line += f" {len(c.exposure_only)} units can be in this band but never pure controls; they fall out."
+            line += (
+                f" {plural(len(c.exposure_only), 'unit')} can be in this band but never pure "
+                "controls; they fall out."
+            )
         if e_k < MIN_EXPECTED_UNITS or c.n_units < MIN_EXPECTED_UNITS:
             line += " Too few units: this band's spillover cannot be estimated reliably."
         else:
@@ -328,7 +330,7 @@ def _verdict(design, probs, expected, positivity, balance) -> list[str]:
         small = both & ((p[:, k] < SMALL_PROBABILITY) | (p[:, pc] < SMALL_PROBABILITY))
         if small.sum() > 0.2 * max(both.sum(), 1):
             lines.append(
-                f"{int(small.sum())} of {int(both.sum())} units in the {mapping.labels[k]} contrast "
+                f"{int(small.sum()):,} of {plural(int(both.sum()), 'unit')} in the {mapping.labels[k]} contrast "
                 f"have a probability below {SMALL_PROBABILITY} of one condition; their weights exceed "
                 f"{1 / SMALL_PROBABILITY:.0f} and will make that estimate noisy."
             )
@@ -348,7 +350,7 @@ def _verdict(design, probs, expected, positivity, balance) -> list[str]:
                     f"(d = {row['drawn']:+.2f} against {row['mean_over_draws']:+.2f} on average)."
                 )
     lines.append(
-        f"Units that can never be treated ({int((~elig).sum())} non-eligible units) enter only as "
+        f"Units that can never be treated ({plural(int((~elig).sum()), 'non-eligible unit')}) enter only as "
         "spillover or pure-control units; the design says nothing about treating them."
     )
     return lines

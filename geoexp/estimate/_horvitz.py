@@ -57,8 +57,8 @@ class ContrastEstimate:
         return (
             f"{self.contrast} ({self.estimator}, {self.outcome}): {self.estimate:+.3f} "
             f"(SE {self.std_error:.3f}; {pct}% CI {self.ci_low:+.3f} to {self.ci_high:+.3f}); "
-            f"{self.n_exposure} exposed and {self.n_reference} reference units observed of "
-            f"{self.n_units} in the estimand, {self.n_excluded} excluded by positivity"
+            f"{self.n_exposure:,} exposed and {self.n_reference:,} reference units observed of "
+            f"{self.n_units:,} in the estimand, {self.n_excluded:,} excluded by positivity"
         )
 
     def to_frame(self) -> pd.DataFrame:

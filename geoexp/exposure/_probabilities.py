@@ -181,10 +181,11 @@ class ContrastPositivity:
 
     def __str__(self) -> str:
         lost = len(self.exposure_only)
-        text = f"{self.exposure} vs {self.reference}: {self.n_units} units can be in either"
+        units = f"{self.n_units:,} unit{'' if self.n_units == 1 else 's'}"
+        text = f"{self.exposure} vs {self.reference}: {units} can be in either"
         if lost:
             shown = ", ".join(map(str, self.exposure_only[:10])) + (" ..." if lost > 10 else "")
-            text += f"; {lost} can be {self.exposure} but never {self.reference} ({shown})"
+            text += f"; {lost:,} can be {self.exposure} but never {self.reference} ({shown})"
         return text
 
 

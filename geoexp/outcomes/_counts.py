@@ -187,9 +187,15 @@ class DropReport:
         where = f" from '{self.source}'" if self.source else ""
         text = (
             f"Of {self.n_incidents:,} incident{'' if self.n_incidents == 1 else 's'}{where}, {self.n_counted:,} were counted and "
-            f"{self.n_dropped:,} dropped"
+            f"{self.n_dropped - self.other_incident_type:,} dropped"
         )
-        parts = [f"{n:,} {words[r]} ({r})" for r, n in self.counts().items() if n]
+        if self.other_incident_type:
+            text += f" ({self.other_incident_type:,} more were of other types, left out on purpose)"
+        parts = [
+            f"{n:,} {words[r]} ({r})"
+            for r, n in self.counts().items()
+            if n and r != "other incident type"
+        ]
         text += (": " + "; ".join(parts) + ".") if parts else "."
         if self.ties:
             who = "incident was" if self.ties == 1 else "incidents were"
@@ -444,8 +450,11 @@ class OutcomeTable:
                 f"{self.type_column!r}) counted; other types were left out"
             )
         if self.types:
-            lines.append(f"  by type (column {self.type_column!r}), pre and post incidents:"
-                         if self.type_column else "  by type, pre and post incidents:")
+            lines.append(
+                f"  by type (column {self.type_column!r}), pre and post incidents:"
+                if self.type_column
+                else "  by type, pre and post incidents:"
+            )
             for label, (pre_col, post_col) in self.type_columns.items():
                 lines.append(
                     f"    {label}: {int(self.counts[pre_col].sum()):,} pre, "
