@@ -244,6 +244,8 @@ def bad_input_cases(files, tmp):
         ["load-counts", files["trial"], "--table", tmp / "one.csv", "--pre-column", "x", *PERIODS],
         ["analyse", files["bare_trial"], "--report", tmp / "r.html"],
         ["power", files["spec"]],
+        ["map", files["spec"], "--out", tmp / "m.html"],
+        ["briefing", files["spec"], "--out", tmp / "b.pdf"],
         ["check", files["spec"], "--balance", "no_such_column", "--design-draws", "20"],
     ]  # fmt: skip
     return cases
@@ -299,6 +301,7 @@ def test_every_error_message_names_options_not_python_keywords(error_files, tmp_
           "--post", PRE], "--pre"),
         (["load-counts", "TRIAL", "--table", "ONE", *PERIODS], "--fill-missing"),
         (["analyse", "BARE", "--report", "REPORT"], "geoexp count"),
+        (["map", "SPEC", "--out", "MAP"], "--draw-only"),
     ],
 )  # fmt: skip
 def test_library_refusals_say_which_option_fixes_them(args, option, error_files, tmp_path):
@@ -310,6 +313,8 @@ def test_library_refusals_say_which_option_fixes_them(args, option, error_files,
         "ONE": tmp_path / "one.csv",
         "BARE": error_files["bare_trial"],
         "REPORT": tmp_path / "r.html",
+        "SPEC": error_files["spec"],
+        "MAP": tmp_path / "m.html",
     }
     result = invoke(*[names.get(a, a) for a in args])
     assert result.exit_code == 2
