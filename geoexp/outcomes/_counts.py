@@ -50,9 +50,10 @@ REASONS = (
     "unparseable date",
     "outside periods",
     "outside tolerance",
-    "other incident type",
 )
-_SET_ASIDE = len(REASONS)  # the code of "other incident type": left out on purpose
+# Not a drop reason: incidents of types not asked for (keep_types) are left out on purpose.
+SET_ASIDE = "other incident type"
+_SET_ASIDE = len(REASONS) + 1  # its code
 _FIELDS = tuple(r.replace(" ", "_") for r in REASONS)
 UNTYPED = "untyped"
 _LAYER = "outcomes"
@@ -161,13 +162,13 @@ class DropReport:
 
     @property
     def n_dropped(self) -> int:
-        """Incidents not counted, all reasons together (types left out included)."""
+        """Incidents dropped, all reasons together (types left out on purpose are not drops)."""
         return sum(self.counts().values())
 
     @property
     def n_counted(self) -> int:
         """Incidents counted on a unit in one of the periods."""
-        return self.n_incidents - self.n_dropped
+        return self.n_incidents - self.n_dropped - self.other_incident_type
 
     def to_frame(self) -> pd.DataFrame:
         """One row per reason with the number of incidents dropped for it."""
@@ -182,20 +183,15 @@ class DropReport:
             "unparseable date": "had a date that could not be read",
             "outside periods": "had a date outside both periods",
             "outside tolerance": f"lay more than {tol} from every unit",
-            "other incident type": "were of a type not asked for",
         }
         where = f" from '{self.source}'" if self.source else ""
         text = (
             f"Of {self.n_incidents:,} incident{'' if self.n_incidents == 1 else 's'}{where}, {self.n_counted:,} were counted and "
-            f"{self.n_dropped - self.other_incident_type:,} dropped"
+            f"{self.n_dropped:,} dropped"
         )
         if self.other_incident_type:
             text += f" ({self.other_incident_type:,} more were of other types, left out on purpose)"
-        parts = [
-            f"{n:,} {words[r]} ({r})"
-            for r, n in self.counts().items()
-            if n and r != "other incident type"
-        ]
+        parts = [f"{n:,} {words[r]} ({r})" for r, n in self.counts().items() if n]
         text += (": " + "; ".join(parts) + ".") if parts else "."
         if self.ties:
             who = "incident was" if self.ties == 1 else "incidents were"
@@ -682,7 +678,7 @@ def count_incidents(
     )
     counts.index.name = units.id_column
 
-    per_reason = np.bincount(reason, minlength=len(REASONS) + 1)[1:]
+    per_reason = np.bincount(reason, minlength=len(REASONS) + 2)[1:]  # the last: set aside
     if max_dropped_share is not None:
         _stop_if_mostly_dropped(
             rows,
@@ -699,7 +695,8 @@ def count_incidents(
         _write_dropped(rows, reason, written)
     drops = DropReport(
         n_incidents=rows.n,
-        **{f: int(n) for f, n in zip(_FIELDS, per_reason, strict=True)},
+        **{f: int(n) for f, n in zip(_FIELDS, per_reason[: len(REASONS)], strict=True)},
+        other_incident_type=int(per_reason[_SET_ASIDE - 1]),
         ties=int(snapped.tied[snapped.unit >= 0].sum()),
         tolerance_m=float(tolerance_m),
         source=rows.source,
@@ -782,8 +779,7 @@ def _stop_if_mostly_dropped(
     """Refuse counts that would silently make a wrong analysis (see ``max_dropped_share``)."""
     # incidents of types left out on purpose are neither counted nor mistakes
     aside = int(per_reason[_SET_ASIDE - 1])
-    per_reason = per_reason.copy()
-    per_reason[_SET_ASIDE - 1] = 0
+    per_reason = per_reason[: len(REASONS)]
     n = rows.n - aside
     n_dropped = int(per_reason.sum())
     where = f"the incidents '{rows.source}'"
@@ -825,7 +821,7 @@ def _stop_if_mostly_dropped(
 
 
 def _write_dropped(rows: IncidentRows, reason: np.ndarray, path: str) -> None:
-    positions = np.flatnonzero(reason > 0)
+    positions = np.flatnonzero((reason > 0) & (reason != _SET_ASIDE))
     out = pd.DataFrame(rows.frame.iloc[positions]).copy()
     geometry = getattr(rows.frame, "geometry", None) if "geometry" in rows.frame else None
     if geometry is not None:
@@ -890,7 +886,14 @@ def save_outcomes(
         "outcomes_types": json.dumps(list(table.types)),
         "outcomes_type_column": table.type_column or "",
         "outcomes_kept_types": json.dumps(list(table.kept_types)),
-        "outcomes_drops": json.dumps({**d.counts(), "n_incidents": d.n_incidents, "ties": d.ties}),
+        "outcomes_drops": json.dumps(
+            {
+                **d.counts(),
+                SET_ASIDE: d.other_incident_type,
+                "n_incidents": d.n_incidents,
+                "ties": d.ties,
+            }
+        ),
         "outcomes_source": table.source,
         "outcomes_dropped_path": d.dropped_path or "",
     }
@@ -943,7 +946,8 @@ def load_outcomes(trial: TrialFile | str | os.PathLike) -> OutcomeTable:
     stored = json.loads(meta["outcomes_drops"])
     drops = DropReport(
         n_incidents=int(stored["n_incidents"]),
-        **{f: int(stored.get(r, 0)) for r, f in zip(REASONS, _FIELDS, strict=True)},
+        **{f: int(stored[r]) for r, f in zip(REASONS, _FIELDS, strict=True)},
+        other_incident_type=int(stored.get(SET_ASIDE, 0)),
         ties=int(stored["ties"]),
         tolerance_m=tol,
         source=meta.get("outcomes_source", ""),
