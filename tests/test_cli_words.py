@@ -27,10 +27,10 @@ PERIODS = ["--pre", PRE, "--post", POST]
 
 WORKFLOW = [
     "sample-region",
-    "map",
     "draw",
     "check",
     "power",
+    "map",
     "briefing",
     "export",
     "count",
@@ -157,6 +157,10 @@ def test_types_count_only_the_types_asked_for(trial, demo_outputs, tmp_path):
     reference = load_outcomes(other)
     pd.testing.assert_frame_equal(kept.counts[["pre", "post"]], reference.counts[["pre", "post"]])
     assert kept.drops.other_incident_type == len(frame) - len(only)
+    # the choice is said in the analysis too
+    analysed = invoke("analyse", trial, "--report", tmp_path / "r.html", "--test-draws", "20")
+    assert analysed.exit_code == 0, analysed.output
+    assert "only incidents of type burglary, robbery" in words(analysed)
     # per-type columns add up to the totals
     pre_cols = [c for c, _ in kept.type_columns.values()]
     assert (kept.counts[pre_cols].sum(axis=1) == kept.counts["pre"]).all()

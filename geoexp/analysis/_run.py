@@ -336,6 +336,12 @@ def analyse(
     per_unit["change"] = post - pre
     for k, code in enumerate(mapping.codes):
         per_unit[f"p_{code}"] = probs[:, k]
+    kept = getattr(outcomes, "kept_types", ())
+    if kept:
+        notes.append(
+            f"only incidents of type {', '.join(kept)} (column "
+            f"{getattr(outcomes, 'type_column', None)!r}) were counted; other types were left out"
+        )
     drops = getattr(outcomes, "drops", None)
     if drops is not None and getattr(drops, "n_dropped", 0):
         notes.append(f"incidents not counted: {drops}")

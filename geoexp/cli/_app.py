@@ -21,9 +21,27 @@ from geoexp.cli._options import (
 from geoexp.cli._progress_bars import progress_shown
 from geoexp.errors import InputError
 
+# The commands in the order of the job, under the heading of their step, as `geoexp --help`
+# lists them. Register a new command here (one name in its step); a command not listed is
+# shown last, under "Other commands".
+WORKFLOW = (
+    ("Plan and design", ("sample-region", "draw")),
+    ("Check the design", ("check",)),
+    ("Power of the design", ("power",)),
+    ("Maps and field outputs", ("map", "briefing", "export")),
+    ("Count incidents", ("count", "load-counts")),
+    ("Analyse and report", ("analyse",)),
+    ("The whole job on the sample city", ("demo",)),
+)
+
+
+class _WorkflowGroup(GeoexpGroup):
+    workflow = WORKFLOW
+
+
 app = typer.Typer(
     name="geoexp",
-    cls=GeoexpGroup,
+    cls=_WorkflowGroup,
     help=(
         "Plan and analyse randomized field trials over street segments and parcels, "
         "with spillover between nearby places. geoexp supports, but does not replace, ethics "

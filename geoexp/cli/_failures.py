@@ -112,32 +112,25 @@ def as_click_error(err: BaseException, keywords: dict[str, str] | None = None) -
     return unexpected(err)
 
 
-# The commands in the order of the job, under the heading of their step. A command not listed
-# here is shown under "Other commands", in the order it was registered.
-WORKFLOW = (
-    ("Plan and design", ("sample-region", "map", "draw")),
-    ("Check the design", ("check",)),
-    ("Power of the design", ("power",)),
-    ("Field outputs", ("briefing", "export")),
-    ("Count incidents", ("count", "load-counts")),
-    ("Analyse and report", ("analyse",)),
-    ("The whole job on the sample city", ("demo",)),
-)
-
-
 class GeoexpGroup(TyperGroup):
-    """The command group: commands listed in workflow order, failures through :func:`as_click_error`."""
+    """The command group: commands listed in workflow order, failures through :func:`as_click_error`.
+
+    ``workflow`` holds (heading, command names) pairs in the order of the job; a
+    command not listed there is shown last, under "Other commands".
+    """
+
+    workflow: tuple[tuple[str, tuple[str, ...]], ...] = ()
 
     def list_commands(self, ctx):  # noqa: D102  (click's interface)
         registered = list(self.commands)
-        ordered = [name for _, names in WORKFLOW for name in names if name in self.commands]
+        ordered = [name for _, names in self.workflow for name in names if name in self.commands]
         return ordered + [name for name in registered if name not in ordered]
 
     def format_commands(self, ctx, formatter) -> None:
         """List the commands under the step of the job they belong to, one line each."""
         listed = set()
         sections = []
-        for title, names in (*WORKFLOW, ("Other commands", tuple(self.list_commands(ctx)))):
+        for title, names in (*self.workflow, ("Other commands", tuple(self.list_commands(ctx)))):
             rows = []
             for name in names:
                 command = self.get_command(ctx, name)
