@@ -38,8 +38,8 @@ class MoranResult:
         return (
             f"Moran's I = {self.statistic:+.3f} among units within {self.distance:g} m "
             f"(expected {self.expected:+.4f} without spatial autocorrelation; permutation "
-            f"p = {self.p_value:.4f} ± {self.mc_error:.4f}, {self.n_draws} draws; "
-            f"{self.n_isolated} of {self.n_units} units have no neighbour and are left out)"
+            f"p = {self.p_value:.4f} ± {self.mc_error:.4f}, {self.n_draws:,} draws; "
+            f"{self.n_isolated:,} of {self.n_units:,} units have no neighbour and are left out)"
         )
 
 

@@ -80,4 +80,4 @@ def describe_rows(rows: Iterable[object], limit: int = 10) -> str:
     rows = list(rows)
     shown = ", ".join(repr(r) if isinstance(r, str) else str(r) for r in rows[:limit])
     rest = len(rows) - limit
-    return shown + (f" (and {rest} more)" if rest > 0 else "")
+    return shown + (f" (and {rest:,} more)" if rest > 0 else "")

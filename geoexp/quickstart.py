@@ -69,7 +69,7 @@ def run_demo(out: str | Path, *, n_draws: int = 2000, echo: Callable[[str], None
         region_path = out / "quillmere.gpkg"
         write_sample_region(region, region_path)
     echo(
-        f"Sample region: {region.name} ({len(region.segments)} street segments) from {region_path}"
+        f"Sample region: {region.name} ({len(region.segments):,} street segments) from {region_path}"
     )
 
     # An exclusion zone as a planner would draw it on the web map (WGS 84 lon/lat).
@@ -134,7 +134,10 @@ def run_demo(out: str | Path, *, n_draws: int = 2000, echo: Callable[[str], None
     # incidents are exported as an agency would: a CSV with longitude and latitude.
     echo(
         "Simulating the trial year 2026 (invented incidents with a planted effect: "
-        + ", ".join(f"{k} x{v}" for k, v in DEMO_MULTIPLIERS.items())
+        + ", ".join(
+            f"{'spillover band ' + k.split('_')[1] if k.startswith('spillover_') else k} x{v}"
+            for k, v in DEMO_MULTIPLIERS.items()
+        )
         + ")"
     )
     simulated = simulate_trial_incidents(region, trial.assignment()["condition"])
@@ -177,7 +180,7 @@ def run_demo(out: str | Path, *, n_draws: int = 2000, echo: Callable[[str], None
         run.report_md,
         run.result_map,
     )
-    echo(f"Interactive result map: {results_map}")
+    echo(f"Interactive results map: {results_map}")
     echo(str(analysis))
     echo(f"Report: {report} (Markdown twin: {report_md})")
     echo(CAUTION)

@@ -41,6 +41,7 @@ def count_and_store(
     date_format: str | None = None,
     type_column: str | None = None,
     by_type: bool = False,
+    keep_types: tuple[str, ...] | None = None,
     lon: str | None = None,
     lat: str | None = None,
     x: str | None = None,
@@ -61,7 +62,7 @@ def count_and_store(
         A CSV (with ``lon``/``lat`` or ``x``/``y`` and ``crs``) or a point layer.
     pre, post : (start, end)
         The periods, both days included.
-    date_column, date_format, type_column, by_type, lon, lat, x, y, crs, layer
+    date_column, date_format, type_column, by_type, keep_types, lon, lat, x, y, crs, layer
         As in :func:`geoexp.outcomes.count_incidents`.
     tolerance_m : float
         Snapping tolerance in metres; 30 m is a common choice for street
@@ -95,6 +96,7 @@ def count_and_store(
         date_format=date_format,
         type_column=type_column,
         by_type=by_type,
+        keep_types=keep_types,
         lon=lon,
         lat=lat,
         x=x,
@@ -155,11 +157,14 @@ class AnalysisRun:
 
 
 def report_outputs(report: PathLike, result_map: PathLike | None = None) -> dict[str, Path]:
-    """Return the files :func:`analyse_trial` writes for ``report``: HTML, Markdown twin, map."""
+    """Return the files :func:`analyse_trial` writes for ``report``: HTML, Markdown twin, map.
+
+    The results map is ``results_map.html`` beside ``report.html`` (as in the
+    demo), and ``<stem>_results_map.html`` beside a report of another name.
+    """
     report = Path(report)
-    map_path = (
-        report.with_name(f"{report.stem}_map.html") if result_map is None else Path(result_map)
-    )
+    name = "results_map.html" if report.stem == "report" else f"{report.stem}_results_map.html"
+    map_path = report.with_name(name) if result_map is None else Path(result_map)
     return {"report": report, "report_md": report.with_suffix(".md"), "result_map": map_path}
 
 
@@ -189,8 +194,8 @@ def analyse_trial(
     report : path
         The HTML report; the Markdown twin is the same name with ``.md``.
     result_map : path, optional
-        The interactive results map; default ``<report stem>_map.html``
-        beside the report.
+        The interactive results map; default ``results_map.html`` beside
+        ``report.html``, else ``<report stem>_results_map.html``.
     outcome, estimator, n_draws, level
         As in :func:`geoexp.analysis.analyse`.
     districts : path or GeoDataFrame, optional

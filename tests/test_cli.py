@@ -17,7 +17,9 @@ COMMANDS = [
     "sample-region",
     "demo",
     "count",
+    "load-counts",
     "analyse",
+    "power",
     "map",
     "briefing",
     "baseline",
@@ -87,7 +89,7 @@ def test_ready_counts_table(tmp_path, demo_outputs):
     stored = TrialFile.open(trial).read("outcomes")
     stored[["pre", "post"]].rename_axis("seg").reset_index().to_csv(tmp_path / "c.csv", index=False)
     args = [
-        "counts",
+        "load-counts",
         str(trial),
         "--table",
         str(tmp_path / "c.csv"),
@@ -122,11 +124,11 @@ def test_analyse_counts_with_the_date_format_given(tmp_path, demo_outputs):
         "--draws", "50", "--report", str(tmp_path / "r.html"),
     ]  # fmt: skip
     refused = CliRunner().invoke(app, args)
-    assert refused.exit_code == 2 and "date_format" in refused.output
+    assert refused.exit_code == 2 and "--date-format" in refused.output
     done = CliRunner().invoke(app, [*args, "--date-format", "dmy"])
     assert done.exit_code == 0, done.output
     assert (tmp_path / "r.html").exists() and (tmp_path / "r.md").exists()
-    assert (tmp_path / "r_map.html").exists()
+    assert (tmp_path / "r_results_map.html").exists()
     # The same incidents counted from ISO dates give the same stored counts.
     from geoexp.trialfile import TrialFile
 

@@ -96,8 +96,8 @@ def overwrite_cases():
         ),
         (
             "analyse-report-map-trial",
-            lambda t, f, d: ["analyse", renamed(t, "r_map.html"), "--report", d / "r.html"],
-            "r_map.html",
+            lambda t, f, d: ["analyse", renamed(t, "r_results_map.html"), "--report", d / "r.html"],
+            "r_results_map.html",
             "results map",
         ),
         ("export-csv-trial", lambda t, f, d: ["export", t, "--csv", t], "trial", "--csv"),
@@ -351,7 +351,7 @@ def test_unreadable_spec(command, kind, tmp_path):
 def test_unreadable_counts_table(kind, trial, tmp_path):
     table = bad_file(kind, tmp_path, ".csv")
     before = digest(trial)
-    result = invoke("counts", trial, "--table", table, "--pre", PRE, "--post", POST)
+    result = invoke("load-counts", trial, "--table", table, "--pre", PRE, "--post", POST)
     assert_refused(result, table.name, COUNTS_FAILURES[kind])
     assert digest(trial) == before
 

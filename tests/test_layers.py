@@ -26,6 +26,7 @@ LAYERS: list[set[str]] = [
         "_engine",
         "_paths",
         "_significance",
+        "_progress",
     },
     # core helpers
     {"sampleregion"},  # invented data for the demo and benchmarks; no library code depends on it

@@ -545,6 +545,12 @@ def analyse(
         per_unit[f"p_{code}"] = probs[:, k]
     for r in main:
         per_unit[f"in_{r.exposure_code}"] = r.estimand.units
+    kept = getattr(outcomes, "kept_types", ())
+    if kept:
+        notes.append(
+            f"only incidents of type {', '.join(kept)} (column "
+            f"{getattr(outcomes, 'type_column', None)!r}) were counted; other types were left out"
+        )
     drops = getattr(outcomes, "drops", None)
     if drops is not None and getattr(drops, "n_dropped", 0):
         notes.append(f"incidents not counted: {drops}")

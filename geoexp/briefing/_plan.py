@@ -10,6 +10,7 @@ import math
 from dataclasses import dataclass
 from typing import Literal
 
+from geoexp._tables import plural
 from geoexp.errors import InputError
 
 Paper = Literal["a4", "letter"]
@@ -121,11 +122,11 @@ class BriefingPlan:
 
     def __str__(self) -> str:
         lines = [
-            f"Briefing pack ({self.paper.upper()}): {self.n_pages} pages, "
-            f"{self.n_treated} treated units in {len(self.districts)} districts"
+            f"Briefing pack ({self.paper.upper()}): {plural(self.n_pages, 'page')}, "
+            f"{plural(self.n_treated, 'treated unit')} in {plural(len(self.districts), 'district')}"
         ]
         for d in self.districts:
             last = d.first_page + d.n_pages - 1
             pages = f"page {d.first_page}" if d.n_pages == 1 else f"pages {d.first_page}-{last}"
-            lines.append(f"  {d.name}: {len(d.unit_ids)} treated units, {pages}")
+            lines.append(f"  {d.name}: {plural(len(d.unit_ids), 'treated unit')}, {pages}")
         return "\n".join(lines)

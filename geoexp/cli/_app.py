@@ -19,11 +19,30 @@ from geoexp.cli._options import (
     open_share,
     positive_metres,
 )
+from geoexp.cli._progress_bars import progress_shown
 from geoexp.errors import InputError
+
+# The commands in the order of the job, under the heading of their step, as `geoexp --help`
+# lists them. Register a new command here (one name in its step); a command not listed is
+# shown last, under "Other commands".
+WORKFLOW = (
+    ("Plan and design", ("sample-region", "draw")),
+    ("Check the design", ("check",)),
+    ("Power of the design", ("power",)),
+    ("Maps and field outputs", ("map", "briefing", "export")),
+    ("Count incidents", ("count", "load-counts")),
+    ("Analyse and report", ("analyse",)),
+    ("The whole job on the sample city", ("demo",)),
+)
+
+
+class _WorkflowGroup(GeoexpGroup):
+    workflow = WORKFLOW
+
 
 app = typer.Typer(
     name="geoexp",
-    cls=GeoexpGroup,
+    cls=_WorkflowGroup,
     help=(
         "Plan and analyse randomized field trials over street segments and parcels, "
         "with spillover between nearby places. geoexp supports, but does not replace, ethics "
@@ -49,6 +68,50 @@ def _plain_warning(message, category, filename, lineno, line=None) -> str:
     return f"Warning: {message}\n"
 
 
+def _show_version(value: bool) -> None:
+    if value:
+        from geoexp import __version__
+
+        console.print(f"geoexp {__version__}")
+        raise typer.Exit()
+
+
+@app.callback()
+def _root(
+    version: Annotated[
+        bool,
+        typer.Option(
+            "--version",
+            help="Print geoexp's version and exit.",
+            callback=_show_version,
+            is_eager=True,
+        ),
+    ] = False,
+) -> None:
+    pass
+
+
+def renamed_option(new_value, old_value, old: str, new: str):
+    """The value of an option given under its old name (with a note on stderr), else the new one."""
+    if old_value is None:
+        return new_value
+    errors.print(f"note: {old} is now called {new}; {old} still works but will be removed.")
+    return old_value
+
+
+def deprecated_command(old: str, new: str, command):
+    """Register ``command`` again under its old name, hidden, printing a note when used."""
+    import functools
+
+    @functools.wraps(command)
+    def alias(*args, **kwargs):
+        errors.print(f"note: 'geoexp {old}' is now 'geoexp {new}'; the old name will be removed.")
+        return command(*args, **kwargs)
+
+    app.command(old, hidden=True, help=f"Old name of '{new}'.")(alias)
+    return command
+
+
 def main() -> None:
     """Entry point: mistakes give a message and exit status 2, defects one line and status 1."""
     warnings.formatwarning = _plain_warning
@@ -68,6 +131,39 @@ TrialOpt = Annotated[Path, typer.Option("--trial", "-t", help="Trial file (GeoPa
 ToleranceOpt = Annotated[
     float,
     typer.Option(help="Snapping tolerance in metres (> 0).", callback=positive_metres),
+]
+DesignDrawsOpt = Annotated[
+    int | None,
+    typer.Option(
+        help="Draws of the design for its exposure probabilities (default: the spec's).",
+        min=1,
+        max=MAX_DRAWS,
+    ),
+]
+TestDrawsOpt = Annotated[
+    int,
+    typer.Option(help="Draws of the design per randomization test.", min=1, max=MAX_DRAWS),
+]
+# The old name of --design-draws and --test-draws: hidden, accepted with a note.
+OldDrawsOpt = Annotated[
+    int | None, typer.Option("--draws", hidden=True, min=1, max=MAX_DRAWS, show_default=False)
+]
+QuietOpt = Annotated[
+    bool, typer.Option("--quiet", "-q", help="No progress bars (they show only on a terminal).")
+]
+TypesOpt = Annotated[
+    str | None,
+    typer.Option(
+        help="Count only these incident types, comma-separated as written in --type-column, "
+        "e.g. --types burglary,robbery (recorded with the outcomes)."
+    ),
+]
+TypeColumnOpt = Annotated[
+    str | None,
+    typer.Option(
+        help="Column of incident types: each type is also counted on its own and the counts "
+        "per type are printed and stored."
+    ),
 ]
 AllowDroppedOpt = Annotated[
     float,
@@ -92,11 +188,10 @@ def draw_command(
         str,
         typer.Option(help="Why a locked assignment is replaced (recorded; needed with --replace)."),
     ] = "",
-    draws: Annotated[
-        int | None,
-        typer.Option(help="Monte Carlo draws (default: the spec's).", min=1, max=MAX_DRAWS),
-    ] = None,
+    design_draws: DesignDrawsOpt = None,
     csv: Annotated[Path | None, typer.Option(help="Also write the field list as CSV here.")] = None,
+    draws: OldDrawsOpt = None,
+    quiet: QuietOpt = False,
 ) -> None:
     """Draw a design's assignment from its spec and seed into a locked trial file."""
     from geoexp.design import Design, network_check, refuse_sparse_network
@@ -110,13 +205,15 @@ def draw_command(
     loaded = load_spec(spec)
     check_outputs({"--trial": trial, "--csv": csv}, spec_inputs(spec, loaded))
     # the number of Monte Carlo draws is part of the locked design (the analysis reuses it)
+    draws = renamed_option(design_draws, draws, "--draws", "--design-draws")
     design = Design.from_spec(loaded if draws is None else loaded.replace(draws=draws))
     network = network_check(design)
     refuse_sparse_network(design, network)
     if network is not None:
         console.print(str(network))
     assignment = design.draw()
-    probs = design.probabilities()
+    with progress_shown(quiet):
+        probs = design.probabilities()
     with writing(trial, "trial file"):
         tf = write_trial(trial, design, assignment, probs, replace=replace, reason=reason.strip())
     console.print(str(assignment))
@@ -130,10 +227,7 @@ def draw_command(
 @app.command("check")
 def check_command(
     spec: SpecArg,
-    draws: Annotated[
-        int | None,
-        typer.Option(help="Monte Carlo draws (default: the spec's).", min=1, max=MAX_DRAWS),
-    ] = None,
+    design_draws: DesignDrawsOpt = None,
     balance: Annotated[
         list[str] | None,
         typer.Option("--balance", help="Covariate column to check balance on (repeat)."),
@@ -141,6 +235,8 @@ def check_command(
     markdown: Annotated[
         Path | None, typer.Option(help="Also write the check as Markdown here.")
     ] = None,
+    draws: OldDrawsOpt = None,
+    quiet: QuietOpt = False,
 ) -> None:
     """Check a design before it reaches the street: conditions, probabilities, positivity, balance."""
     from geoexp._atomic import atomic_path
@@ -148,10 +244,12 @@ def check_command(
 
     loaded = load_spec(spec)
     check_outputs({"--markdown": markdown}, spec_inputs(spec, loaded))
+    draws = renamed_option(design_draws, draws, "--draws", "--design-draws")
     design = Design.from_spec(loaded)
-    result = check_design(
-        design, n_draws=draws, assignment=design.draw(), balance_columns=balance or None
-    )
+    with progress_shown(quiet):
+        result = check_design(
+            design, n_draws=draws, assignment=design.draw(), balance_columns=balance or None
+        )
     console.print(str(result))
     if markdown is not None:
         with writing(markdown, "Markdown check"), atomic_path(markdown) as tmp:
@@ -169,7 +267,7 @@ def export_command(
     check_outputs({"--csv": csv}, {}, trial=trial)
     with writing(csv, "field list"):
         out = export_assignment_csv(trial, csv)
-    console.print(f"{len(out)} units written to {csv}")
+    console.print(f"{len(out):,} unit{'' if len(out) == 1 else 's'} written to {csv}")
 
 
 def _refuse_trial_file(path: Path, option: str) -> None:
@@ -207,7 +305,16 @@ def sample_region_command(
 @app.command("demo")
 def demo_command(
     out: Annotated[Path, typer.Option(help="Folder for the demo's outputs.")] = Path("demo_trial"),
-    draws: Annotated[int, typer.Option(help="Monte Carlo draws.", min=1, max=MAX_DRAWS)] = 2000,
+    design_draws: Annotated[
+        int,
+        typer.Option(
+            help="Draws of the design for its exposure probabilities, and per randomization test.",
+            min=1,
+            max=MAX_DRAWS,
+        ),
+    ] = 2000,
+    draws: OldDrawsOpt = None,
+    quiet: QuietOpt = False,
 ) -> None:
     """Run the whole job on the built-in sample region, from planning to the results report."""
     from geoexp.quickstart import run_demo
@@ -215,8 +322,28 @@ def demo_command(
     if out.exists() and not out.is_dir():
         raise InputError(f"--out '{out}' is a file; the demo needs a folder for its outputs")
     check_outputs({"--out": out / "design.toml"}, {})
-    with writing(out, "demo folder"):
+    draws = renamed_option(design_draws, draws, "--draws", "--design-draws")
+    with writing(out, "demo folder"), progress_shown(quiet):
         run_demo(out, n_draws=draws, echo=console.print)
+
+
+def _types(text: str | None, type_column: str | None) -> tuple[str, ...] | None:
+    """The incident types of --types, refused without --type-column or when empty."""
+    if text is None:
+        return None
+    if type_column is None:
+        raise typer.BadParameter(
+            "--types needs --type-column, the column of the incidents that holds their type",
+            param_hint="'--types'",
+        )
+    names = tuple(dict.fromkeys(t.strip() for t in text.split(",") if t.strip()))
+    if not names:
+        raise typer.BadParameter(
+            f"must name one or more incident types separated by commas, e.g. burglary,robbery; "
+            f"got {text!r}",
+            param_hint="'--types'",
+        )
+    return names
 
 
 def _period(text: str, what: str) -> tuple[str, str]:
@@ -246,7 +373,8 @@ def count_command(
         str | None,
         typer.Option(help="'iso', 'dmy' (day first), 'mdy' (month first) or a strftime pattern."),
     ] = None,
-    type_column: Annotated[str | None, typer.Option(help="Column of incident types.")] = None,
+    type_column: TypeColumnOpt = None,
+    types: TypesOpt = None,
     lon: Annotated[str | None, typer.Option(help="Longitude column (CSV in WGS 84).")] = None,
     lat: Annotated[str | None, typer.Option(help="Latitude column (CSV in WGS 84).")] = None,
     x: Annotated[str | None, typer.Option(help="x column (CSV in a projected CRS).")] = None,
@@ -267,6 +395,7 @@ def count_command(
     periods = _period(pre, "--pre"), _period(post, "--post")
     incidents = incidents_input(incidents)
     check_outputs({"--dropped": dropped}, {"--incidents": incidents}, trial=trial)
+    keep = _types(types, type_column)
     table = count_and_store(
         trial,
         incidents,
@@ -275,6 +404,8 @@ def count_command(
         date_column=date_column,
         date_format=date_format,
         type_column=type_column,
+        by_type=type_column is not None,
+        keep_types=keep,
         lon=lon,
         lat=lat,
         x=x,
@@ -284,12 +415,12 @@ def count_command(
         dropped_path=dropped,
         max_dropped_share=allow_dropped,
     )
-    console.print(str(table.drops))
+    console.print(str(table))
     console.print(f"Outcomes stored in {trial}")
 
 
-@app.command("counts")
-def counts_command(
+@app.command("load-counts")
+def load_counts_command(
     trial: Annotated[Path, typer.Argument(help="Trial file (GeoPackage).")],
     table: Annotated[Path, typer.Option(help="CSV of counts: one row per unit.")],
     pre: Annotated[str, typer.Option(help="Pre-period START:END the counts cover.")],
@@ -327,7 +458,11 @@ def counts_command(
     )
     with writing(trial, "trial file"):
         save_outcomes(tf, outcomes)
-    console.print(f"Counts for {len(outcomes.counts)} units stored in {trial}")
+    n = len(outcomes.counts)
+    console.print(f"Counts for {n:,} unit{'' if n == 1 else 's'} stored in {trial}")
+
+
+deprecated_command("counts", "load-counts", load_counts_command)
 
 
 @app.command("analyse")
@@ -351,9 +486,8 @@ def analyse_command(
         str | None,
         typer.Option(help="With --incidents: 'iso', 'dmy', 'mdy' or a strftime pattern."),
     ] = None,
-    type_column: Annotated[
-        str | None, typer.Option(help="With --incidents: column of incident types.")
-    ] = None,
+    type_column: TypeColumnOpt = None,
+    types: TypesOpt = None,
     lon: Annotated[str | None, typer.Option(help="With --incidents: longitude column.")] = None,
     lat: Annotated[str | None, typer.Option(help="With --incidents: latitude column.")] = None,
     x: Annotated[str | None, typer.Option(help="With --incidents: x column.")] = None,
@@ -367,13 +501,12 @@ def analyse_command(
     estimator: Annotated[
         EstimatorChoice, typer.Option(help="'hajek' or 'horvitz-thompson'.")
     ] = EstimatorChoice.hajek,
-    draws: Annotated[
-        int,
-        typer.Option(help="Draws of the design per randomization test.", min=1, max=MAX_DRAWS),
-    ] = 2000,
+    test_draws: TestDrawsOpt = 2000,
     level: Annotated[
         float, typer.Option(help="Confidence level, between 0 and 1.", callback=open_share)
     ] = 0.95,
+    draws: OldDrawsOpt = None,
+    quiet: QuietOpt = False,
 ) -> None:
     """Estimate direct and spillover effects, test them, and write the report.
 
@@ -382,6 +515,7 @@ def analyse_command(
     """
     from geoexp.workflow import analyse_trial, count_and_store, report_outputs
 
+    draws = renamed_option(test_draws, draws, "--draws", "--test-draws")
     outs = report_outputs(report)
     incidents = incidents_input(incidents)
     check_outputs(
@@ -406,6 +540,8 @@ def analyse_command(
             date_column=date_column,
             date_format=date_format,
             type_column=type_column,
+            by_type=type_column is not None,
+            keep_types=_types(types, type_column),
             lon=lon,
             lat=lat,
             x=x,
@@ -414,16 +550,23 @@ def analyse_command(
             tolerance_m=tolerance,
             max_dropped_share=allow_dropped,
         )
-        console.print(str(table.drops))
-    run = analyse_trial(
-        trial,
-        report=outs["report"],
-        result_map=outs["result_map"],
-        outcome=outcome.value,
-        estimator=estimator.value,
-        n_draws=draws,
-        level=level,
-    )
+        console.print(str(table))
+    elif types is not None or type_column is not None:
+        raise typer.BadParameter(
+            "--type-column and --types apply when counting: give them with --incidents "
+            "(or with 'geoexp count')",
+            param_hint="'--types'" if types is not None else "'--type-column'",
+        )
+    with progress_shown(quiet):
+        run = analyse_trial(
+            trial,
+            report=outs["report"],
+            result_map=outs["result_map"],
+            outcome=outcome.value,
+            estimator=estimator.value,
+            n_draws=draws,
+            level=level,
+        )
     console.print(str(run))
 
 

@@ -24,6 +24,7 @@ from pathlib import Path
 import typer
 from typer.core import TyperGroup
 
+from geoexp.cli._wording import command_keywords, in_option_words
 from geoexp.errors import GeoexpError
 
 # The click exception base as typer uses it (recent typer releases carry their own copy of
@@ -95,10 +96,14 @@ def unexpected(err: BaseException) -> UnexpectedError:
     )
 
 
-def as_click_error(err: BaseException) -> ClickException:
-    """Translate any exception raised by a command into the click exception to show."""
+def as_click_error(err: BaseException, keywords: dict[str, str] | None = None) -> ClickException:
+    """Translate any exception raised by a command into the click exception to show.
+
+    ``keywords`` maps the Python keywords of the command that ran to its options,
+    so that a library message reads in the command line's words.
+    """
     if isinstance(err, GeoexpError):
-        return UserError(str(err))
+        return UserError(in_option_words(str(err), keywords or {}))
     if isinstance(err, OSError) and err.filename is not None:
         reason = err.strerror or str(err)
         return UserError(f"could not use the file '{err.filename}': {reason}")
@@ -108,7 +113,37 @@ def as_click_error(err: BaseException) -> ClickException:
 
 
 class GeoexpGroup(TyperGroup):
-    """The command group: every command's failures go through :func:`as_click_error`."""
+    """The command group: commands listed in workflow order, failures through :func:`as_click_error`.
+
+    ``workflow`` holds (heading, command names) pairs in the order of the job; a
+    command not listed there is shown last, under "Other commands".
+    """
+
+    workflow: tuple[tuple[str, tuple[str, ...]], ...] = ()
+
+    def list_commands(self, ctx):  # noqa: D102  (click's interface)
+        registered = list(self.commands)
+        ordered = [name for _, names in self.workflow for name in names if name in self.commands]
+        return ordered + [name for name in registered if name not in ordered]
+
+    def format_commands(self, ctx, formatter) -> None:
+        """List the commands under the step of the job they belong to, one line each."""
+        listed = set()
+        sections = []
+        for title, names in (*self.workflow, ("Other commands", tuple(self.list_commands(ctx)))):
+            rows = []
+            for name in names:
+                command = self.get_command(ctx, name)
+                if command is None or command.hidden or name in listed:
+                    continue
+                listed.add(name)
+                # the whole first sentence: a description cut short helps no one
+                rows.append((name, command.get_short_help_str(limit=10_000)))
+            if rows:
+                sections.append((title, rows))
+        for title, rows in sections:
+            with formatter.section(title):
+                formatter.write_dl(rows)
 
     def invoke(self, ctx):  # noqa: D102  (click's interface)
         try:
@@ -116,4 +151,7 @@ class GeoexpGroup(TyperGroup):
         except (ClickException, typer.Exit, typer.Abort):
             raise
         except Exception as err:  # noqa: BLE001  (the last resort: nothing may escape as a traceback)
-            raise as_click_error(err) from err
+            name = ctx.invoked_subcommand
+            command = self.get_command(ctx, name) if name else None
+            keywords = command_keywords(command.params) if command is not None else {}
+            raise as_click_error(err, keywords) from err

@@ -7,9 +7,20 @@ from typing import Annotated
 
 import typer
 
-from geoexp.cli._app import SpecArg, app, console
+from geoexp._tables import text_table
+from geoexp.cli._app import (
+    OldDrawsOpt,
+    QuietOpt,
+    SpecArg,
+    TestDrawsOpt,
+    app,
+    console,
+    renamed_option,
+)
 from geoexp.cli._inputs import load_spec
 from geoexp.cli._options import MAX_DRAWS, OutcomeChoice, non_negative, open_share
+from geoexp.cli._progress_bars import progress_shown
+from geoexp.errors import InputError
 
 
 def _effects(items: list[str] | None, what: str) -> dict[str, float]:
@@ -30,6 +41,24 @@ def _effects(items: list[str] | None, what: str) -> dict[str, float]:
     return out
 
 
+def _require_baseline(column: str | None, design, spec: Path) -> None:
+    """Refuse a missing --baseline-column, naming the units layer's numeric columns."""
+    frame = design.units.frame
+    numeric = [str(c) for c in frame.columns if c != "geometry" and frame[c].dtype.kind in "iuf"]
+    listed = ", ".join(numeric) if numeric else "none"
+    if column is None:
+        raise InputError(
+            "power needs --baseline-column: the column of the units layer (named in "
+            f"'{spec}') that holds past counts per unit, e.g. last year's incidents; its "
+            f"numeric columns are: {listed}"
+        )
+    if column not in frame.columns:
+        raise InputError(
+            f"--baseline-column {column!r} is not a column of the units layer named in '{spec}'; "
+            f"its numeric columns are: {listed}"
+        )
+
+
 @app.command("power")
 def power_command(
     spec: SpecArg,
@@ -41,9 +70,12 @@ def power_command(
         ),
     ] = None,
     baseline_column: Annotated[
-        str,
-        typer.Option(help="Column of past counts per unit (smoothed to (count + mean) / 2)."),
-    ] = "incidents_y1",
+        str | None,
+        typer.Option(
+            help="Column of the units layer with past counts per unit, e.g. last year's "
+            "incidents (smoothed to (count + mean) / 2). Required."
+        ),
+    ] = None,
     dispersion: Annotated[
         float,
         typer.Option(
@@ -51,10 +83,10 @@ def power_command(
             callback=non_negative,
         ),
     ] = 0.5,
-    sims: Annotated[int, typer.Option(help="Simulated trials.", min=1, max=MAX_DRAWS)] = 200,
-    draws: Annotated[
-        int, typer.Option(help="Randomization draws per test.", min=1, max=MAX_DRAWS)
-    ] = 500,
+    simulated_trials: Annotated[
+        int, typer.Option(help="Simulated trials to estimate power from.", min=1, max=MAX_DRAWS)
+    ] = 200,
+    test_draws: TestDrawsOpt = 500,
     alpha: Annotated[
         float,
         typer.Option(help="Significance level of the tests, between 0 and 1.", callback=open_share),
@@ -70,6 +102,12 @@ def power_command(
         list[Path] | None,
         typer.Option("--alternative-spec", help="Another design spec to compare (repeat)."),
     ] = None,
+    sims: Annotated[
+        int | None,
+        typer.Option("--sims", hidden=True, min=1, max=MAX_DRAWS, show_default=False),
+    ] = None,
+    draws: OldDrawsOpt = None,
+    quiet: QuietOpt = False,
 ) -> None:
     """Power of a design's tests by simulation, for counts with planted rate ratios.
 
@@ -80,22 +118,29 @@ def power_command(
     from geoexp.design import Design
     from geoexp.power import NegativeBinomialOutcome, compare_designs, simulate_power
 
+    ratios = _effects(rate_ratio, "--rate-ratio")
+    sims = renamed_option(simulated_trials, sims, "--sims", "--simulated-trials")
+    draws = renamed_option(test_draws, draws, "--draws", "--test-draws")
+    design = Design.from_spec(load_spec(spec))
+    _require_baseline(baseline_column, design, spec)
     model = NegativeBinomialOutcome(
         baseline=baseline_column,
         dispersion=dispersion,
-        rate_ratios=_effects(rate_ratio, "--rate-ratio"),
+        rate_ratios=ratios,
     )
     common = dict(n_sims=sims, n_draws=draws, alpha=alpha, outcome=outcome.value, rng=seed)
-    design = Design.from_spec(load_spec(spec))
-    result = simulate_power(design, model, **common)
+    with progress_shown(quiet):
+        result = simulate_power(design, model, **common)
     console.print(str(result), markup=False)
     if alternative_spec:
         designs = {spec.stem: design}
         for path in alternative_spec:
             name = path.stem if path.stem not in designs else str(path)
             designs[name] = Design.from_spec(load_spec(path))
-        table = compare_designs(designs, model, **common)
+        with progress_shown(quiet):
+            table = compare_designs(designs, model, **common)
         console.print("")
         console.print("Designs compared (power, Monte Carlo error, units per contrast):")
         shown = table.loc[:, (slice(None), ["power", "mc_error", "n_units"])]
-        console.print(shown.to_string(float_format=lambda v: f"{v:.3f}"), markup=False)
+        shown = shown.rename(index=lambda c: str(c).replace("spillover_", "spillover band "))
+        console.print(text_table(shown), markup=False)

@@ -70,8 +70,8 @@ class Assignment:
 
     def __str__(self) -> str:
         counts = self.condition_counts()
-        parts = ", ".join(f"{label}: {n}" for label, n in counts.items())
+        parts = ", ".join(f"{label}: {n:,}" for label, n in counts.items())
         return (
             f"Assignment of design {self.spec_hash[:12]} (seed {self.seed}): "
-            f"{self.n_treated} treated of {int(self.eligible.sum())} eligible; {parts}"
+            f"{self.n_treated:,} treated of {int(self.eligible.sum()):,} eligible; {parts}"
         )

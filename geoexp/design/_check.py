@@ -10,7 +10,7 @@ import pandas as pd
 
 from geoexp._moran import moran
 from geoexp._rng import Stream
-from geoexp._tables import markdown_table
+from geoexp._tables import markdown_table, plural, text_table
 from geoexp.design._network_check import network_check
 from geoexp.errors import DesignError
 from geoexp.exposure import (
@@ -83,26 +83,25 @@ class DesignCheck:
     network: object = None
 
     def __str__(self) -> str:
-        fmt = {"float_format": lambda v: f"{v:.3f}"}
         parts = [
             f"Design check: {self.name} (design {self.spec_hash[:12]})",
-            f"{self.n_units} units, {self.n_eligible} eligible; {self.n_draws} Monte Carlo draws "
-            "of the design's own sampler.",
+            f"{plural(self.n_units, 'unit')}, {self.n_eligible:,} eligible; "
+            f"{plural(self.n_draws, 'Monte Carlo draw')} of the design's own sampler.",
             f"Coordinates: {self.coordinates}." if self.coordinates else "",
             "",
             *self._network_lines(),
             "Expected units per condition:",
-            self.expected.to_string(**fmt),
+            text_table(self.expected),
             "",
             "Exposure probabilities (units that can be in each condition):",
-            self.probability_summary.to_string(**fmt),
+            text_table(self.probability_summary),
             "",
             str(self.positivity),
             "",
             str(self.autocorrelation) if self.autocorrelation is not None else "",
             "",
             "Balance (standardized differences; |d| > 0.1 is flagged):",
-            self.balance.to_string(**fmt) if len(self.balance) else "  (no covariates)",
+            text_table(self.balance) if len(self.balance) else "  (no covariates)",
             "",
             "Verdict:",
             *(f"- {line}" for line in self.verdict),
@@ -121,8 +120,8 @@ class DesignCheck:
             [
                 f"## Design check: {self.name}",
                 "",
-                f"Design `{self.spec_hash[:12]}`; {self.n_units} units, {self.n_eligible} eligible; "
-                f"{self.n_draws} draws."
+                f"Design `{self.spec_hash[:12]}`; {plural(self.n_units, 'unit')}, "
+                f"{self.n_eligible:,} eligible; {plural(self.n_draws, 'draw')}."
                 + (f" Coordinates: {self.coordinates}." if self.coordinates else ""),
                 "",
                 *(["### Street network", *self._network_lines()] if self.network else []),
@@ -414,7 +413,7 @@ def _verdict(design, probs, expected, positivity, balance) -> list[str]:
                     f"(d = {row['drawn']:+.2f} against {row['mean_over_draws']:+.2f} on average)."
                 )
     lines.append(
-        f"Units that can never be treated ({int((~elig).sum())} non-eligible units) enter only as "
+        f"Units that can never be treated ({plural(int((~elig).sum()), 'non-eligible unit')}) enter only as "
         "spillover or pure-control units; the design says nothing about treating them."
     )
     return lines

@@ -60,8 +60,8 @@ class ContrastEstimate:
         return (
             f"{self.contrast} ({self.estimator}, {self.outcome}): {self.estimate:+.3f} "
             f"(SE {self.std_error:.3f}; {pct}% CI {self.ci_low:+.3f} to {self.ci_high:+.3f}); "
-            f"{self.n_exposure} exposed and {self.n_reference} reference units observed of "
-            f"{self.n_units} in the estimand ({self.units}), {self.n_excluded} excluded by "
+            f"{self.n_exposure:,} exposed and {self.n_reference:,} reference units observed of "
+            f"{self.n_units:,} in the estimand ({self.units}), {self.n_excluded:,} excluded by "
             f"positivity; effective sample sizes {self.ess_exposure:.0f} and "
             f"{self.ess_reference:.0f} (Kish)"
         )

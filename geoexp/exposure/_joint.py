@@ -17,6 +17,7 @@ from typing import TYPE_CHECKING
 import numpy as np
 import pandas as pd
 
+from geoexp._progress import tracked
 from geoexp._rng import RngLike, as_seed_sequence
 from geoexp.errors import InputError
 from geoexp.exposure._kernels import (
@@ -243,6 +244,7 @@ def _condition_bits(
     column = np.full(graph.n, -1, dtype=np.int64)
     column[positions] = np.arange(positions.size)
     draw0 = 0
+    advance = tracked("draws of the design (joint probabilities)", n_draws)
     for chunk in sampler.iter_chunks(n_draws, as_seed_sequence(rng)):
         n_chunk = chunk.indptr.size - 1
         if draw0 + n_chunk > n_draws:
@@ -259,6 +261,7 @@ def _condition_bits(
             engine=engine,
         )
         draw0 += n_chunk
+        advance(n_chunk)
     if draw0 != n_draws:
         raise RuntimeError(f"the sampler produced {draw0} draws, {n_draws} were asked for")
     # pure control: every draw in which the unit was in no other condition

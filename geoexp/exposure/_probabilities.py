@@ -9,6 +9,7 @@ import numpy as np
 import pandas as pd
 
 from geoexp._engine import Engine
+from geoexp._progress import tracked
 from geoexp._rng import RngLike, as_seed_sequence
 from geoexp.errors import InputError
 from geoexp.exposure._kernels import scatter_counts, touched_codes_numpy
@@ -180,10 +181,11 @@ class ContrastPositivity:
 
     def __str__(self) -> str:
         lost = len(self.exposure_only)
-        text = f"{self.exposure} vs {self.reference}: {self.n_units} units can be in either"
+        units = f"{self.n_units:,} unit{'' if self.n_units == 1 else 's'}"
+        text = f"{self.exposure} vs {self.reference}: {units} can be in either"
         if lost:
             shown = ", ".join(map(str, self.exposure_only[:10])) + (" ..." if lost > 10 else "")
-            text += f"; {lost} can be {self.exposure} but never {self.reference} ({shown})"
+            text += f"; {lost:,} can be {self.exposure} but never {self.reference} ({shown})"
         return text
 
 
@@ -278,6 +280,7 @@ def exposure_probabilities(
     counts = np.zeros((graph.n, mapping.n_conditions), dtype=np.int64)
     sizes, sums = [], []
     seen = 0
+    advance = tracked("draws of the design", n_draws)
     for chunk in sampler.iter_chunks(n_draws, seq):
         c, s, x = scatter_counts(
             chunk.indptr,
@@ -293,6 +296,7 @@ def exposure_probabilities(
         )
         counts += c
         seen += chunk.indptr.size - 1
+        advance(chunk.indptr.size - 1)
         if cov is not None:
             sizes.append(s)
             sums.append(x)

@@ -130,7 +130,7 @@ def planning_map(
     if len(treated) and bands:
         rings = band_rings(treated, bands)
         group = page.group(
-            "Buffer rings " + ", ".join(f"{b:g}" for b in bands) + f" m ({len(rings)})", True
+            "Spillover bands " + ", ".join(f"{b:g}" for b in bands) + f" m ({len(rings)})", True
         )
         add_rings(page, group, rings, ring_labels(bands), fill_opacity=0.12, sample_opacity=0.18)
         if spec.exposure.metric != "euclidean":

@@ -9,7 +9,11 @@ dropped for exactly one reason, checked in this order:
 4. ``outside periods`` -- the date is in neither period;
 5. ``outside tolerance`` -- no unit lies within the snapping tolerance.
 
-So counted plus dropped always equals the number of input rows. Periods are
+When only some incident types are counted (``keep_types``), an incident of
+another type is set aside as ``other incident type`` before any of these; such
+incidents are left out on purpose and do not count towards the share of
+incidents dropped by mistake. So counted plus dropped (or set aside) always
+equals the number of input rows. Periods are
 closed intervals of calendar dates, ``[start, end]``, both days included.
 """
 
@@ -20,7 +24,7 @@ import json
 import math
 import os
 import re
-from collections.abc import Callable
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Literal
@@ -48,6 +52,9 @@ REASONS = (
     "outside periods",
     "outside tolerance",
 )
+# Not a drop reason: incidents of types not asked for (keep_types) are left out on purpose.
+SET_ASIDE = "other incident type"
+_SET_ASIDE = len(REASONS) + 1  # its code
 _FIELDS = tuple(r.replace(" ", "_") for r in REASONS)
 UNTYPED = "untyped"
 _LAYER = "outcomes"
@@ -143,6 +150,7 @@ class DropReport:
     unparseable_date: int = 0
     outside_periods: int = 0
     outside_tolerance: int = 0
+    other_incident_type: int = 0
     ties: int = 0
     tolerance_m: float | None = None
     source: str = ""
@@ -155,13 +163,13 @@ class DropReport:
 
     @property
     def n_dropped(self) -> int:
-        """Incidents dropped, all reasons together."""
+        """Incidents dropped, all reasons together (types left out on purpose are not drops)."""
         return sum(self.counts().values())
 
     @property
     def n_counted(self) -> int:
         """Incidents counted on a unit in one of the periods."""
-        return self.n_incidents - self.n_dropped
+        return self.n_incidents - self.n_dropped - self.other_incident_type
 
     def to_frame(self) -> pd.DataFrame:
         """One row per reason with the number of incidents dropped for it."""
@@ -182,6 +190,8 @@ class DropReport:
             f"Of {self.n_incidents:,} incident{'' if self.n_incidents == 1 else 's'}{where}, {self.n_counted:,} were counted and "
             f"{self.n_dropped:,} dropped"
         )
+        if self.other_incident_type:
+            text += f" ({self.other_incident_type:,} more were of other types, left out on purpose)"
         parts = [f"{n:,} {words[r]} ({r})" for r, n in self.counts().items() if n]
         text += (": " + "; ".join(parts) + ".") if parts else "."
         if self.ties:
@@ -251,6 +261,10 @@ class OutcomeTable:
         Incident types with their own columns, in column order.
     source : str
         Where the incidents or counts came from.
+    type_column : str or None
+        The incidents' column of types, if one was given.
+    kept_types : tuple of str
+        When only some incident types were counted, those types (else empty).
     """
 
     counts: pd.DataFrame
@@ -260,6 +274,8 @@ class OutcomeTable:
     drops: DropReport
     types: tuple[str, ...] = ()
     source: str = ""
+    type_column: str | None = None
+    kept_types: tuple[str, ...] = ()
 
     @classmethod
     def from_counts(
@@ -425,8 +441,22 @@ class OutcomeTable:
             lines.append(
                 f"  each incident snapped to the nearest unit within {self.tolerance_m:g} m"
             )
+        if self.kept_types:
+            lines.append(
+                f"  only incident types {', '.join(self.kept_types)} (column "
+                f"{self.type_column!r}) counted; other types were left out"
+            )
         if self.types:
-            lines.append(f"  by type: {', '.join(self.types)}")
+            lines.append(
+                f"  by type (column {self.type_column!r}), pre and post incidents:"
+                if self.type_column
+                else "  by type, pre and post incidents:"
+            )
+            for label, (pre_col, post_col) in self.type_columns.items():
+                lines.append(
+                    f"    {label}: {int(self.counts[pre_col].sum()):,} pre, "
+                    f"{int(self.counts[post_col].sum()):,} post"
+                )
         lines.append("  " + str(self.drops))
         return "\n".join(lines)
 
@@ -452,6 +482,7 @@ def count_incidents(
     post: Period,
     type_column: str | None = None,
     by_type: bool = False,
+    keep_types: Sequence[str] | None = None,
     x: str | None = None,
     y: str | None = None,
     lon: str | None = None,
@@ -492,6 +523,11 @@ def count_incidents(
     by_type : bool
         Also count each type (columns ``pre__<type>``, ``post__<type>``;
         incidents without a type count as ``untyped``).
+    keep_types : sequence of str, optional
+        Count only incidents of these types (as written in ``type_column``,
+        which it needs); the others are set aside as ``other incident type``
+        and reported, and the choice is stored with the outcomes. A type that
+        no incident has is an error (a misspelt type would count nothing).
     x, y : str, optional
         Projected coordinate columns, in ``crs``.
     lon, lat : str, optional
@@ -558,6 +594,12 @@ def count_incidents(
         raise InputError(f"tolerance_m must be a number of metres >= 0, got {tolerance_m!r}")
     if by_type and type_column is None:
         raise InputError("by_type=True needs type_column=, the column of incident types")
+    if keep_types is not None:
+        if type_column is None:
+            raise InputError("keep_types= needs type_column=, the column of incident types")
+        keep_types = tuple(dict.fromkeys(str(t) for t in keep_types))
+        if not keep_types:
+            raise InputError("keep_types= names no incident type")
     rows = read_incidents(
         incidents,
         units.crs,
@@ -581,6 +623,16 @@ def count_incidents(
     reason[rows.date_problem == DATE_UNPARSEABLE] = 3
     reason[rows.date_problem == DATE_MISSING] = 2
     reason[~located] = 1
+    if keep_types is not None:
+        present = set(pd.unique(rows.types[~pd.isna(rows.types)]).tolist())
+        unknown = [t for t in keep_types if t not in present]
+        if unknown:
+            raise InputError(
+                f"column {type_column!r} of the incidents '{rows.source}' has no incident of "
+                f"type {', '.join(map(repr, unknown))}; its types are "
+                f"{', '.join(map(repr, sorted(present))) or 'none'}"
+            )
+        reason[~np.isin(rows.types.astype(object), np.array(keep_types, dtype=object))] = _SET_ASIDE
 
     candidates = np.flatnonzero(reason == 0)
     geometry = np.asarray(units.geometry.array, dtype=object)
@@ -606,6 +658,9 @@ def count_incidents(
     names: dict[str, str] = {}
     if by_type:
         labels = rows.types.copy()
+        if keep_types is not None:
+            # never counted: any kept label keeps them from adding an "untyped" column
+            labels[reason == _SET_ASIDE] = keep_types[0]
         labels[pd.isna(labels)] = UNTYPED
         codes, uniques = pd.factorize(labels, sort=True)
         types = tuple(str(u) for u in uniques)
@@ -626,10 +681,16 @@ def count_incidents(
     )
     counts.index.name = units.id_column
 
-    per_reason = np.bincount(reason, minlength=len(REASONS) + 1)[1:]
+    per_reason = np.bincount(reason, minlength=len(REASONS) + 2)[1:]  # the last: set aside
     if max_dropped_share is not None:
         _stop_if_mostly_dropped(
-            rows, units, per_reason, in_pre, in_post, (pre_d, post_d), float(max_dropped_share)
+            rows,
+            units,
+            per_reason,
+            in_pre & (reason != _SET_ASIDE),
+            in_post & (reason != _SET_ASIDE),
+            (pre_d, post_d),
+            float(max_dropped_share),
         )
     written = None
     if dropped_path is not None:
@@ -637,14 +698,25 @@ def count_incidents(
         _write_dropped(rows, reason, written)
     drops = DropReport(
         n_incidents=rows.n,
-        **{f: int(n) for f, n in zip(_FIELDS, per_reason, strict=True)},
+        **{f: int(n) for f, n in zip(_FIELDS, per_reason[: len(REASONS)], strict=True)},
+        other_incident_type=int(per_reason[_SET_ASIDE - 1]),
         ties=int(snapped.tied[snapped.unit >= 0].sum()),
         tolerance_m=float(tolerance_m),
         source=rows.source,
         dropped_path=written,
         max_dropped_share=None if max_dropped_share is None else float(max_dropped_share),
     )
-    return OutcomeTable(counts, pre_d, post_d, float(tolerance_m), drops, types, rows.source)
+    return OutcomeTable(
+        counts,
+        pre_d,
+        post_d,
+        float(tolerance_m),
+        drops,
+        types,
+        rows.source,
+        type_column=type_column,
+        kept_types=() if keep_types is None else keep_types,
+    )
 
 
 def _likely_cause(
@@ -708,15 +780,21 @@ def _stop_if_mostly_dropped(
     max_share: float,
 ) -> None:
     """Refuse counts that would silently make a wrong analysis (see ``max_dropped_share``)."""
-    n = rows.n
+    # incidents of types left out on purpose are neither counted nor mistakes
+    aside = int(per_reason[_SET_ASIDE - 1])
+    per_reason = per_reason[: len(REASONS)]
+    n = rows.n - aside
     n_dropped = int(per_reason.sum())
     where = f"the incidents '{rows.source}'"
     by_reason = "; ".join(f"{int(k):,} {r}" for r, k in zip(REASONS, per_reason, strict=True) if k)
-    tally = f"{n:,} read, {n - n_dropped:,} counted, {n_dropped:,} dropped" + (
+    left_out = f"{aside:,} of other types left out, " if aside else ""
+    tally = f"{rows.n:,} read, {left_out}{n - n_dropped:,} counted, {n_dropped:,} dropped" + (
         f" ({by_reason})" if by_reason else ""
     )
-    if n == 0:
+    if rows.n == 0:
         raise InputError(f"{where} hold no incidents (no rows below the header): nothing to count")
+    if n == 0:
+        raise InputError(f"{where} hold no incident of the types asked for: nothing to count")
     dated = ~np.isnat(rows.dates)
     for name, period, inside in (("pre", periods[0], in_pre), ("post", periods[1], in_post)):
         if not (inside & dated).any():
@@ -746,7 +824,7 @@ def _stop_if_mostly_dropped(
 
 
 def _write_dropped(rows: IncidentRows, reason: np.ndarray, path: str) -> None:
-    positions = np.flatnonzero(reason > 0)
+    positions = np.flatnonzero((reason > 0) & (reason != _SET_ASIDE))
     out = pd.DataFrame(rows.frame.iloc[positions]).copy()
     geometry = getattr(rows.frame, "geometry", None) if "geometry" in rows.frame else None
     if geometry is not None:
@@ -809,7 +887,16 @@ def save_outcomes(
         "outcomes_post": f"{table.post[0]}/{table.post[1]}",
         "outcomes_tolerance_m": "" if table.tolerance_m is None else repr(table.tolerance_m),
         "outcomes_types": json.dumps(list(table.types)),
-        "outcomes_drops": json.dumps({**d.counts(), "n_incidents": d.n_incidents, "ties": d.ties}),
+        "outcomes_type_column": table.type_column or "",
+        "outcomes_kept_types": json.dumps(list(table.kept_types)),
+        "outcomes_drops": json.dumps(
+            {
+                **d.counts(),
+                SET_ASIDE: d.other_incident_type,
+                "n_incidents": d.n_incidents,
+                "ties": d.ties,
+            }
+        ),
         "outcomes_source": table.source,
         "outcomes_dropped_path": d.dropped_path or "",
     }
@@ -863,9 +950,20 @@ def load_outcomes(trial: TrialFile | str | os.PathLike) -> OutcomeTable:
     drops = DropReport(
         n_incidents=int(stored["n_incidents"]),
         **{f: int(stored[r]) for r, f in zip(REASONS, _FIELDS, strict=True)},
+        other_incident_type=int(stored.get(SET_ASIDE, 0)),
         ties=int(stored["ties"]),
         tolerance_m=tol,
         source=meta.get("outcomes_source", ""),
         dropped_path=meta.get("outcomes_dropped_path") or None,
     )
-    return OutcomeTable(counts, pre, post, tol, drops, types, meta.get("outcomes_source", ""))
+    return OutcomeTable(
+        counts,
+        pre,
+        post,
+        tol,
+        drops,
+        types,
+        meta.get("outcomes_source", ""),
+        type_column=meta.get("outcomes_type_column") or None,
+        kept_types=tuple(json.loads(meta.get("outcomes_kept_types") or "[]")),
+    )

@@ -121,18 +121,19 @@ class PowerResult:
 
     def __str__(self) -> str:
         lines = [
-            f"Power of {self.design} (design {self.spec_hash[:12]}): {self.n_sims} simulated "
-            f"trials, {self.n_draws} randomization draws each, alpha {self.alpha:g} "
+            f"Power of {self.design} (design {self.spec_hash[:12]}): {self.n_sims:,} simulated "
+            f"trial{'' if self.n_sims == 1 else 's'}, {self.n_draws:,} randomization "
+            f"draw{'' if self.n_draws == 1 else 's'} each, alpha {self.alpha:g} "
             f"({self.alternative}), outcome: {self.outcome}.",
             "",
-            f"{'contrast':<38}{'power':>7}{'MC err':>8}{'planted':>10}{'mean est':>10}"
-            f"{'sd est':>9}{'units':>7}",
+            f"{'Contrast':<38}{'Power':>7}{'MC error':>10}{'Planted':>10}{'Mean estimate':>15}"
+            f"{'SD of estimates':>17}{'Units':>8}",
         ]
         for c in self.contrasts:
             lines.append(
-                f"{c.label:<38}{_num(c.power, 3):>7}{_num(c.mc_error, 3):>8}"
-                f"{_num(c.planted_effect, 3):>10}{_num(c.mean_estimate, 3):>10}"
-                f"{_num(c.sd_estimate, 3):>9}{c.n_units:>7}"
+                f"{c.label:<38}{_num(c.power, 3):>7}{_num(c.mc_error, 3):>10}"
+                f"{_num(c.planted_effect, 3):>10}{_num(c.mean_estimate, 3):>15}"
+                f"{_num(c.sd_estimate, 3):>17}{c.n_units:>8,}"
             )
         lines.append("")
         lines += [f"- {c.sentence}" for c in self.contrasts]

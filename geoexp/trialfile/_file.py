@@ -146,7 +146,17 @@ class TrialFile:
         try:
             return {str(row[0]) for row in pyogrio.list_layers(path)}
         except Exception as err:  # GDAL says little that helps a user here
-            raise InputError(f"cannot read {str(path)!r} as a GeoPackage: {err}") from None
+            if path.suffix.lower() == ".toml":
+                raise InputError(
+                    f"{str(path)!r} is a design spec, not a trial file (a GeoPackage written when "
+                    "the design's assignment is drawn): draw it first with 'geoexp draw "
+                    f"{path.name} --trial trial.gpkg', and give the trial file here; to map a "
+                    "spec before any design is drawn, use 'geoexp map --draw-only'"
+                ) from None
+            reason = str(err).split(";")[0].strip().rstrip(".")
+            raise InputError(
+                f"cannot read {str(path)!r} as a trial file: it is not a GeoPackage ({reason})"
+            ) from None
 
     @property
     def layers(self) -> set[str]:
