@@ -64,10 +64,13 @@ def treated_by_district(trial_path: Path) -> dict[str, list[str]]:
 
 
 def expected_pages(groups: dict[str, list[str]], paper: str) -> int:
-    """Cover + overview + per district one map page and the continuation pages of its list."""
+    """Cover + overview + per district one map page, the continuation pages of its list
+    and its visit-log sheets (one row per place, at least one sheet)."""
     lay = page_layout(paper)
     return 2 + sum(
-        1 + math.ceil(max(0, len(ids) - lay.rows_first) / lay.rows_continued)
+        1
+        + math.ceil(max(0, len(ids) - lay.rows_first) / lay.rows_continued)
+        + max(1, math.ceil(len(ids) / lay.rows_log))
         for ids in groups.values()
     )
 
@@ -174,7 +177,10 @@ def test_one_district_with_instructions_continues_its_list(one_district_trial, t
     assert n == expected_pages(groups, "letter") >= 4
     assert set(groups["All units"]) <= pdf_tokens(path)
     assert "Instructions" in pdf_tokens(path, 3)
-    assert {"Walk", "shift;"} <= pdf_tokens(path, n)  # the instructions reach the last page
+    log_sheets = math.ceil(len(groups["All units"]) / lay.rows_log)
+    last_list_page = n - log_sheets
+    assert {"Walk", "shift;"} <= pdf_tokens(path, last_list_page)  # the list's last page
+    assert {"Officer", "Notes"} <= pdf_tokens(path, n)  # then the visit-log sheets
     # Every listed id sits on the page, above the footer band of the layout (PDF points from the top).
     boxes = run(poppler("pdftotext"), "-bbox", str(path), "-")
     words = re.findall(r'yMin="([\d.]+)" xMax="[\d.]+" yMax="([\d.]+)">([^<]+)</word>', boxes)
@@ -185,7 +191,7 @@ def test_one_district_with_instructions_continues_its_list(one_district_trial, t
 
 def test_chosen_districts_and_errors(demo_trial, tmp_path):
     path = briefing_pack(demo_trial, tmp_path / "one.pdf", districts=["Saltvale"])
-    assert pdf_pages(path) == 3
+    assert pdf_pages(path) == 4  # cover, overview, map page, visit log
     assert set(treated_by_district(demo_trial)["Saltvale"]) <= pdf_tokens(path, 3)
     with pytest.raises(InputError, match="Nowhere"):
         briefing_pack(demo_trial, tmp_path / "bad.pdf", districts=["Saltvale", "Nowhere"])
@@ -206,8 +212,8 @@ def test_command_line(demo_trial, tmp_path):
         app, ["briefing", str(demo_trial), "--paper", "letter", "--out", str(out), "-d", "Saltvale"]
     )
     assert result.exit_code == 0, result.output
-    assert "3 pages" in result.output
-    assert pdf_pages(out) == 3
+    assert "4 pages" in result.output
+    assert pdf_pages(out) == 4
     result = CliRunner().invoke(app, ["briefing", str(demo_trial), "--paper", "a5"])
     assert result.exit_code != 0
 

@@ -174,7 +174,7 @@ def test_drawing_map_in_browser(demo, region, open_page, tmp_path):
     eligible = segments.index[:300]
     path = save_map(
         drawing_map(
-            segments, eligible=eligible, zones=[demo / "exclusion_zone.geojson"], tiles=None
+            segments, eligible=eligible, zones=[demo / "exclusion_zones.geojson"], tiles=None
         ),
         tmp_path / "draw.html",
     )
