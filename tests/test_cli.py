@@ -20,6 +20,7 @@ COMMANDS = [
     "analyse",
     "map",
     "briefing",
+    "field-list",
 ]
 
 

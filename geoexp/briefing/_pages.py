@@ -523,7 +523,7 @@ def _draw_table(
         fig.text(
             x0,
             y - 0.1,
-            "… text cut short here; the full text is in the field list (geoexp export).",
+            "… text cut short here; the full text is in the field list (geoexp field-list).",
             transform=inch,
             fontsize=6.5,
             va="top",
