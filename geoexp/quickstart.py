@@ -9,10 +9,10 @@ import geopandas as gpd
 import pandas as pd
 import shapely
 
-from geoexp.briefing import briefing_pack
+from geoexp.briefing import briefing_pack, field_list, save_field_list
 from geoexp.cautions import CAUTION
 from geoexp.design import Design, DesignSpec, check_design
-from geoexp.maps import planning_map, save_map
+from geoexp.maps import ZONES_FILENAME, planning_map, save_map
 from geoexp.power import NegativeBinomialOutcome, simulate_power
 from geoexp.sampleregion import DEMO_MULTIPLIERS, load_sample_region, simulate_trial_incidents
 from geoexp.trialfile import export_assignment_csv, write_trial
@@ -50,10 +50,13 @@ def demo_spec(
 def run_demo(out: str | Path, *, n_draws: int = 2000, echo: Callable[[str], None] = print) -> dict:
     """Run the whole job on the sample city, from planning to the analysis report.
 
-    Writes into ``out``: ``design.toml``, ``exclusion_zone.geojson`` (a drawn
-    zone around the city's stadium block), ``trial.gpkg`` (locked; a rerun of
-    the demo replaces it and keeps the old draw as superseded),
-    ``design_check.md``, ``field_list.csv``, ``planning_map.html``,
+    Writes into ``out``: ``design.toml``, ``exclusion_zones.geojson`` (a drawn
+    zone around the city's stadium block, with its reason), ``trial.gpkg``
+    (locked; a rerun of the demo replaces it and keeps the old draw as
+    superseded), ``design_check.md``, ``field_list.csv`` and
+    ``field_places.geojson`` (the treated places for patrols, numbered as in
+    the briefing pack), ``assignment_for_analysts.csv`` (every eligible unit and
+    its condition; not for field teams), ``planning_map.html``,
     ``briefing_a4.pdf``, ``incidents.csv`` (the invented
     incidents, the trial year simulated with a planted effect),
     ``incidents_not_counted.csv`` and ``report.html`` with ``report.md``.
@@ -80,7 +83,7 @@ def run_demo(out: str | Path, *, n_draws: int = 2000, echo: Callable[[str], None
         geometry=[shapely.buffer(centre, 0.002)],
         crs=4326,
     )
-    zone_path = out / "exclusion_zone.geojson"
+    zone_path = out / ZONES_FILENAME  # the name the map's "Save zones" button writes
     zone.to_file(zone_path, driver="GeoJSON", engine="pyogrio")
 
     spec = demo_spec(region_path, out, exclusion=zone_path.name)
@@ -113,11 +116,17 @@ def run_demo(out: str | Path, *, n_draws: int = 2000, echo: Callable[[str], None
     trial = write_trial(
         trial_path, design, assignment, check.probabilities, replace=True, reason="demo rerun"
     )
-    csv_path = out / "field_list.csv"
-    export_assignment_csv(trial, csv_path)
+    # Patrols get the treated places only; the analyst's list of every eligible unit and
+    # its condition is a separate file that is not handed to field teams.
+    csv_path, geojson_path = out / "field_list.csv", out / "field_places.geojson"
+    save_field_list(field_list(trial), csv_path, geojson_path)
+    analyst_path = out / "assignment_for_analysts.csv"
+    export_assignment_csv(trial, analyst_path)
     echo(str(assignment))
     echo(f"Trial file (locked): {trial_path}")
-    echo(f"Field list: {csv_path}")
+    echo(f"Field list (treated places only, numbered as in the briefing pack): {csv_path}")
+    echo(f"Treated places for phones (GeoJSON): {geojson_path}")
+    echo(f"Assignment of every eligible unit (analysts only): {analyst_path}")
     # The invented city lies in open ocean: a plain background instead of tiles, and its
     # own district polygons, the same on the planning map, the pack and the result map.
     map_path = save_map(
@@ -189,6 +198,8 @@ def run_demo(out: str | Path, *, n_draws: int = 2000, echo: Callable[[str], None
         "trial": trial_path,
         "check": check_path,
         "field_list": csv_path,
+        "field_places": geojson_path,
+        "analyst_list": analyst_path,
         "exclusion": zone_path,
         "planning_map": map_path,
         "briefing": pack_path,

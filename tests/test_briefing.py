@@ -14,6 +14,7 @@ import matplotlib.image as mpimg
 import numpy as np
 import pyproj
 import pytest
+import shapely
 from hypothesis import given
 from hypothesis import strategies as st
 from matplotlib.figure import Figure
@@ -64,10 +65,13 @@ def treated_by_district(trial_path: Path) -> dict[str, list[str]]:
 
 
 def expected_pages(groups: dict[str, list[str]], paper: str) -> int:
-    """Cover + overview + per district one map page and the continuation pages of its list."""
+    """Cover + overview + per district one map page, the continuation pages of its list
+    and its visit-log sheets (one row per place, at least one sheet)."""
     lay = page_layout(paper)
     return 2 + sum(
-        1 + math.ceil(max(0, len(ids) - lay.rows_first) / lay.rows_continued)
+        1
+        + math.ceil(max(0, len(ids) - lay.rows_first) / lay.rows_continued)
+        + max(1, math.ceil(len(ids) / lay.rows_log))
         for ids in groups.values()
     )
 
@@ -174,7 +178,10 @@ def test_one_district_with_instructions_continues_its_list(one_district_trial, t
     assert n == expected_pages(groups, "letter") >= 4
     assert set(groups["All units"]) <= pdf_tokens(path)
     assert "Instructions" in pdf_tokens(path, 3)
-    assert {"Walk", "shift;"} <= pdf_tokens(path, n)  # the instructions reach the last page
+    log_sheets = math.ceil(len(groups["All units"]) / lay.rows_log)
+    last_list_page = n - log_sheets
+    assert {"Walk", "shift;"} <= pdf_tokens(path, last_list_page)  # the list's last page
+    assert {"Officer", "Notes"} <= pdf_tokens(path, n)  # then the visit-log sheets
     # Every listed id sits on the page, above the footer band of the layout (PDF points from the top).
     boxes = run(poppler("pdftotext"), "-bbox", str(path), "-")
     words = re.findall(r'yMin="([\d.]+)" xMax="[\d.]+" yMax="([\d.]+)">([^<]+)</word>', boxes)
@@ -185,7 +192,7 @@ def test_one_district_with_instructions_continues_its_list(one_district_trial, t
 
 def test_chosen_districts_and_errors(demo_trial, tmp_path):
     path = briefing_pack(demo_trial, tmp_path / "one.pdf", districts=["Saltvale"])
-    assert pdf_pages(path) == 3
+    assert pdf_pages(path) == 4  # cover, overview, map page, visit log
     assert set(treated_by_district(demo_trial)["Saltvale"]) <= pdf_tokens(path, 3)
     with pytest.raises(InputError, match="Nowhere"):
         briefing_pack(demo_trial, tmp_path / "bad.pdf", districts=["Saltvale", "Nowhere"])
@@ -206,8 +213,8 @@ def test_command_line(demo_trial, tmp_path):
         app, ["briefing", str(demo_trial), "--paper", "letter", "--out", str(out), "-d", "Saltvale"]
     )
     assert result.exit_code == 0, result.output
-    assert "3 pages" in result.output
-    assert pdf_pages(out) == 3
+    assert "4 pages" in result.output
+    assert pdf_pages(out) == 4
     result = CliRunner().invoke(app, ["briefing", str(demo_trial), "--paper", "a5"])
     assert result.exit_code != 0
 
@@ -267,3 +274,176 @@ def test_north_arrow_points_to_true_north(lon, lat):
     x, y = proj(lon, lat)
     expected = proj.get_factors(lon, lat).meridian_convergence
     assert true_north_angle(crs, x, y) == pytest.approx(expected, abs=1e-3)
+
+
+# ---- placement, greyscale, districts, visit logs --------------------------------------
+
+LABEL_GIDS = ("place-number", "street-label", "district-label")
+FURNITURE_GIDS = ("scale-bar", "north-arrow")
+
+
+def _boxes(fig, gids):
+    """Display extents of the artists of ``gids`` on every map of ``fig``, by gid."""
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+    from matplotlib.text import Annotation
+
+    renderer = FigureCanvasAgg(fig).get_renderer()
+    fig.draw(renderer)
+    found = {g: [] for g in gids}
+    for ax in fig.axes:
+        for artist in ax.get_children():
+            gid = artist.get_gid()
+            if gid not in found:
+                continue
+            if isinstance(artist, Annotation):
+                box = artist.arrow_patch.get_window_extent(renderer)
+            else:
+                box = artist.get_window_extent(renderer)
+            found[gid].append((ax, artist, box))
+    return renderer, found
+
+
+def _marker_boxes(fig):
+    """Each numbered place's marker as a box, from the scatter's own offsets and size."""
+    out = []
+    for ax in fig.axes:
+        for coll in ax.collections:
+            if coll.get_gid() != "place":
+                continue
+            centres = ax.transData.transform(coll.get_offsets())
+            # scatter sizes are points squared: the marker's diameter is sqrt(s) points
+            half = np.sqrt(coll.get_sizes()[0]) / 2 * fig.dpi / 72
+            out += [(x - half, y - half, x + half, y + half) for x, y in centres]
+    return out
+
+
+def _overlap(a, b) -> bool:
+    return a[0] < b[2] and b[0] < a[2] and a[1] < b[3] and b[1] < a[3]
+
+
+@pytest.fixture(scope="module")
+def figures(demo_trial, region):
+    from geoexp.briefing import briefing_figures
+
+    return list(briefing_figures(demo_trial, district_polygons=region.districts))
+
+
+def test_no_label_or_furniture_covers_a_numbered_place(figures, demo_trial):
+    plan = plan_briefing(demo_trial)
+    map_pages = [figures[1]] + [figures[d.first_page - 1] for d in plan.districts]
+    for page_no, fig in zip([2] + [d.first_page for d in plan.districts], map_pages, strict=True):
+        markers = _marker_boxes(fig)
+        assert markers, f"page {page_no} draws no numbered place"
+        _, found = _boxes(fig, LABEL_GIDS + FURNITURE_GIDS)
+        assert found["scale-bar"] and found["north-arrow"], f"page {page_no} lacks furniture"
+        labels = []
+        for gid, items in found.items():
+            for ax, artist, box in items:
+                b = (box.x0, box.y0, box.x1, box.y1)
+                hits = [m for m in markers if _overlap(b, m)]
+                assert not hits, f"page {page_no}: a {gid} covers a numbered place"
+                # inside the map frame: nothing is clipped at the map's edge
+                frame = ax.get_window_extent()
+                assert frame.x0 <= b[0] and b[2] <= frame.x1, f"page {page_no}: {gid} clipped"
+                assert frame.y0 <= b[1] and b[3] <= frame.y1, f"page {page_no}: {gid} clipped"
+                if gid in LABEL_GIDS and artist.get_path_effects() == []:
+                    labels.append((gid, artist.get_text(), b))
+        # labels do not overlap one another (the halo copy under each is skipped)
+        for i, (g1, t1, b1) in enumerate(labels):
+            for g2, t2, b2 in labels[i + 1 :]:
+                assert not _overlap(b1, b2), f"page {page_no}: {g1} {t1!r} overlaps {g2} {t2!r}"
+        street = [a for _, a, _ in found["street-label"]]
+        assert all(a.get_fontsize() >= 7 for a in street)  # readable on paper (common practice)
+    # Every place of a district is numbered on its map with its number from the plan.
+    for d in plan.districts:
+        _, found = _boxes(figures[d.first_page - 1], ("place-number",))
+        drawn = {int(a.get_text()) for _, a, _ in found["place-number"]}
+        assert drawn == set(d.numbers), d.name
+
+
+def _relative_luminance(colour) -> float:
+    """WCAG 2.1 relative luminance (W3C 2018, definition 'relative luminance')."""
+    from matplotlib.colors import to_rgb
+
+    c = np.asarray(to_rgb(colour), dtype=float)
+    c = np.where(c <= 0.04045, c / 12.92, ((c + 0.055) / 1.055) ** 2.4)
+    return float(c @ np.array([0.2126, 0.7152, 0.0722]))
+
+
+def _contrast(a, b) -> float:
+    """WCAG 2.1 contrast ratio (L1 + 0.05) / (L2 + 0.05), lighter over darker."""
+    la, lb = sorted((_relative_luminance(a), _relative_luminance(b)), reverse=True)
+    return (la + 0.05) / (lb + 0.05)
+
+
+def test_pack_reads_in_greyscale(figures, demo_trial):
+    # Worked values of the WCAG formula: black on white is 21:1, white on white 1:1.
+    assert _contrast("black", "white") == pytest.approx(21.0)
+    assert _contrast("white", "white") == pytest.approx(1.0)
+    plan = plan_briefing(demo_trial)
+    for d in plan.districts:
+        ax = figures[d.first_page - 1].axes[0]
+        treated = [c for c in ax.collections if c.get_gid() == "treated"]
+        context = [c for c in ax.collections if c.get_gid() == "context"]
+        assert treated and context
+        # the treated places' darkest stroke (their casing), against streets and paper
+        darkest = min(
+            (tuple(rgba[:3]) for c in treated for rgba in c.get_colors()), key=_relative_luminance
+        )
+        grey = tuple(context[0].get_colors()[0][:3])
+        # WCAG 2.1 success criterion 1.4.11 (non-text contrast): at least 3:1 for the
+        # graphics needed to read a map, here a treated place against streets and paper.
+        assert _contrast(darkest, grey) >= 3.0, d.name
+        assert _contrast(darkest, "white") >= 3.0, d.name
+        # the context streets stay visible on paper without competing with the places
+        assert 1.5 <= _contrast(grey, "white") < _contrast(darkest, "white")
+
+
+def test_shared_district_borders_are_drawn_once(figures, region):
+    # Reference: shapely's union of the polygons' boundaries has each shared border once.
+    boundaries = shapely.boundary(region.districts.geometry.values)
+    union_length = shapely.union_all(boundaries).length
+    separate_length = shapely.length(boundaries).sum()
+    assert separate_length > 1.3 * union_length  # the sample city's districts share borders
+    ax = figures[1].axes[0]
+    (borders,) = [c for c in ax.collections if c.get_gid() == "districts"]
+    drawn = sum(float(np.hypot(*np.diff(seg, axis=0).T).sum()) for seg in borders.get_segments())
+    assert drawn == pytest.approx(union_length, rel=1e-6)
+
+
+def test_cover_and_timestamps_for_field_staff(packs):
+    text = run(poppler("pdftotext"), "-layout", str(packs["a4"]), "-")
+    assert "+00:00" not in text  # times print as people read them, not as ISO 8601
+    assert not re.search(r"\d{4}-\d\d-\d\dT\d\d:", text)
+    cover = run(poppler("pdftotext"), "-layout", "-f", "1", "-l", "1", str(packs["a4"]), "-")
+    # no city-wide counts of comparison groups on the cover
+    assert "spillover" not in cover.lower() and "pure control" not in cover.lower()
+    assert "Treated places in this pack: 40" in cover
+
+
+def test_visit_log_sheet_per_district(packs, demo_trial):
+    plan = plan_briefing(demo_trial)
+    for d in plan.districts:
+        last = d.first_page + d.n_pages - 1
+        tokens = pdf_tokens(packs["a4"], last)
+        assert {"Visit", "log:", "Date", "Time", "in", "out", "Officer", "Notes"} <= tokens
+        assert {str(n) for n in d.numbers} <= tokens
+
+
+def test_command_line_districts_option(demo_trial, region, tmp_path):
+    from typer.testing import CliRunner
+
+    from geoexp.cli import app
+
+    polygons = tmp_path / "districts.gpkg"
+    region.districts.to_file(polygons, engine="pyogrio")
+    out = tmp_path / "pack.pdf"
+    result = CliRunner().invoke(
+        app, ["briefing", str(demo_trial), "--out", str(out), "--districts", str(polygons)]
+    )
+    assert result.exit_code == 0, result.output
+    assert pdf_pages(out) == plan_briefing(demo_trial).n_pages
+    missing = CliRunner().invoke(
+        app, ["briefing", str(demo_trial), "--out", str(out), "--districts", "nowhere.gpkg"]
+    )
+    assert missing.exit_code == 2 and "nowhere.gpkg" in missing.output

@@ -58,9 +58,9 @@ def browser():
 class Opened:
     """A page opened offline, with the requests it tried to make."""
 
-    def __init__(self, browser, path: Path, tmp_path: Path):
+    def __init__(self, browser, path: Path, tmp_path: Path, viewport=(1300, 850)):
         self.context = browser.new_context(
-            viewport={"width": 1300, "height": 850}, accept_downloads=True
+            viewport={"width": viewport[0], "height": viewport[1]}, accept_downloads=True
         )
         self.page = self.context.new_page()
         self.blocked: list[str] = []
@@ -101,8 +101,8 @@ class Opened:
 def open_page(browser, tmp_path):
     opened: list[Opened] = []
 
-    def _open(path: Path) -> Opened:
-        o = Opened(browser, path, tmp_path)
+    def _open(path: Path, viewport=(1300, 850)) -> Opened:
+        o = Opened(browser, path, tmp_path, viewport)
         opened.append(o)
         return o
 
@@ -174,7 +174,7 @@ def test_drawing_map_in_browser(demo, region, open_page, tmp_path):
     eligible = segments.index[:300]
     path = save_map(
         drawing_map(
-            segments, eligible=eligible, zones=[demo / "exclusion_zone.geojson"], tiles=None
+            segments, eligible=eligible, zones=[demo / "exclusion_zones.geojson"], tiles=None
         ),
         tmp_path / "draw.html",
     )
@@ -237,3 +237,122 @@ def test_only_tiles_need_the_network(trial, open_page, tmp_path):
     assert o.blocked, "the tiles were not requested at all"
     assert all("tile.openstreetmap.org" in url for url in o.blocked), o.blocked
     assert o.drawn_counts()["condition:treated"] == int(trial.assignment()["treated"].sum())
+
+
+LAPTOP = (1280, 720)
+
+
+def _visible_and_on_top(o: Opened, selector: str) -> bool:
+    """The element is inside the viewport and nothing covers its centre."""
+    return o.page.evaluate(
+        """(sel) => {
+          const el = document.querySelector(sel);
+          if (!el) return false;
+          const r = el.getBoundingClientRect();
+          const x = r.left + r.width / 2, y = r.top + r.height / 2;
+          if (r.width === 0 || x < 0 || y < 0 || x > innerWidth || y > innerHeight) return false;
+          const top = document.elementFromPoint(x, y);
+          return top === el || el.contains(top);
+        }""",
+        selector,
+    )
+
+
+def test_zones_in_force_shown_with_reasons_at_laptop_size(trial, demo, open_page, tmp_path):
+    import geopandas as gpd
+
+    path = save_map(planning_map(trial, tiles=None), tmp_path / "plan.html")
+    o = open_page(path, LAPTOP)
+    check_loaded(o)
+    # Reference: the zone file the design's spec reads, read with geopandas.
+    spec = trial.spec()
+    assert [Path(z).name for z in spec.eligible.exclude] == ["exclusion_zones.geojson"]
+    zones = gpd.read_file(demo / "exclusion_zones.geojson", engine="pyogrio")
+    counts = o.drawn_counts()
+    assert counts["zones:1"] == len(zones) == 1
+    reason = zones["reason"].iloc[0]
+    assert reason in o.page.inner_text("#geoexp-legend")
+    tips = o.page.evaluate(
+        """() => window.geoexpMap.layers["zones:1"].getLayers()
+                 .map(l => l.getTooltip() && l.getTooltip().getContent())"""
+    )
+    assert len(tips) == 1 and reason in tips[0]
+    # the zone is drawn inside the visible map at laptop size
+    inside = o.page.evaluate(
+        """() => {
+          const l = window.geoexpMap.layers["zones:1"].getLayers()[0];
+          const r = l._path.getBoundingClientRect();
+          return r.width > 2 && r.height > 2 && r.right > 0 && r.bottom > 0 &&
+                 r.left < innerWidth && r.top < innerHeight;
+        }"""
+    )
+    assert inside
+
+
+def test_drawing_round_trip_with_a_reason_at_laptop_size(region_path, open_page, tmp_path):
+    """Draw a rectangle with the mouse, give its reason, save, exclude, and see it shown."""
+    from geoexp.units import UnitSet
+
+    units = UnitSet.from_file(region_path, "segment_id", layer="segments")
+    path = save_map(drawing_map(units, tiles=None), tmp_path / "draw.html")
+    o = open_page(path, LAPTOP)
+    check_loaded(o)
+    asked = []
+
+    def answer(dialog):
+        asked.append(dialog.message)
+        dialog.accept("school grounds: an after-school programme runs here")
+
+    o.page.on("dialog", answer)
+    assert _visible_and_on_top(o, ".leaflet-draw-draw-rectangle")
+    assert _visible_and_on_top(o, "#geoexp-save-zones")
+    x0, y0, x1, y1 = units.frame.total_bounds
+    to_lonlat = pyproj.Transformer.from_crs(units.crs, "EPSG:4326", always_xy=True)
+    (lon0, lon1), (lat0, lat1) = to_lonlat.transform(
+        [x0 + 0.42 * (x1 - x0), x0 + 0.52 * (x1 - x0)],
+        [y0 + 0.42 * (y1 - y0), y0 + 0.5 * (y1 - y0)],
+    )
+    corners = o.page.evaluate(
+        """([s, w, n, e]) => {
+          const m = window.geoexpMap.map, box = m.getContainer().getBoundingClientRect();
+          m.fitBounds([[s, w], [n, e]], {padding: [150, 150], animate: false});
+          const a = m.latLngToContainerPoint([n, w]), b = m.latLngToContainerPoint([s, e]);
+          return [a.x + box.left, a.y + box.top, b.x + box.left, b.y + box.top];
+        }""",
+        [lat0, lon0, lat1, lon1],
+    )
+    o.page.click(".leaflet-draw-draw-rectangle")
+    mouse = o.page.mouse
+    mouse.move(corners[0], corners[1])
+    mouse.down()
+    mouse.move((corners[0] + corners[2]) / 2, (corners[1] + corners[3]) / 2, steps=5)
+    mouse.move(corners[2], corners[3], steps=5)
+    mouse.up()
+    assert len(asked) == 1 and "excluded" in asked[0]
+    with o.page.expect_download() as info:
+        o.page.click("#geoexp-save-zones")
+    saved = tmp_path / "exclusion_zones.geojson"
+    info.value.save_as(saved)
+    fc = json.loads(saved.read_text(encoding="utf-8"))
+    assert len(fc["features"]) == 1
+    props = fc["features"][0]["properties"]
+    assert props["reason"] == "school grounds: an after-school programme runs here"
+    assert props["zone"] == 1
+    # the rectangle drawn with the mouse holds the corners asked for (within a few pixels)
+    ring = np.asarray(fc["features"][0]["geometry"]["coordinates"][0])
+    span = max(lon1 - lon0, lat1 - lat0)
+    assert abs(ring[:, 0].min() - lon0) < 0.05 * span and abs(ring[:, 0].max() - lon1) < 0.05 * span
+    assert abs(ring[:, 1].min() - lat0) < 0.05 * span and abs(ring[:, 1].max() - lat1) < 0.05 * span
+    # The saved file excludes the units it covers (shapely reference), and a map of the
+    # zones shows the reason that was typed.
+    kept = units.exclude(saved)
+    to_units = pyproj.Transformer.from_crs("EPSG:4326", units.crs, always_xy=True)
+    polygon = shapely.Polygon([to_units.transform(x, y) for x, y in ring])
+    hit = shapely.intersects(np.asarray(units.frame.geometry.array, dtype=object), polygon)
+    assert hit.sum() > 0
+    assert set(units.ids.difference(kept.ids)) == set(units.ids[hit])
+    again = open_page(
+        save_map(drawing_map(units, zones=[saved], tiles=None), tmp_path / "d2.html"), LAPTOP
+    )
+    assert "school grounds" in again.page.inner_text("#geoexp-legend")
+    assert again.drawn_counts()["zones:1"] == 1

@@ -24,6 +24,7 @@ COMMANDS = [
     "briefing",
     "baseline",
     "write-tables",
+    "field-list",
 ]
 
 

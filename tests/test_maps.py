@@ -22,6 +22,7 @@ import tomli_w
 from geoexp.errors import CRSError, InputError
 from geoexp.maps import (
     OKABE_ITO,
+    ZONES_FILENAME,
     OfflineAssetWarning,
     _assets,
     condition_order,
@@ -362,6 +363,36 @@ def test_drawn_zones_round_trip_through_design_spec(demo, tmp_path):
     design = Design.from_spec(DesignSpec.from_toml(spec_path))
     excluded = design.units.ids.difference(design.eligible_ids)
     assert set(excluded) == set(_units_touching(units.frame, fc))
+
+
+def test_planning_map_shows_the_zones_in_force_with_reasons(page, trial, demo):
+    """The design's own zone file, read back with geopandas, is on the planning map."""
+    html, _ = page
+    spec = trial.spec()
+    zone_files = [spec.resolve(z) for z in spec.eligible.exclude]
+    assert [p.name for p in zone_files] == ["exclusion_zones.geojson"]  # the saved name
+    zones = gpd.read_file(zone_files[0], engine="pyogrio")
+    shown = _datasets(html)["zones_1"]["data"]["features"]
+    assert len(shown) == len(zones) == 1
+    assert shown[0]["properties"]["reason"] == zones["reason"].iloc[0]
+    # the zone drawn is the file's polygon (same area in the units' CRS, shapely)
+    drawn = gpd.GeoSeries([shapely.geometry.shape(shown[0]["geometry"])], crs="EPSG:4326").to_crs(
+        trial.units().crs
+    )
+    assert drawn.area.iloc[0] == pytest.approx(zones.to_crs(drawn.crs).area.iloc[0], rel=1e-3)
+    assert zones["reason"].iloc[0] in html  # in the legend as well
+
+
+def test_zone_without_reason_or_file_is_said_so(region, tmp_path):
+    segments = region.segments.set_index("segment_id")
+    box = shapely.box(*segments.total_bounds).centroid.buffer(200.0)
+    no_reason = gpd.GeoDataFrame({"zone": [1]}, geometry=[box], crs=segments.crs).to_crs(4326)
+    path = tmp_path / "exclusion_zones.geojson"
+    no_reason.to_file(path, engine="pyogrio")
+    html, _ = map_html(drawing_map(segments, zones=[path, tmp_path / "gone.geojson"], tiles=None))
+    assert "no reason recorded" in html
+    assert "gone.geojson not found" in html
+    assert _config(html)["zones_filename"] == "exclusion_zones.geojson" == ZONES_FILENAME
 
 
 # --------------------------------------------------------------------------------- CLI

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import datetime as dt
 import textwrap
 from collections.abc import Sequence
 
@@ -15,6 +16,30 @@ from geoexp.maps import condition_handle, district_handle
 
 FONT = 7.5  # list text, points
 CHAR_WIDTH = 0.56  # average DejaVu Sans glyph width in ems, for wrapping by character count
+
+
+CONTEXT_GREY = "0.62"  # streets that are not treated places: light, but darker than paper
+
+
+def human_time(stamp: str | dt.datetime | None) -> str:
+    """A timestamp as people read it: local date and time with the zone's name.
+
+    ``"2026-12-03T00:35:10+00:00"`` prints as ``"3 December 2026, 00:35 UTC"`` on a
+    machine whose clock is set to UTC. Text that is not a timestamp is returned as is.
+    """
+    if stamp is None or stamp == "":
+        return "?"
+    if isinstance(stamp, dt.datetime):
+        when = stamp
+    else:
+        try:
+            when = dt.datetime.fromisoformat(str(stamp))
+        except ValueError:
+            return str(stamp)
+    if when.tzinfo is None:
+        when = when.replace(tzinfo=dt.UTC)  # geoexp stores times in UTC
+    local = when.astimezone()
+    return f"{local.day} {local:%B %Y, %H:%M} {local.tzname() or ''}".strip()
 
 
 def fit_extent(bounds, aspect: float, min_span: float, pad: float) -> tuple[float, ...]:
@@ -48,8 +73,15 @@ def map_axes(
 def legend_handles(
     labels: dict[str, str], codes: Sequence[str], district_label: str = "district (approx.)"
 ) -> list[Line2D]:
-    """Legend handles: each condition's print line, the numbered place, the district outline."""
+    """Legend handles: the treated place's line, other streets, the numbered place, districts.
+
+    Field maps show where to go, not the trial's comparison groups: every place
+    that is not treated is drawn alike, as a plain grey street.
+    """
     handles = [condition_handle(code, labels.get(code, code)) for code in codes]
+    handles.append(
+        Line2D([], [], color=CONTEXT_GREY, linewidth=0.6, label="other streets (not visited)")
+    )
     handles.append(
         Line2D(
             [],
@@ -89,7 +121,7 @@ class Pages:
         meta = self.data.trial.meta
         footer = (
             f"{meta.get('name', '')} · design {meta.get('spec_hash', '')[:12]} · "
-            f"drawn {meta.get('drawn_at', '?')} · printed {self.printed_at}"
+            f"drawn {human_time(meta.get('drawn_at'))} · printed {self.printed_at}"
         )
         fig.text(lay.margin, lay.margin + 0.05, footer, transform=inch, fontsize=6.5, color="0.25")
         fig.text(

@@ -159,10 +159,12 @@ def plan_pages(data: TrialData, paper: str, districts: Sequence[str] | None) -> 
     number, page = 1, 3
     for name in chosen:
         ids = tuple(order.index[order["district"].to_numpy() == name])
-        n_pages = layout.list_pages(len(ids))
-        parts.append(DistrictPages(name, ids, number, page, n_pages))
+        part = DistrictPages(
+            name, ids, number, page, layout.list_pages(len(ids)), layout.log_pages(len(ids))
+        )
+        parts.append(part)
         number += len(ids)
-        page += n_pages
+        page += part.n_pages
     return BriefingPlan(layout.paper, layout, data.district_column, tuple(parts), without)
 
 

@@ -4,21 +4,22 @@ from __future__ import annotations
 
 import datetime as dt
 import os
-from collections.abc import Sequence
+from collections.abc import Iterator, Sequence
 from pathlib import Path
 
 import geopandas as gpd
 import matplotlib
+from matplotlib.figure import Figure
 
 from geoexp._atomic import atomic_path
-from geoexp.briefing._chrome import Pages
+from geoexp.briefing._chrome import Pages, human_time
 from geoexp.briefing._load import load_trial, plan_pages
 from geoexp.briefing._pages import FIELD_NOTES, cover, district_pages, overview
 from geoexp.briefing._plan import Paper
 from geoexp.maps import PRINT_RC, district_outlines
 from geoexp.trialfile import TrialFile
 
-__all__ = ["FIELD_NOTES", "briefing_pack"]
+__all__ = ["FIELD_NOTES", "briefing_figures", "briefing_pack"]
 
 
 def briefing_pack(
@@ -32,15 +33,22 @@ def briefing_pack(
     """Write a printable briefing pack (PDF) for field teams.
 
     The pack holds a cover (trial name, when the assignment was drawn and when
-    the pack was printed, the design hash, counts per exposure condition, a
-    table of districts and the cautions for field staff), an overview map of
-    all districts, and for each district a map of its treated places,
+    the pack was printed, in local time, the design hash, the number of treated
+    places, a table of districts and the cautions for field staff), an overview
+    map of all districts, and for each district a map of its treated places,
     numbered, with street names, a scale bar in metres, a north arrow and a
     legend, followed by the numbered list (unit id, street description,
     condition and the spec's instructions column, if any), continued on extra
-    pages when it is long. Conditions differ by line width and dash as well as
-    by colour (Okabe & Ito, 2008), so the pack reads in black and white. Text
-    is embedded as TrueType text, so every unit id can be searched.
+    pages when it is long, and a visit-log sheet (place number, street, date,
+    time in and out, officer, notes) for the team to record its visits.
+
+    Field maps show only the treated places; every other place is a plain grey
+    street, so that the pack never points a team at a control or spillover
+    place. Numbers, street names, the scale bar and the north arrow are placed
+    where they cover no numbered place; a number or street name that finds no
+    room is listed under the map instead. Treated places have a black casing,
+    so the pack reads in black and white. Text is embedded as TrueType text, so
+    every unit id can be searched.
 
     Parameters
     ----------
@@ -55,8 +63,8 @@ def briefing_pack(
         default every district with treated units. Without a district column
         the pack has one district, "All units".
     district_polygons : path or GeoDataFrame, optional
-        District polygons to draw; by default outlines around each district's
-        units. The maps draw the same outlines
+        District polygons to draw as they are (shared borders once); by default
+        approximate outlines around each district's units. The maps draw the same outlines
         (:func:`geoexp.maps.district_outlines`).
 
     Returns
@@ -76,7 +84,25 @@ def briefing_pack(
 
     data = load_trial(trial)
     plan = plan_pages(data, paper, districts)
-    printed_at = dt.datetime.now(dt.UTC).replace(microsecond=0).isoformat()
+    path = Path(path)
+    metadata = {
+        "Title": f"Field briefing pack: {data.trial.meta.get('name', '')}",
+        "Subject": f"design {data.trial.meta.get('spec_hash', '')}",
+        "Creator": "geoexp",
+    }
+    with matplotlib.rc_context(PRINT_RC), atomic_path(path) as tmp:
+        with PdfPages(tmp, metadata=metadata) as pdf:
+            n = 0
+            for fig in _figures(data, plan, district_polygons):
+                pdf.savefig(fig)
+                n += 1
+        if n != plan.n_pages:  # the plan is the contract printed on every page
+            raise AssertionError(f"drew {n} pages, planned {plan.n_pages}")
+    return path
+
+
+def _figures(data, plan, district_polygons) -> Iterator[Figure]:
+    printed_at = human_time(dt.datetime.now(dt.UTC).replace(microsecond=0))
     found, _ = district_outlines(data.frame, "district", district_polygons)
     # The series' name is the outlines' legend label: exact boundaries, or outlines drawn
     # around each district's units.
@@ -87,19 +113,26 @@ def briefing_pack(
         name="district" if district_polygons is not None else "district (approx.)",
     )
     pages = Pages(data, plan, printed_at)
-    path = Path(path)
-    metadata = {
-        "Title": f"Field briefing pack: {data.trial.meta.get('name', '')}",
-        "Subject": f"design {data.trial.meta.get('spec_hash', '')}",
-        "Creator": "geoexp",
-    }
-    with matplotlib.rc_context(PRINT_RC), atomic_path(path) as tmp:
-        with PdfPages(tmp, metadata=metadata) as pdf:
-            pdf.savefig(cover(pages))
-            pdf.savefig(overview(pages, outlines))
-            for district in plan.districts:
-                for fig in district_pages(pages, district, outlines):
-                    pdf.savefig(fig)
-        if pages.page != plan.n_pages:  # the plan is the contract printed on every page
-            raise AssertionError(f"drew {pages.page} pages, planned {plan.n_pages}")
-    return path
+    yield cover(pages)
+    yield overview(pages, outlines)
+    for district in plan.districts:
+        yield from district_pages(pages, district, outlines)
+
+
+def briefing_figures(
+    trial: TrialFile | str | Path,
+    *,
+    paper: Paper = "a4",
+    districts: Sequence[str] | None = None,
+    district_polygons: str | os.PathLike | gpd.GeoDataFrame | None = None,
+) -> Iterator[Figure]:
+    """The pages of :func:`briefing_pack` as matplotlib figures, one by one, in the print style.
+
+    Map artists carry a ``gid`` (``place``, ``place-number``, ``street-label``,
+    ``scale-bar``, ``north-arrow``, ``district-label``), so their drawn extents
+    can be checked or the pages drawn elsewhere.
+    """
+    data = load_trial(trial)
+    plan = plan_pages(data, paper, districts)
+    with matplotlib.rc_context(PRINT_RC):
+        yield from _figures(data, plan, district_polygons)

@@ -11,27 +11,29 @@ from matplotlib.collections import LineCollection
 from matplotlib.figure import Figure
 from matplotlib.lines import Line2D
 from matplotlib.patches import Rectangle
-from matplotlib.transforms import offset_copy
 
 from geoexp.briefing._chrome import (
     CHAR_WIDTH,
+    CONTEXT_GREY,
     FONT,
     Pages,
     fit_extent,
+    human_time,
     legend_handles,
     map_axes,
     wrap,
 )
 from geoexp.briefing._load import label_points
+from geoexp.briefing._placement import MARKER_SIZE, NUMBER_OFFSETS, Placer, marker_boxes
 from geoexp.briefing._plan import ALL_UNITS, DistrictPages, PageLayout
 from geoexp.cautions import CAUTION
 from geoexp.maps import (
-    condition_order,
     draw_district_outlines,
     draw_units_by_condition,
-    halo_text,
     line_segments,
-    scale_bar_and_north_arrow,
+    north_arrow,
+    scale_bar,
+    true_north_angle,
 )
 
 FIELD_NOTES = (
@@ -46,6 +48,9 @@ FIELD_NOTES = (
     "numbered from north to south.",
 )
 
+STREET_FONT = 7.0  # points: street names stay readable on paper (at least 7 pt)
+NOTE_FONT = 7.0
+NUDGES = ((1, 0), (-1, 0), (0, 1), (0, -1), (1, 1), (-1, -1), (1, -1), (-1, 1))
 _OVERVIEW_NUMBERS_MAX = 150  # beyond this many treated places, numbers on the overview are clutter
 
 
@@ -60,7 +65,7 @@ def cover(pages: Pages) -> Figure:
         ("Design", f"{meta.get('spec_hash', '')[:12]} (full hash {meta.get('spec_hash', '')})"),
         (
             "Assignment drawn at",
-            f"{meta.get('drawn_at', '?')} (draw {meta.get('draw_number', '?')})",
+            f"{human_time(meta.get('drawn_at'))} (draw {meta.get('draw_number', '?')})",
         ),
         ("Pack printed at", pages.printed_at),
         ("Seed", meta.get("seed", "?")),
@@ -73,17 +78,18 @@ def cover(pages: Pages) -> Figure:
         y -= 0.2
 
     y -= 0.15
-    fig.text(x, y, "Units by exposure condition", transform=inch, fontsize=10, fontweight="bold")
-    y -= 0.24
-    frame = data.frame
-    counts = frame.groupby("condition").size()
-    for code in condition_order(counts.index):
-        fig.text(x + 0.1, y, data.condition_labels.get(code, code), transform=inch, fontsize=8.5)
-        fig.text(x + 2.6, y, f"{counts[code]:,}", transform=inch, fontsize=8.5, ha="right")
-        y -= 0.18
-    fig.text(x + 0.1, y, "all units", transform=inch, fontsize=8.5, fontweight="bold")
-    fig.text(x + 2.6, y, f"{len(frame):,}", transform=inch, fontsize=8.5, ha="right")
-    y -= 0.32
+    # Only what a team needs: its own places. City-wide counts of control and spillover
+    # places are for analysts (design check, report), not for the street.
+    fig.text(
+        x,
+        y,
+        f"Treated places in this pack: {plan.n_treated:,} in {len(plan.districts):,} "
+        f"district{'s' if len(plan.districts) != 1 else ''}",
+        transform=inch,
+        fontsize=10,
+        fontweight="bold",
+    )
+    y -= 0.36
 
     fig.text(x, y, "Districts in this pack", transform=inch, fontsize=10, fontweight="bold")
     y -= 0.24
@@ -161,6 +167,155 @@ def cover(pages: Pages) -> Figure:
     return fig
 
 
+def _markers(ax, xy: np.ndarray) -> None:
+    """The numbered places' markers: white dots with a black ring, above every line."""
+    dots = ax.scatter(
+        xy[:, 0],
+        xy[:, 1],
+        s=MARKER_SIZE,
+        facecolor="white",
+        edgecolor="black",
+        linewidth=1.0,
+        zorder=10,
+    )
+    dots.set_gid("place")
+
+
+def _context(ax, frame: gpd.GeoDataFrame, alpha: float = 1.0) -> None:
+    """Streets and parcels that are not treated places, all alike in light grey."""
+    lines = LineCollection(
+        line_segments(frame.geometry.values),
+        colors=CONTEXT_GREY,
+        linewidths=0.6,
+        zorder=2,
+        alpha=alpha,
+    )
+    lines.set_gid("context")
+    ax.add_collection(lines)
+
+
+def _treated(ax, places: gpd.GeoDataFrame) -> None:
+    """The treated places in the project's print style, tagged ``treated`` for checks."""
+    before = len(ax.collections)
+    draw_units_by_condition(ax, places, ["treated"])
+    for artist in ax.collections[before:]:
+        artist.set_gid("treated")
+
+
+def _borders(outlines: gpd.GeoSeries) -> gpd.GeoSeries:
+    """District boundaries with each shared border once (drawn twice, dashes would double)."""
+    if len(outlines) == 0:
+        return outlines
+    merged = shapely.line_merge(shapely.union_all(shapely.boundary(outlines.values)))
+    return gpd.GeoSeries([merged], crs=outlines.crs)
+
+
+def _place_furniture(placer: Placer, frame: gpd.GeoDataFrame, data, extent) -> bool:
+    """Scale bar and north arrow in corners free of numbered places; False if none is free."""
+    ax = placer.ax
+    mpu = data.metres_per_unit
+    cx, cy = (extent[0] + extent[2]) / 2, (extent[1] + extent[3]) / 2
+    angle = true_north_angle(frame.crs, cx, cy)
+    bars = [
+        (fraction, anchor)
+        for fraction in (0.25, 0.15)
+        for anchor in (
+            (0.03, 0.035),
+            (0.97 - fraction - 0.07, 0.035),
+            (0.03, 0.9),
+            (0.97 - fraction - 0.07, 0.9),
+        )
+    ]
+    placed_bar = placer.furniture(
+        bars,
+        lambda c: scale_bar(ax, metres_per_unit=mpu, fraction=c[0], anchor=c[1]),
+        "scale-bar",
+    )
+    arrows = ((0.95, 0.86), (0.05, 0.86), (0.95, 0.14), (0.05, 0.14), (0.5, 0.86), (0.5, 0.14))
+    placed_arrow = placer.furniture(
+        arrows, lambda c: north_arrow(ax, angle=angle, anchor=c), "north-arrow"
+    )
+    return placed_bar and placed_arrow
+
+
+def _map_with_furniture(fig, rect, extent, xy, frame, data, draw) -> tuple:
+    """Draw a map whose scale bar and north arrow cover no numbered place.
+
+    ``draw(ax)`` draws the lines. When no corner is free, the map zooms out a
+    step (the places then sit nearer the middle) and is drawn again.
+    """
+    for _ in range(5):
+        ax = map_axes(fig, rect, extent)
+        draw(ax)
+        _markers(ax, xy)
+        placer = Placer(ax, marker_boxes(ax, xy))
+        if _place_furniture(placer, frame, data, extent):
+            return ax, placer, extent
+        fig.delaxes(ax)
+        cx, cy = (extent[0] + extent[2]) / 2, (extent[1] + extent[3]) / 2
+        w, h = (extent[2] - extent[0]) * 1.2, (extent[3] - extent[1]) * 1.2
+        extent = (cx - w / 2, cy - h / 2, cx + w / 2, cy + h / 2)
+    # Five zoom steps leave the places in the middle third of the map, so this is not
+    # expected; if it happens the map says what it lacks rather than cover a place.
+    ax = map_axes(fig, rect, extent)
+    draw(ax)
+    _markers(ax, xy)
+    left, bottom, width, _ = rect
+    fig.text(
+        left + width,
+        bottom - 0.03,
+        "scale bar and north arrow left off: no corner free of numbered places",
+        transform=fig.dpi_scale_trans,
+        fontsize=NOTE_FONT,
+        ha="right",
+        va="top",
+        style="italic",
+    )
+    return ax, Placer(ax, marker_boxes(ax, xy)), extent
+
+
+def _numbers(placer: Placer, xy: np.ndarray, numbers, fontsize: float) -> list[int]:
+    """Number each place beside its marker; return the numbers that found no room."""
+    left_off = []
+    for n, (px, py) in zip(numbers, xy, strict=True):
+        ok = placer.text(
+            px,
+            py,
+            str(n),
+            NUMBER_OFFSETS,
+            gid="place-number",
+            fontsize=fontsize,
+            fontweight="bold",
+            zorder=11,
+            halo=3.5,
+        )
+        if not ok:
+            left_off.append(n)
+    return left_off
+
+
+def _off_map_note(fig, lay: PageLayout, y: float, numbers: list, streets: list) -> None:
+    parts = []
+    if numbers:
+        parts.append(
+            "No room on the map for the numbers "
+            + ", ".join(str(n) for n in numbers)
+            + ": find them in the list by street."
+        )
+    if streets:
+        parts.append("Also on this map: " + ", ".join(streets) + ".")
+    if parts:
+        fig.text(
+            lay.margin,
+            y,
+            wrap(" ".join(parts), lay.width - 2 * lay.margin, 1, NOTE_FONT),
+            transform=fig.dpi_scale_trans,
+            fontsize=NOTE_FONT,
+            style="italic",
+            va="bottom",
+        )
+
+
 def overview(pages: Pages, outlines: gpd.GeoSeries) -> Figure:
     data, plan, lay = pages.data, pages.plan, pages.layout
     frame = data.frame
@@ -175,41 +330,37 @@ def overview(pages: Pages, outlines: gpd.GeoSeries) -> Figure:
     extent = fit_extent(
         frame.total_bounds, width / height, 0.0, 0.03 * np.ptp(frame.total_bounds[[0, 2]])
     )
-    ax = map_axes(fig, (lay.margin, bottom, width, height), extent)
-    context = frame[~frame["treated"]]
-    ax.add_collection(
-        LineCollection(
-            line_segments(context.geometry.values), colors="0.6", linewidths=0.4, zorder=2
-        )
+    number_of = {
+        uid: n for d in plan.districts for uid, n in zip(d.unit_ids, d.numbers, strict=True)
+    }
+    in_pack = frame[frame.index.isin(list(number_of))]
+    xy = label_points(in_pack.geometry)
+    numbers = [number_of[uid] for uid in in_pack.index]
+
+    def draw(ax):
+        _context(ax, frame[~frame.index.isin(in_pack.index)])
+        _treated(ax, in_pack)
+        draw_district_outlines(ax, _borders(outlines))
+
+    ax, placer, extent = _map_with_furniture(
+        fig, (lay.margin, bottom, width, height), extent, xy, frame, data, draw
     )
-    draw_units_by_condition(ax, frame[frame["treated"]], ["treated"])
-    xy = label_points(frame.geometry[frame["treated"]])
-    ax.scatter(
-        xy[:, 0], xy[:, 1], s=14, facecolor="white", edgecolor="black", linewidth=0.8, zorder=8
-    )
+    left_off: list[int] = []
     if plan.n_treated <= _OVERVIEW_NUMBERS_MAX:
-        number_of = {
-            uid: n for d in plan.districts for uid, n in zip(d.unit_ids, d.numbers, strict=True)
-        }
-        shifted = offset_copy(ax.transData, fig=fig, x=3, y=3, units="points")
-        treated_ids = frame.index[frame["treated"]]
-        for uid, (px, py) in zip(treated_ids, xy, strict=True):
-            if uid in number_of:
-                # Above the district names, so that no number is hidden by a name.
-                halo_text(
-                    ax, px, py, str(number_of[uid]), transform=shifted, fontsize=6.5, zorder=12
-                )
-    draw_district_outlines(ax, outlines)
+        left_off = _numbers(placer, xy, numbers, 6.5)
     first_page = {d.name: d.first_page for d in plan.districts}
     label_at = shapely.get_coordinates(shapely.point_on_surface(outlines.values))
+    unlabelled = []
     for (name, _), (lx, ly) in zip(outlines.items(), label_at, strict=True):
         page = first_page.get(name)
         text = f"{name}\n(page {page})" if page else f"{name}\n(no treated places)"
-        halo_text(
-            ax,
+        nudges = [(0.0, 0.0)] + [(dx * 18, dy * 14) for dx, dy in NUDGES]
+        ok = placer.text(
             lx,
             ly,
             text,
+            nudges,
+            gid="district-label",
             ha="center",
             va="center",
             fontsize=9,
@@ -217,13 +368,22 @@ def overview(pages: Pages, outlines: gpd.GeoSeries) -> Figure:
             zorder=9,
             halo=3.5,
         )
-    scale_bar_and_north_arrow(
-        ax, crs=frame.crs, metres_per_unit=data.metres_per_unit, bounds=extent
-    )
+        if not ok:
+            unlabelled.append(f"{name} (page {page})" if page else name)
+    _off_map_note(fig, lay, lay.margin + lay.footer + 0.02, left_off, [])
+    if unlabelled:
+        fig.text(
+            lay.margin + width,
+            lay.margin + lay.footer + 0.02,
+            "Districts not named on the map: " + ", ".join(unlabelled),
+            transform=fig.dpi_scale_trans,
+            fontsize=NOTE_FONT,
+            ha="right",
+            style="italic",
+        )
     handles = [
         legend_handles(data.condition_labels, ["treated"], outlines.name)[0],
-        Line2D([], [], color="0.6", linewidth=0.4, label="other units"),
-        *legend_handles(data.condition_labels, [], outlines.name)[-2:],
+        *legend_handles(data.condition_labels, [], outlines.name),
     ]
     fig.legend(
         handles=handles,
@@ -239,56 +399,58 @@ def overview(pages: Pages, outlines: gpd.GeoSeries) -> Figure:
 
 
 def _street_labels(
-    ax, frame: gpd.GeoDataFrame, treated: gpd.GeoDataFrame, extent, limit: int = 20
-) -> None:
-    """Name the streets near the treated places, once each.
+    placer: Placer, frame: gpd.GeoDataFrame, treated: gpd.GeoDataFrame, limit: int = 20
+) -> list[str]:
+    """Name the streets near the treated places, once each; return the names left off.
 
     Each street is named on its piece nearest to a treated place that does not
     touch one, so the name sits beside the numbers rather than on top of them.
+    A name that would cover a place, a number, another name or the map's edge
+    is left off the map and listed under it instead.
     """
-    w, h = extent[2] - extent[0], extent[3] - extent[1]
-    inner = shapely.box(
-        extent[0] + 0.06 * w, extent[1] + 0.08 * h, extent[2] - 0.06 * w, extent[3] - 0.06 * h
-    )
-    inside = frame.iloc[frame.sindex.query(inner, predicate="contains")]
-    inside = inside[(inside["street"] != "") & inside.geom_type.isin(["LineString"])]
-    if inside.empty:
-        return
-    near, distance = treated.sindex.nearest(inside.geometry, return_distance=True)
-    gap = np.full(len(inside), np.inf)
+    named = frame[(frame["street"] != "") & frame.geom_type.isin(["LineString"])]
+    if named.empty:
+        return []
+    near, distance = treated.sindex.nearest(named.geometry, return_distance=True)
+    gap = np.full(len(named), np.inf)
     np.minimum.at(gap, near[0], distance)
-    pick = (
-        inside.assign(_gap=gap)
-        .loc[lambda f: f["_gap"] > 0]
-        .sort_values("_gap", kind="stable")
-        .drop_duplicates("street")
-        .head(limit)
-    )
-    if pick.empty:
-        return
-    starts = shapely.get_point(pick.geometry.values, 0)
-    ends = shapely.get_point(pick.geometry.values, -1)
+    ranked = named.assign(_gap=gap).loc[lambda f: f["_gap"] > 0].sort_values("_gap", kind="stable")
+    wanted = list(dict.fromkeys(ranked["street"]))[:limit]
+    if not wanted:
+        return []
+    starts = shapely.get_point(ranked.geometry.values, 0)
+    ends = shapely.get_point(ranked.geometry.values, -1)
     dx = shapely.get_x(ends) - shapely.get_x(starts)
     dy = shapely.get_y(ends) - shapely.get_y(starts)
     angle = np.degrees(np.arctan2(dy, dx))
     # Keep the text upright: turn labels that would read downwards by half a turn.
     angle = np.where(angle > 90, angle - 180, np.where(angle < -90, angle + 180, angle))
-    mid = label_points(pick.geometry)
-    for name, (mx, my), rot in zip(pick["street"], mid, angle, strict=True):
-        halo_text(
-            ax,
-            mx,
-            my,
-            name,
-            rotation=rot,
-            rotation_mode="anchor",
-            ha="center",
-            va="center",
-            fontsize=6,
-            style="italic",
-            color="0.15",
-            zorder=9,
-        )
+    mid = label_points(ranked.geometry)
+    names = ranked["street"].to_numpy()
+    left_off = []
+    for street in wanted:
+        # Try the street's pieces nearest the places first, then the farther ones.
+        done = False
+        for k in np.flatnonzero(names == street)[:6]:
+            done = placer.text(
+                mid[k, 0],
+                mid[k, 1],
+                street,
+                gid="street-label",
+                rotation=angle[k],
+                rotation_mode="anchor",
+                ha="center",
+                va="center",
+                fontsize=STREET_FONT,
+                style="italic",
+                color="0.1",
+                zorder=9,
+            )
+            if done:
+                break
+        if not done:
+            left_off.append(street)
+    return left_off
 
 
 def _table_columns(lay: PageLayout, with_instructions: bool) -> list[tuple[str, float, str]]:
@@ -375,7 +537,7 @@ def _draw_table(
         fig.text(
             x0,
             y - 0.1,
-            "… text cut short here; the full text is in the field list (geoexp export).",
+            "… text cut short here; the full text is in the field list (geoexp field-list).",
             transform=inch,
             fontsize=6.5,
             va="top",
@@ -426,41 +588,33 @@ def district_pages(pages: Pages, district: DistrictPages, outlines: gpd.GeoSerie
         500.0 / data.metres_per_unit,
         max(150.0 / data.metres_per_unit, 0.08 * span),
     )
-    ax = map_axes(fig, (lay.margin, map_bottom, width, lay.map_height), extent)
+    pack_ids = set(ids)
+
+    def draw(ax):
+        x0, y0, x1, y1 = ax.get_xlim()[0], ax.get_ylim()[0], ax.get_xlim()[1], ax.get_ylim()[1]
+        view = frame.iloc[frame.sindex.query(shapely.box(x0, y0, x1, y1), predicate="intersects")]
+        mine = view.index.isin(list(pack_ids))
+        # Only this district's treated places stand out. Every other place is a grey street:
+        # a patrol map that marked control or spillover places would invite visits there.
+        # Other districts' treated places stay faded, for orientation.
+        _context(ax, view[~mine])
+        others = view[view["treated"].to_numpy() & ~mine]
+        draw_units_by_condition(ax, others, ["treated"], alpha=0.3)
+        _treated(ax, view[mine])
+        draw_district_outlines(ax, _borders(outlines))
+
+    ax, placer, extent = _map_with_furniture(
+        fig, (lay.margin, map_bottom, width, lay.map_height), extent, xy, frame, data, draw
+    )
+    left_numbers = _numbers(placer, xy, numbers, 10)
     view = frame.iloc[frame.sindex.query(shapely.box(*extent), predicate="intersects")]
-    own = view["district"].to_numpy() == district.name
-    # Places of other districts stay on the map for orientation, faded, so that a team
-    # does not take another district's treated place for one of its own.
-    draw_units_by_condition(ax, view[~own], condition_order(view["condition"].unique()), alpha=0.3)
-    draw_units_by_condition(ax, view[own], condition_order(view["condition"].unique()))
-    draw_district_outlines(ax, outlines)
-    _street_labels(ax, view, treated, extent)
-    ax.scatter(
-        xy[:, 0], xy[:, 1], s=22, facecolor="white", edgecolor="black", linewidth=1.0, zorder=10
-    )
-    shifted = offset_copy(ax.transData, fig=fig, x=4.5, y=4.5, units="points")
-    for n, (px, py) in zip(numbers, xy, strict=True):
-        halo_text(
-            ax,
-            px,
-            py,
-            str(n),
-            transform=shifted,
-            fontsize=10,
-            fontweight="bold",
-            zorder=11,
-            halo=3.5,
-        )
-    scale_bar_and_north_arrow(
-        ax, crs=frame.crs, metres_per_unit=data.metres_per_unit, bounds=extent
-    )
-    codes = condition_order(view["condition"].unique())
+    left_streets = _street_labels(placer, view, treated)
     fig.legend(
-        handles=legend_handles(data.condition_labels, codes, outlines.name),
+        handles=legend_handles(data.condition_labels, ["treated"], outlines.name),
         loc="upper left",
         bbox_to_anchor=(lay.margin, map_bottom - 0.03),
         bbox_transform=fig.dpi_scale_trans,
-        ncol=3,
+        ncol=4,
         frameon=False,
         fontsize=7,
         handlelength=3.2,
@@ -468,12 +622,120 @@ def district_pages(pages: Pages, district: DistrictPages, outlines: gpd.GeoSerie
         borderaxespad=0.0,
     )
     table_top = map_bottom - lay.legend_strip
+    _off_map_note(fig, lay, table_top + 0.04, left_numbers, left_streets)
     first, rest = rows[: lay.rows_first], rows[lay.rows_first :]
     _draw_table(fig, lay, table_top, first, columns)
     figures = [fig]
-    for k in range(1, district.n_pages):
+    for k in range(1, district.n_list_pages):
         chunk = rest[(k - 1) * lay.rows_continued : k * lay.rows_continued]
-        fig = pages.new(f"{title} (list continued, {k + 1} of {district.n_pages})", count)
+        fig = pages.new(f"{title} (list continued, {k + 1} of {district.n_list_pages})", count)
         _draw_table(fig, lay, pages.body_top, chunk, columns)
+        figures.append(fig)
+    figures.extend(visit_log_pages(pages, district, title))
+    return figures
+
+
+LOG_COLUMNS = (  # title, share of the page's width
+    ("#", 0.06),
+    ("Street", 0.26),
+    ("Date", 0.11),
+    ("Time in", 0.09),
+    ("Time out", 0.09),
+    ("Officer", 0.14),
+    ("Notes", 0.25),
+)
+
+
+def visit_log_pages(pages: Pages, district: DistrictPages, title: str) -> list[Figure]:
+    """The district's visit-log sheets: one row per place for the team to fill in by hand."""
+    data, lay = pages.data, pages.layout
+    streets = data.frame.loc[list(district.unit_ids), "street"].to_numpy()
+    rows = [(str(n), str(st)) for n, st in zip(district.numbers, streets, strict=True)]
+    width = lay.width - 2 * lay.margin
+    figures = []
+    for k in range(district.n_log_pages):
+        chunk = rows[k * lay.rows_log : (k + 1) * lay.rows_log]
+        more = f" ({k + 1} of {district.n_log_pages})" if district.n_log_pages > 1 else ""
+        fig = pages.new(
+            f"Visit log: {title}{more}",
+            "Write one line per visit; copy this sheet for more. Hand it to the trial lead "
+            "at the end of each period.",
+        )
+        inch = fig.dpi_scale_trans
+        top = pages.body_top - lay.log_intro
+        fig.text(
+            lay.margin,
+            top + 0.12,
+            "Team: ____________________   Period: ______________   Sheet ___ of ___",
+            transform=inch,
+            fontsize=9,
+        )
+        fig.add_artist(
+            Rectangle(
+                (lay.margin, top - lay.table_header),
+                width,
+                lay.table_header,
+                transform=inch,
+                facecolor="0.2",
+            )
+        )
+        x = lay.margin
+        edges = [x]
+        for head, share in LOG_COLUMNS:
+            fig.text(
+                x + 0.05,
+                top - lay.table_header / 2,
+                head,
+                transform=inch,
+                fontsize=8,
+                fontweight="bold",
+                color="white",
+                va="center",
+            )
+            x += share * width
+            edges.append(x)
+        y = top - lay.table_header
+        # Blank rows fill the sheet, for repeat visits.
+        for i in range(lay.rows_log):
+            bottom = y - lay.log_row_height
+            fig.add_artist(
+                Line2D(
+                    [lay.margin, lay.margin + width],
+                    [bottom, bottom],
+                    transform=inch,
+                    color="0.35",
+                    linewidth=0.5,
+                )
+            )
+            if i < len(chunk):
+                number, street = chunk[i]
+                fig.text(
+                    edges[0] + 0.05,
+                    y - lay.log_row_height / 2,
+                    number,
+                    transform=inch,
+                    fontsize=9,
+                    fontweight="bold",
+                    va="center",
+                )
+                fig.text(
+                    edges[1] + 0.05,
+                    y - lay.log_row_height / 2,
+                    wrap(street, edges[2] - edges[1] - 0.1, 1, 8),
+                    transform=inch,
+                    fontsize=8,
+                    va="center",
+                )
+            y = bottom
+        for edge in edges:
+            fig.add_artist(
+                Line2D(
+                    [edge, edge],
+                    [top - lay.table_header, y],
+                    transform=inch,
+                    color="0.35",
+                    linewidth=0.5,
+                )
+            )
         figures.append(fig)
     return figures

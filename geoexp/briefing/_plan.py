@@ -38,6 +38,8 @@ class PageLayout:
     table_header: float = 0.3
     row_height: float = 0.3
     map_share: float = 0.52
+    log_intro: float = 0.45
+    log_row_height: float = 0.34
 
     @property
     def usable_height(self) -> float:
@@ -60,6 +62,16 @@ class PageLayout:
         """List rows on a continuation page (no map)."""
         return math.floor((self.usable_height - self.table_header) / self.row_height)
 
+    @property
+    def rows_log(self) -> int:
+        """Rows on a visit-log sheet."""
+        room = self.usable_height - self.log_intro - self.table_header
+        return math.floor(room / self.log_row_height)
+
+    def log_pages(self, n_places: int) -> int:
+        """Visit-log sheets a district needs: one row per place, at least one sheet."""
+        return max(1, math.ceil(n_places / self.rows_log))
+
     def list_pages(self, n_rows: int) -> int:
         """Pages a district needs: its map page plus continuation pages for the rest of its list."""
         rest = max(0, n_rows - self.rows_first)
@@ -77,13 +89,23 @@ def page_layout(paper: str) -> PageLayout:
 
 @dataclass(frozen=True)
 class DistrictPages:
-    """One district's part of the pack: its treated units in numbering order and its pages."""
+    """One district's part of the pack: its treated units in numbering order and its pages.
+
+    Its pages are a map page with the start of its list, the list's continuation
+    pages, then its visit-log sheets.
+    """
 
     name: str
     unit_ids: tuple
     first_number: int
     first_page: int
-    n_pages: int
+    n_list_pages: int
+    n_log_pages: int = 1
+
+    @property
+    def n_pages(self) -> int:
+        """All pages of the district: map and list pages, then visit-log sheets."""
+        return self.n_list_pages + self.n_log_pages
 
     @property
     def numbers(self) -> range:
@@ -101,7 +123,8 @@ class BriefingPlan:
     """What a briefing pack will hold, page by page.
 
     Pages: 1 cover, 2 overview map, then for each district a map page with the
-    start of its list and as many continuation pages as its list needs.
+    start of its list, as many continuation pages as its list needs, and its
+    visit-log sheets (one row per place, to record each visit).
     """
 
     paper: str

@@ -189,7 +189,13 @@ def draw_command(
         typer.Option(help="Why a locked assignment is replaced (recorded; needed with --replace)."),
     ] = "",
     design_draws: DesignDrawsOpt = None,
-    csv: Annotated[Path | None, typer.Option(help="Also write the field list as CSV here.")] = None,
+    csv: Annotated[
+        Path | None,
+        typer.Option(
+            help="Also write the analysts' assignment list (every eligible unit; not for "
+            "patrols: see field-list) as CSV here."
+        ),
+    ] = None,
     draws: OldDrawsOpt = None,
     quiet: QuietOpt = False,
 ) -> None:
@@ -219,9 +225,9 @@ def draw_command(
     console.print(str(assignment))
     console.print(f"Trial file written and locked: {tf.path}")
     if csv is not None:
-        with writing(csv, "field list"):
+        with writing(csv, "assignment list"):
             export_assignment_csv(tf, csv)
-        console.print(f"Field list: {csv}")
+        console.print(f"Assignment list for analysts (not for patrols): {csv}")
 
 
 @app.command("check")
@@ -261,11 +267,15 @@ def export_command(
     trial: Annotated[Path, typer.Argument(help="Trial file (GeoPackage).")],
     csv: Annotated[Path, typer.Option(help="CSV file to write.")],
 ) -> None:
-    """Write a trial's assignment as a CSV list for field teams."""
+    """Write the analysts' assignment list (every eligible unit, its condition) as CSV.
+
+    Not for patrols: it names control and spillover places. Field teams get
+    'geoexp field-list' (treated places only).
+    """
     from geoexp.trialfile import export_assignment_csv
 
     check_outputs({"--csv": csv}, {}, trial=trial)
-    with writing(csv, "field list"):
+    with writing(csv, "assignment list"):
         out = export_assignment_csv(trial, csv)
     console.print(f"{len(out):,} unit{'' if len(out) == 1 else 's'} written to {csv}")
 

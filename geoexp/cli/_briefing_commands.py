@@ -37,17 +37,30 @@ def briefing_command(
         list[str] | None,
         typer.Option("--district", "-d", help="Only this district (repeat for several)."),
     ] = None,
+    districts: Annotated[
+        Path | None,
+        typer.Option(
+            help="District polygons (any vector file with a CRS), drawn as they are; by "
+            "default approximate outlines around each district's units."
+        ),
+    ] = None,
 ) -> None:
-    """Write the printable briefing pack for field teams: cover, overview map, district maps and lists."""
+    """Write the printable briefing pack for field teams: cover, overview, district maps, lists and visit logs."""
     from geoexp.briefing import briefing_pack, plan_briefing
     from geoexp.cautions import CAUTION
 
     if out is None:
         out = trial.with_name(f"{trial.stem}_briefing_{paper.value}.pdf")
-    check_outputs({"--out": out}, {}, trial=trial)
+    check_outputs({"--out": out}, {"--districts": districts}, trial=trial)
     plan = plan_briefing(trial, paper=paper.value, districts=district or None)
     with writing(out, "briefing pack"):
-        path = briefing_pack(trial, out, paper=paper.value, districts=district or None)
+        path = briefing_pack(
+            trial,
+            out,
+            paper=paper.value,
+            districts=district or None,
+            district_polygons=districts,
+        )
     console.print(str(plan))
     console.print(f"Briefing pack written: {path}")
     console.print(CAUTION)

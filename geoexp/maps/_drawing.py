@@ -5,25 +5,24 @@ from __future__ import annotations
 import datetime as dt
 import os
 from collections.abc import Sequence
-from pathlib import Path
 
 import geopandas as gpd
 import numpy as np
 import pandas as pd
 
 from geoexp.errors import InputError
-from geoexp.maps._geometry import district_outlines, metres_per_unit, read_polygons
+from geoexp.maps._geometry import district_outlines, metres_per_unit
 from geoexp.maps._page import (
     DRAW_NOTE,
     Page,
     add_districts,
     add_eligible,
-    fill_sample,
     finish_drawable,
     legend_row,
     line_sample,
 )
-from geoexp.maps._web import feature_collection, to_web, unit_dataset
+from geoexp.maps._web import unit_dataset
+from geoexp.maps._zones import add_zones
 
 
 def drawing_map(
@@ -50,7 +49,8 @@ def drawing_map(
     district_column, description_column : str, optional
         Unit columns shown in tooltips.
     zones : sequence of paths
-        Exclusion zones already in use, shown for reference.
+        Exclusion zones already in use, shown with the reason each carries (the
+        ``reason`` property that "Save zones" writes).
     title : str
         Heading of the legend.
     tiles : str or None
@@ -90,34 +90,7 @@ def drawing_map(
     )
     dist_frame, how = district_outlines(frame, district_column, districts)
     add_districts(page, dist_frame, how)
-    for k, path in enumerate(zones):
-        zf = read_polygons(path, "exclusion zones", frame.crs)
-        key = f"zones_{k + 1}"
-        page.datasets[key] = {
-            "data": feature_collection(
-                to_web(zf.geometry, 0.0), [{"name": f"{Path(path).name}"}] * len(zf)
-            ),
-            "meta": {},
-        }
-        page.declare(
-            f"zones:{k + 1}",
-            f"Zones in {Path(path).name}",
-            key,
-            True,
-            len(zf),
-            kind="plain",
-            tip="name",
-            style={
-                "color": "#000000",
-                "weight": 1.5,
-                "fillColor": "#000000",
-                "fillOpacity": 0.1,
-                "dashArray": "2 3",
-            },
-        )
-        page.legend.append(
-            legend_row(fill_sample("#000000", 0.12, "#000000"), f"zones in {Path(path).name}")
-        )
+    add_zones(page, list(zones), frame.crs)
     if mask.any():
         add_eligible(page, int(mask.sum()))
     page.declare(

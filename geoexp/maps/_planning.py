@@ -26,6 +26,7 @@ from geoexp.maps._page import (
 )
 from geoexp.maps._palette import condition_order, condition_style
 from geoexp.maps._web import unit_dataset
+from geoexp.maps._zones import add_zones, zones_in_force
 
 
 def planning_map(
@@ -44,7 +45,8 @@ def planning_map(
     one layer per condition with every unit's probability of being in it
     (hidden at first; viridis classes, van der Walt & Smith 2015). Tooltips
     give unit id, street description, district, condition and probabilities.
-    A legend, a scale bar, and a drawing tool for polygons and rectangles
+    The exclusion zones the design's spec reads (``[eligible] exclude``) are
+    shown with the reason each carries. A legend, a scale bar, and a drawing tool for polygons and rectangles
     whose "Save zones" button writes a GeoJSON file that the design spec's
     ``[eligible] exclude = [...]`` accepts back.
 
@@ -186,6 +188,8 @@ def planning_map(
             legend_row(line_sample(col, 3, None), f"{edges[k]:.1f} to {edges[k + 1]:.1f}")
         )
 
+    # The zones in force are the design's own: they decided which units were eligible.
+    add_zones(page, zones_in_force(spec), units.crs)
     draw_group = page.group("Drawn exclusion zones", True)
     drawn_at = tf.meta.get("drawn_at", "")[:10]
     notes = [

@@ -29,11 +29,21 @@
 
   var drawn = groups[cfg.draw_group];
   handle.drawn = drawn;
+  // Every zone carries the reason it is excluded: asked for when the zone is drawn, shown
+  // as its tooltip, and saved with it (the planning map shows it beside the zone later).
+  map.on(L.Draw.Event.CREATED, function (e) {
+    var reason = window.prompt("Why is this area excluded? (saved with the zone)", "");
+    e.layer.geoexpReason = (reason || "").trim();
+    e.layer.bindTooltip(esc(e.layer.geoexpReason || "no reason recorded"), {sticky: true});
+  });
   handle.zones = function () {
-    var fc = drawn.toGeoJSON();
     var when = new Date().toISOString().slice(0, 10);
-    fc.features.forEach(function (f, i) { f.properties = {zone: i + 1, drawn_on: when}; });
-    return fc;
+    var features = drawn.getLayers().map(function (layer, i) {
+      var f = layer.toGeoJSON();
+      f.properties = {zone: i + 1, reason: layer.geoexpReason || "", drawn_on: when};
+      return f;
+    });
+    return {type: "FeatureCollection", features: features};
   };
   var Save = L.Control.extend({
     options: {position: "topleft"},
