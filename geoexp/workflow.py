@@ -132,6 +132,8 @@ class AnalysisRun:
         The HTML report and its Markdown twin.
     result_map : Path
         The interactive results map (HTML).
+    report_pdf : Path or None
+        The A4 PDF report, a one-page summary for command staff first.
     """
 
     analysis: Analysis
@@ -139,21 +141,28 @@ class AnalysisRun:
     report: Path
     report_md: Path
     result_map: Path
+    report_pdf: Path | None = None
 
     def __str__(self) -> str:
         return (
             f"{self.analysis}\nReport: {self.report} (Markdown: {self.report_md}); interactive "
-            f"results map: {self.result_map}\nResults stored in {self.trial}"
+            f"results map: {self.result_map}\nPDF report (summary for command staff first): "
+            f"{self.report_pdf}\nResults stored in {self.trial}"
         )
 
 
 def report_outputs(report: PathLike, result_map: PathLike | None = None) -> dict[str, Path]:
-    """Return the files :func:`analyse_trial` writes for ``report``: HTML, Markdown twin, map."""
+    """Return the files :func:`analyse_trial` writes for ``report``: HTML, Markdown, PDF, map."""
     report = Path(report)
     map_path = (
         report.with_name(f"{report.stem}_map.html") if result_map is None else Path(result_map)
     )
-    return {"report": report, "report_md": report.with_suffix(".md"), "result_map": map_path}
+    return {
+        "report": report,
+        "report_md": report.with_suffix(".md"),
+        "report_pdf": report.with_suffix(".pdf"),
+        "result_map": map_path,
+    }
 
 
 def analyse_trial(
@@ -211,6 +220,7 @@ def analyse_trial(
     labels = {
         "report": "the report",
         "report_md": "the report's Markdown twin",
+        "report_pdf": "the report's PDF twin",
         "result_map": "the results map",
     }
     check_outputs({labels[k]: v for k, v in outs.items()}, {}, trial=trial)
@@ -221,6 +231,13 @@ def analyse_trial(
         map_path = save_result_map(result, tf, outs["result_map"], tiles=tiles, districts=districts)
     with writing(outs["report"], "report"):
         html_path, md_path = write_report(
-            result, outs["report"], trial=tf, result_map_html=map_path, districts=districts
+            result,
+            outs["report"],
+            trial=tf,
+            result_map_html=map_path,
+            districts=districts,
+            pdf_path=outs["report_pdf"],
         )
-    return AnalysisRun(result, Path(trial), Path(html_path), Path(md_path), Path(map_path))
+    return AnalysisRun(
+        result, Path(trial), Path(html_path), Path(md_path), Path(map_path), outs["report_pdf"]
+    )

@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from typing import TYPE_CHECKING
 
 import numpy as np
@@ -50,6 +50,10 @@ class DesignCheck:
         Plain-language lines: what the design can and cannot estimate.
     probabilities
         The full per-unit probabilities.
+    balance_draws
+        Per contrast (the balance table's ``contrast``), the standardized
+        difference of each covariate in every Monte Carlo draw (draws x
+        covariates), for the balance figure.
     """
 
     name: str
@@ -65,6 +69,7 @@ class DesignCheck:
     notes: tuple[str, ...]
     probabilities: ExposureProbabilities
     autocorrelation: object = None
+    balance_draws: dict = field(default_factory=dict)
 
     def __str__(self) -> str:
         fmt = {"float_format": lambda v: f"{v:.3f}"}
@@ -194,7 +199,7 @@ def check_design(
     summary = pd.DataFrame(rows).set_index("condition")
     positivity = probs.positivity()
 
-    balance = _balance(design, probs, x, cols, assignment)
+    balance, balance_draws = _balance(design, probs, x, cols, assignment)
     moran = _autocorrelation(design, x, cols)
     verdict = _verdict(design, probs, expected, positivity, balance)
     if moran is not None and moran.p_value <= 0.05 and moran.statistic > 0:
@@ -219,6 +224,7 @@ def check_design(
         notes=design.notes,
         probabilities=probs,
         autocorrelation=moran,
+        balance_draws=balance_draws,
     )
 
 
@@ -240,9 +246,9 @@ def _autocorrelation(design: Design, x: np.ndarray, cols: list[str]):
         return None
 
 
-def _balance(design, probs, x, cols, assignment) -> pd.DataFrame:
+def _balance(design, probs, x, cols, assignment) -> tuple[pd.DataFrame, dict]:
     if not cols:
-        return pd.DataFrame()
+        return pd.DataFrame(), {}
     q = len(cols)
     mapping = design.mapping
     pc = mapping.pure_control
@@ -283,7 +289,8 @@ def _balance(design, probs, x, cols, assignment) -> pd.DataFrame:
             if assignment is not None:
                 row["drawn"] = drawn[label][j]
             out.append(row)
-    return pd.DataFrame(out).set_index(["covariate", "contrast"])
+    per_contrast = {f"{label} vs {mapping.labels[pc]}": d for label, d in per_draw}
+    return pd.DataFrame(out).set_index(["covariate", "contrast"]), per_contrast
 
 
 def _verdict(design, probs, expected, positivity, balance) -> list[str]:

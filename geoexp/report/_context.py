@@ -15,6 +15,7 @@ from matplotlib.figure import Figure
 from geoexp.cautions import CAUTION
 from geoexp.maps import PRINT_RC
 from geoexp.report._figures import distance_decay_plot, png_bytes
+from geoexp.report._plan import FLOW_TITLE, PLAN_TITLE, plan_facts
 
 if TYPE_CHECKING:
     from geoexp.analysis import Analysis
@@ -91,6 +92,9 @@ class ReportContext:
         The figures, in order.
     notes : tuple of str
         What was excluded and why.
+    plan : pandas.DataFrame or None
+        The trial at a glance (periods, eligibility rule, number treated, gap,
+        bands, tool version), when the trial file is given.
     """
 
     title: str
@@ -110,6 +114,8 @@ class ReportContext:
     displacement_text: str = DISPLACEMENT_TEXT
     positivity_note: str = POSITIVITY_NOTE
     methods: str = METHODS
+    plan: pd.DataFrame | None = None
+    plan_title: str = PLAN_TITLE
 
     @property
     def result_map_name(self) -> str | None:
@@ -196,6 +202,16 @@ def report_context(
         )
     for title, draw in (extra_figures or {}).items():
         figures.append(ReportFigure(title, _figure(draw, (7, 7))))
+    plan = None
+    if trial is not None:
+        from geoexp.report._planning import flow_plot
+
+        plan, flow = plan_facts(analysis, trial)
+        if flow is not None:
+            size = (6.4, 1.4 * len(flow.steps) + 0.4)
+            figures.insert(
+                0, ReportFigure(FLOW_TITLE, _figure(lambda ax: flow_plot(flow, ax), size))
+            )
     link = (
         relative_link(result_map_html, Path(report_path)) if result_map_html is not None else None
     )
@@ -227,4 +243,5 @@ def report_context(
         displacement=wdq,
         figures=tuple(figures),
         notes=tuple(analysis.notes),
+        plan=plan,
     )
