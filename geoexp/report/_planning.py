@@ -77,7 +77,9 @@ def balance_plot(check: DesignCheck, ax=None):
         ax.set_axis_off()
         return ax
     pos = np.arange(len(rows))
-    ax.boxplot([r[1] for r in rows], positions=pos, vert=False, widths=0.5, showfliers=False)
+    ax.boxplot(
+        [r[1] for r in rows], positions=pos, orientation="horizontal", widths=0.5, showfliers=False
+    )
     drawn = np.array([r[2] for r in rows], dtype=float)
     ax.plot(drawn, pos, "D", color=VERMILLION, ms=7, label="the drawn assignment")
     ax.axvspan(-0.1, 0.1, color="0.9", zorder=0, label="|d| ≤ 0.1")
