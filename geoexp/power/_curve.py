@@ -20,7 +20,7 @@ import pandas as pd
 from geoexp.errors import InputError
 
 # Power below which a design is called underpowered.
-TARGET_POWER = 0.8  # common practice (Cohen 1988 [from memory])
+TARGET_POWER = 0.8  # common practice (Cohen 1988, from memory)
 
 
 @dataclass(frozen=True, eq=False)
