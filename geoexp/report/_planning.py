@@ -161,7 +161,7 @@ def power_curve_plot(curve: PowerCurve, ax=None):
             capsize=3,
             label=f"{int(m)} treated" + (" (the design)" if own else ""),
         )
-    ax.axhline(TARGET_POWER, color=VERMILLION, ls=":", lw=1.2, label=f"power {TARGET_POWER:g}")
+    ax.axhline(TARGET_POWER, color="black", ls=":", lw=1.2, label=f"power {TARGET_POWER:g}")
     ax.axhline(curve.alpha, color=GREY, ls=":", lw=0.8)
     ax.set_ylim(0, 1)
     ax.set_xlabel("planted rate ratio on treated units (0.8 = 20% fewer incidents)")
