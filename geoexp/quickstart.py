@@ -11,9 +11,10 @@ import shapely
 
 from geoexp.briefing import briefing_pack, field_list, save_field_list
 from geoexp.cautions import CAUTION
-from geoexp.design import Design, DesignSpec, check_design
+from geoexp.design import Design, DesignSpec, check_design, unit_flow
 from geoexp.maps import ZONES_FILENAME, planning_map, save_map
-from geoexp.power import NegativeBinomialOutcome, simulate_power
+from geoexp.power import NegativeBinomialOutcome, power_curve, simulate_power
+from geoexp.report import save_check_figures, save_power_figure
 from geoexp.sampleregion import DEMO_MULTIPLIERS, load_sample_region, simulate_trial_incidents
 from geoexp.trialfile import export_assignment_csv, write_trial
 from geoexp.workflow import analyse_trial, count_and_store
@@ -53,13 +54,16 @@ def run_demo(out: str | Path, *, n_draws: int = 2000, echo: Callable[[str], None
     Writes into ``out``: ``design.toml``, ``exclusion_zones.geojson`` (a drawn
     zone around the city's stadium block, with its reason), ``trial.gpkg``
     (locked; a rerun of the demo replaces it and keeps the old draw as
-    superseded), ``design_check.md``, ``field_list.csv`` and
+    superseded), ``design_check.md`` with its figures
+    (``design_check_probability.png``, ``design_check_balance.png``,
+    ``design_check_flow.png``, ``power_curve.png``), ``field_list.csv`` and
     ``field_places.geojson`` (the treated places for patrols, numbered as in
     the briefing pack), ``assignment_for_analysts.csv`` (every eligible unit and
     its condition; not for field teams), ``planning_map.html``,
     ``briefing_a4.pdf``, ``incidents.csv`` (the invented
     incidents, the trial year simulated with a planted effect),
-    ``incidents_not_counted.csv`` and ``report.html`` with ``report.md``.
+    ``incidents_not_counted.csv``, ``report.html`` with ``report.md`` and the
+    A4 ``report.pdf`` (a one-page summary for command staff first).
     Returns the paths.
     """
     out = Path(out)
@@ -107,6 +111,15 @@ def run_demo(out: str | Path, *, n_draws: int = 2000, echo: Callable[[str], None
     model = NegativeBinomialOutcome(level, 0.0, DEMO_MULTIPLIERS)
     power = simulate_power(design, model, n_sims=200, n_draws=500)
     echo(str(power))
+    flow = unit_flow(design, assignment)
+    echo(str(flow))
+    figures = save_check_figures(check, flow, out)
+    # The power curve: the same simulation at other effects and numbers treated (fewer
+    # simulated trials per point than the table above, to keep the demo quick).
+    curve = power_curve(design, model, rate_ratios=(0.5, 0.7, 0.9), n_sims=100, n_draws=200)
+    echo(str(curve))
+    figures.append(save_power_figure(curve, out / "power_curve.png"))
+    echo("Planning figures: " + ", ".join(str(f) for f in figures))
     check_path.write_text(
         check.to_markdown() + "\n\n## Power\n\n" + str(power) + "\n\n" + CAUTION + "\n",
         encoding="utf-8",
@@ -192,6 +205,7 @@ def run_demo(out: str | Path, *, n_draws: int = 2000, echo: Callable[[str], None
     echo(f"Interactive results map: {results_map}")
     echo(str(analysis))
     echo(f"Report: {report} (Markdown twin: {report_md})")
+    echo(f"PDF report, summary for command staff first: {run.report_pdf}")
     echo(CAUTION)
     return {
         "spec": spec_path,
@@ -206,4 +220,6 @@ def run_demo(out: str | Path, *, n_draws: int = 2000, echo: Callable[[str], None
         "incidents": incidents_path,
         "report": report,
         "report_md": report_md,
+        "report_pdf": run.report_pdf,
+        "figures": figures,
     }

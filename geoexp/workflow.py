@@ -135,6 +135,8 @@ class AnalysisRun:
     result_map : Path or None
         The interactive results map (HTML); None for a layer in local planar
         coordinates, which cannot be placed on a web map.
+    report_pdf : Path or None
+        The A4 PDF report, a one-page summary for command staff first.
     """
 
     analysis: Analysis
@@ -142,6 +144,7 @@ class AnalysisRun:
     report: Path
     report_md: Path
     result_map: Path | None
+    report_pdf: Path | None = None
 
     def __str__(self) -> str:
         where = (
@@ -152,12 +155,13 @@ class AnalysisRun:
         )
         return (
             f"{self.analysis}\nReport: {self.report} (Markdown: {self.report_md}); {where}\n"
+            f"PDF report (summary for command staff first): {self.report_pdf}\n"
             f"Results stored in {self.trial}"
         )
 
 
 def report_outputs(report: PathLike, result_map: PathLike | None = None) -> dict[str, Path]:
-    """Return the files :func:`analyse_trial` writes for ``report``: HTML, Markdown twin, map.
+    """Return the files :func:`analyse_trial` writes for ``report``: HTML, Markdown, PDF, map.
 
     The results map is ``results_map.html`` beside ``report.html`` (as in the
     demo), and ``<stem>_results_map.html`` beside a report of another name.
@@ -165,7 +169,12 @@ def report_outputs(report: PathLike, result_map: PathLike | None = None) -> dict
     report = Path(report)
     name = "results_map.html" if report.stem == "report" else f"{report.stem}_results_map.html"
     map_path = report.with_name(name) if result_map is None else Path(result_map)
-    return {"report": report, "report_md": report.with_suffix(".md"), "result_map": map_path}
+    return {
+        "report": report,
+        "report_md": report.with_suffix(".md"),
+        "report_pdf": report.with_suffix(".pdf"),
+        "result_map": map_path,
+    }
 
 
 def analyse_trial(
@@ -224,6 +233,7 @@ def analyse_trial(
     labels = {
         "report": "the report",
         "report_md": "the report's Markdown twin",
+        "report_pdf": "the report's PDF twin",
         "result_map": "the results map",
     }
     check_outputs({labels[k]: v for k, v in outs.items()}, {}, trial=trial)
@@ -240,7 +250,12 @@ def analyse_trial(
             )
     with writing(outs["report"], "report"):
         html_path, md_path = write_report(
-            result, outs["report"], trial=tf, result_map_html=map_path, districts=districts
+            result,
+            outs["report"],
+            trial=tf,
+            result_map_html=map_path,
+            districts=districts,
+            pdf_path=outs["report_pdf"],
         )
     return AnalysisRun(
         result,
@@ -248,4 +263,5 @@ def analyse_trial(
         Path(html_path),
         Path(md_path),
         None if map_path is None else Path(map_path),
+        outs["report_pdf"],
     )

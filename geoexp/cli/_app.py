@@ -10,6 +10,7 @@ from rich.console import Console
 
 from geoexp._paths import check_outputs, writing
 from geoexp.cli._failures import ClickException, GeoexpGroup, UserError, as_click_error
+from geoexp.cli._figures import check_figure_paths, save_check_pictures
 from geoexp.cli._inputs import incidents_input, load_spec, read_counts_csv, spec_inputs
 from geoexp.cli._options import (
     MAX_DRAWS,
@@ -241,25 +242,38 @@ def check_command(
     markdown: Annotated[
         Path | None, typer.Option(help="Also write the check as Markdown here.")
     ] = None,
+    figures: Annotated[
+        Path | None,
+        typer.Option(
+            help="Folder for the check's figures (P(treated), balance across draws, unit flow)."
+        ),
+    ] = None,
     draws: OldDrawsOpt = None,
     quiet: QuietOpt = False,
 ) -> None:
     """Check a design before it reaches the street: conditions, probabilities, positivity, balance."""
     from geoexp._atomic import atomic_path
-    from geoexp.design import Design, check_design
+    from geoexp.design import Design, check_design, unit_flow
 
     loaded = load_spec(spec)
-    check_outputs({"--markdown": markdown}, spec_inputs(spec, loaded))
+    pictures = check_figure_paths(figures)
+    check_outputs({"--markdown": markdown, **pictures}, spec_inputs(spec, loaded))
     draws = renamed_option(design_draws, draws, "--draws", "--design-draws")
     design = Design.from_spec(loaded)
+    assignment = design.draw()
     with progress_shown(quiet):
         result = check_design(
-            design, n_draws=draws, assignment=design.draw(), balance_columns=balance or None
+            design, n_draws=draws, assignment=assignment, balance_columns=balance or None
         )
     console.print(str(result))
+    flow = unit_flow(design, assignment)
+    console.print("")
+    console.print(str(flow))
     if markdown is not None:
         with writing(markdown, "Markdown check"), atomic_path(markdown) as tmp:
             tmp.write_text(result.to_markdown(), encoding="utf-8")
+    if figures is not None:
+        save_check_pictures(result, flow, figures)
 
 
 @app.command("export")
@@ -532,6 +546,7 @@ def analyse_command(
         {
             "--report": outs["report"],
             "--report (its Markdown twin)": outs["report_md"],
+            "--report (its PDF twin)": outs["report_pdf"],
             "--report (its results map)": outs["result_map"],
         },
         {"--incidents": incidents},

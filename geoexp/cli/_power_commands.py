@@ -7,6 +7,7 @@ from typing import Annotated
 
 import typer
 
+from geoexp._paths import check_outputs
 from geoexp._tables import text_table
 from geoexp.cli._app import (
     OldDrawsOpt,
@@ -17,10 +18,12 @@ from geoexp.cli._app import (
     console,
     renamed_option,
 )
-from geoexp.cli._inputs import load_spec
+from geoexp.cli._figures import POWER_NAME, save_power_picture
+from geoexp.cli._inputs import load_spec, spec_inputs
 from geoexp.cli._options import MAX_DRAWS, OutcomeChoice, non_negative, open_share
 from geoexp.cli._progress_bars import progress_shown
 from geoexp.errors import InputError
+from geoexp.power import TARGET_POWER
 
 
 def _effects(items: list[str] | None, what: str) -> dict[str, float]:
@@ -108,6 +111,43 @@ def power_command(
     ] = None,
     draws: OldDrawsOpt = None,
     quiet: QuietOpt = False,
+    curve: Annotated[
+        bool,
+        typer.Option(
+            "--curve",
+            help="Also simulate power over effect sizes and numbers treated; print the "
+            "smallest detectable rate ratio and the number treated needed for --target-power.",
+        ),
+    ] = False,
+    curve_ratio: Annotated[
+        list[float] | None,
+        typer.Option(
+            "--curve-ratio",
+            help="Rate ratio on treated units for the curve (repeat; default 0.6 0.7 0.8 0.9).",
+            min=0.01,
+            max=10.0,
+        ),
+    ] = None,
+    curve_treated: Annotated[
+        list[int] | None,
+        typer.Option(
+            "--curve-treated",
+            help="Number treated for the curve (repeat; default: half, the design's own, "
+            "one and a half times it).",
+            min=1,
+        ),
+    ] = None,
+    target_power: Annotated[
+        float,
+        typer.Option(
+            help="Power wanted, between 0 and 1; lower power is flagged as underpowered.",
+            callback=open_share,
+        ),
+    ] = TARGET_POWER,
+    figures: Annotated[
+        Path | None,
+        typer.Option(help="Folder for the power curve figure (power_curve.png; needs --curve)."),
+    ] = None,
 ) -> None:
     """Power of a design's tests by simulation, for counts with planted rate ratios.
 
@@ -129,9 +169,16 @@ def power_command(
         rate_ratios=ratios,
     )
     common = dict(n_sims=sims, n_draws=draws, alpha=alpha, outcome=outcome.value, rng=seed)
+    if figures is not None and not curve:
+        raise typer.BadParameter("--figures needs --curve (the figure is the power curve)")
+    if figures is not None:
+        check_outputs({"--figures": figures / POWER_NAME}, spec_inputs(spec, load_spec(spec)))
     with progress_shown(quiet):
         result = simulate_power(design, model, **common)
     console.print(str(result), markup=False)
+    _warn_underpowered(result, target_power)
+    if curve:
+        _print_curve(design, model, common, curve_ratio, curve_treated, target_power, figures)
     if alternative_spec:
         designs = {spec.stem: design}
         for path in alternative_spec:
@@ -144,3 +191,69 @@ def power_command(
         shown = table.loc[:, (slice(None), ["power", "mc_error", "n_units"])]
         shown = shown.rename(index=lambda c: str(c).replace("spillover_", "spillover band "))
         console.print(text_table(shown), markup=False)
+
+
+def _warn_underpowered(result, target: float) -> None:
+    from geoexp.power import underpowered
+
+    for c in result.contrasts:
+        if c.planted_effect != 0 and underpowered(c.power, target):
+            console.print(
+                f"Warning: underpowered: {c.label} has power {c.power:.2f} (share of simulated "
+                f"trials that reject), below {target:g}. Treat more units, lengthen the outcome "
+                "period, or expect to miss an effect of this size.",
+                markup=False,
+            )
+
+
+def _print_curve(design, model, common, ratios, treated, target, figures) -> None:
+    from geoexp.power import power_curve
+
+    planted = dict(model.rate_ratios).get("treated")
+    grid = list(ratios or (0.6, 0.7, 0.8, 0.9))
+    if planted is not None and planted != 1:
+        grid.append(planted)  # the design's own point: the run printed above
+    result = power_curve(
+        design,
+        model,
+        rate_ratios=grid,
+        n_treated=treated or None,
+        n_sims=common["n_sims"],
+        n_draws=common["n_draws"],
+        alpha=common["alpha"],
+        outcome=common["outcome"],
+        seed=common["rng"],
+    )
+    console.print("")
+    console.print(str(result), markup=False)
+    mde = result.detectable_ratio(target)
+    own = f"with {result.n_treated} treated units"
+    if mde is None:
+        console.print(
+            f"Minimum detectable effect {own}: no rate ratio on the grid reaches power "
+            f"{target:g} (try smaller ratios with --curve-ratio).",
+            markup=False,
+        )
+    else:
+        console.print(
+            f"Minimum detectable effect {own}: rate ratio {mde:.3f} ({100 * (1 - mde):.1f}% "
+            f"fewer incidents on treated units) at power {target:g} (interpolated on the grid).",
+            markup=False,
+        )
+    if planted is not None and planted != 1:
+        need = result.required_treated(planted, target)
+        if need is None:
+            most = int(result.table["n_treated"].max())
+            console.print(
+                f"Required number treated for rate ratio {planted:g}: more than {most} (no "
+                f"number on the grid reaches power {target:g}; try --curve-treated).",
+                markup=False,
+            )
+        else:
+            console.print(
+                f"Required number treated for rate ratio {planted:g}: about {need:.0f} units "
+                f"for power {target:g} (interpolated on the grid).",
+                markup=False,
+            )
+    if figures is not None:
+        save_power_picture(result, figures)

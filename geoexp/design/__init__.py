@@ -29,6 +29,7 @@ from geoexp.design._fingerprint import (
     zone_digest,
 )
 from geoexp.design._floor import PureControlFloor
+from geoexp.design._flow import FlowStep, UnitFlow, unit_flow
 from geoexp.design._limits import MAX_DRAWS, check_draws, memory_cap_bytes, monte_carlo_bytes
 from geoexp.design._network_check import network_check, refuse_sparse_network
 from geoexp.design._protocol import Sampler, fixed_treated
@@ -57,6 +58,9 @@ __all__ = [
     "Sampler",
     "build_sampler",
     "check_draws",
+    "unit_flow",
+    "FlowStep",
+    "UnitFlow",
     "eligible_for",
     "fixed_treated",
     "memory_cap_bytes",

@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from typing import TYPE_CHECKING
 
 import numpy as np
@@ -64,6 +64,10 @@ class DesignCheck:
     network
         :class:`geoexp.graph.NetworkDiagnostics` of a design measured along
         streets (components, units without neighbours, crossings), else None.
+    balance_draws
+        Per contrast (the balance table's ``contrast``), the standardized
+        difference of each covariate in every Monte Carlo draw (draws x
+        covariates), for the balance figure.
     """
 
     name: str
@@ -81,6 +85,7 @@ class DesignCheck:
     autocorrelation: object = None
     coordinates: str = ""
     network: object = None
+    balance_draws: dict = field(default_factory=dict)
 
     def __str__(self) -> str:
         parts = [
@@ -218,7 +223,7 @@ def check_design(
     summary = pd.DataFrame(rows).set_index("condition")
     positivity = probs.positivity()
 
-    balance = _balance(design, probs, x, cols, assignment)
+    balance, balance_draws = _balance(design, probs, x, cols, assignment)
     moran = _autocorrelation(design, x, cols)
     verdict = _verdict(design, probs, expected, positivity, balance)
     network = network_check(design)
@@ -259,6 +264,7 @@ def check_design(
         autocorrelation=moran,
         coordinates=design.units.crs_label,
         network=network,
+        balance_draws=balance_draws,
     )
 
 
@@ -278,9 +284,9 @@ def _autocorrelation(design: Design, x: np.ndarray, cols: list[str]):
         return None
 
 
-def _balance(design, probs, x, cols, assignment) -> pd.DataFrame:
+def _balance(design, probs, x, cols, assignment) -> tuple[pd.DataFrame, dict]:
     if not cols:
-        return pd.DataFrame()
+        return pd.DataFrame(), {}
     q = len(cols)
     mapping = design.mapping
     pc = mapping.pure_control
@@ -321,7 +327,8 @@ def _balance(design, probs, x, cols, assignment) -> pd.DataFrame:
             if assignment is not None:
                 row["drawn"] = drawn[label][j]
             out.append(row)
-    return pd.DataFrame(out).set_index(["covariate", "contrast"])
+    per_contrast = {f"{label} vs {mapping.labels[pc]}": d for label, d in per_draw}
+    return pd.DataFrame(out).set_index(["covariate", "contrast"]), per_contrast
 
 
 def _suggestions(estimand: Estimand, thin: str, direct: bool) -> str:

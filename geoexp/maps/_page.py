@@ -54,13 +54,55 @@ def _folium():
     return folium
 
 
-def prob_colours() -> list[str]:
-    """The probability classes' colours (viridis)."""
+def prob_colours(n: int = PROB_BINS) -> list[str]:
+    """The probability classes' colours (viridis), ``n`` of them."""
     from matplotlib import colormaps
     from matplotlib.colors import to_hex
 
     cmap = colormaps["viridis"]
-    return [to_hex(cmap(x)) for x in np.linspace(0.0, 0.92, PROB_BINS)]
+    return [to_hex(cmap(x)) for x in np.linspace(0.0, 0.92, n)]
+
+
+def prob_breaks(values: np.ndarray, n_classes: int = PROB_BINS) -> list[float]:
+    """Class bounds fitted to the data: quantiles of the positive probabilities, rounded to 0.001.
+
+    Quantile classes (equal counts per class; Slocum et al. 2009 [from memory]) spread the
+    colours over the range the units really have, so a narrow range such as 0.14 to 0.35
+    still shows five colours. Returns the bounds from the smallest to the largest value
+    (``n + 1`` numbers, fewer when values repeat); an empty list when no value is positive.
+    """
+    v = np.asarray(values, dtype=float)
+    v = v[np.isfinite(v) & (v > 0)]
+    if v.size == 0:
+        return []
+    q = np.quantile(v, np.linspace(0, 1, n_classes + 1))
+    edges = np.unique(np.round(q, 3))
+    edges[0] = min(edges[0], np.floor(v.min() * 1000) / 1000)
+    edges[-1] = max(edges[-1], np.ceil(v.max() * 1000) / 1000)
+    if edges.size == 1:
+        edges = np.array([edges[0], edges[0]])
+    return [float(e) for e in edges]
+
+
+# SVG fill patterns of the spillover bands (band 1 lines, band 2 dots, then cross-hatch and
+# horizontal lines), so that bands differ by texture as well as hue and survive greyscale.
+_HATCHES = (
+    ("lines", '<path d="M0 8 L8 0" stroke="{c}" stroke-width="1.6"/>'),
+    ("dots", '<circle cx="4" cy="4" r="1.6" fill="{c}"/>'),
+    ("cross", '<path d="M0 8 L8 0 M0 0 L8 8" stroke="{c}" stroke-width="1"/>'),
+    ("rows", '<path d="M0 4 L8 4" stroke="{c}" stroke-width="1.4"/>'),
+)
+
+
+def band_hatch(k: int, colour: str, pattern_id: str = "__ID__") -> dict:
+    """The fill pattern of spillover band ``k`` (1-based): its name and SVG ``<pattern>``."""
+    name, shape = _HATCHES[min(k, len(_HATCHES)) - 1]
+    svg = (
+        f'<pattern id="{pattern_id}" width="8" height="8" patternUnits="userSpaceOnUse">'
+        + shape.format(c=colour)
+        + "</pattern>"
+    )
+    return {"name": f"{name}-{k}", "svg": svg}
 
 
 class Page:
@@ -207,11 +249,19 @@ def line_sample(colour: str, width: float, dash: str | None, opacity: float = 1.
     )
 
 
-def fill_sample(colour: str, opacity: float, stroke: str | None = None) -> str:
+def fill_sample(
+    colour: str, opacity: float, stroke: str | None = None, hatch: int | None = None
+) -> str:
+    """A legend swatch; ``hatch`` (band number) fills it with that band's pattern."""
     line = f' stroke="{stroke}" stroke-width="1.5"' if stroke else ""
+    defs, fill = "", colour
+    if hatch is not None:
+        pid = f"geoexp-legend-hatch-{hatch}"
+        defs = "<defs>" + band_hatch(hatch, colour, pid)["svg"] + "</defs>"
+        fill, opacity = f"url(#{pid})", 1.0
     return (
-        f'<svg width="44" height="14" aria-hidden="true"><rect x="2" y="1" width="40" height="12" '
-        f'fill="{colour}" fill-opacity="{opacity:g}"{line}/></svg>'
+        f'<svg width="44" height="14" aria-hidden="true">{defs}<rect x="2" y="1" width="40" '
+        f'height="12" fill="{fill}" fill-opacity="{opacity:g}"{line}/></svg>'
     )
 
 
@@ -281,7 +331,9 @@ def add_rings(
     """One switchable layer per band ring, in the band's colour, all in one group.
 
     Each ring is its own dataset and layer, so the browser can style and
-    count it on its own; the legend gets one filled sample per ring.
+    count it on its own; each band is filled with its own pattern (lines,
+    dots, ...) as well as its colour, so bands differ in grey; the legend gets
+    one patterned sample per ring.
     """
     web = to_web(gpd.GeoSeries(rings, crs=page.frame.crs), 1.0 / metres_per_unit(page.frame))
     for k, label in enumerate(labels):
@@ -298,17 +350,21 @@ def add_rings(
                 "expected": 1,
                 "kind": "plain",
                 "tip": "name",
+                "hatch": band_hatch(k + 1, s.colour),
                 "style": {
                     "color": s.colour,
                     "weight": 1,
                     "opacity": 0.8,
                     "fillColor": s.colour,
-                    "fillOpacity": fill_opacity,
+                    # the pattern is mostly empty: a stronger opacity keeps it as light as a tint
+                    "fillOpacity": min(1.0, 3 * fill_opacity),
                     "dashArray": "3 3",
                 },
             }
         )
-        page.legend.append(legend_row(fill_sample(s.colour, sample_opacity, s.colour), label))
+        page.legend.append(
+            legend_row(fill_sample(s.colour, sample_opacity, s.colour, hatch=k + 1), label)
+        )
 
 
 def add_eligible(page: Page, n_eligible: int) -> None:

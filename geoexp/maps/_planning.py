@@ -13,7 +13,6 @@ from geoexp.maps._geometry import band_rings, district_outlines, ring_labels
 from geoexp.maps._page import (
     DRAW_NOTE,
     NEVER_COLOUR,
-    PROB_BINS,
     Page,
     add_districts,
     add_eligible,
@@ -21,6 +20,7 @@ from geoexp.maps._page import (
     finish_drawable,
     legend_row,
     line_sample,
+    prob_breaks,
     prob_colours,
     style_js,
 )
@@ -43,7 +43,8 @@ def planning_map(
     spillover band, pure control; colours from Okabe & Ito (2008) and a line
     width and dash pattern per condition, so the map also reads in grey), and
     one layer per condition with every unit's probability of being in it
-    (hidden at first; viridis classes, van der Walt & Smith 2015). Tooltips
+    (hidden at first; viridis colours, van der Walt & Smith 2015, over classes
+    of equal counts fitted to the layer's own values, printed with their bounds). Tooltips
     give unit id, street description, district, condition and probabilities.
     The exclusion zones the design's spec reads (``[eligible] exclude``) are
     shown with the reason each carries. A legend, a scale bar, and a drawing tool for polygons and rectangles
@@ -167,7 +168,13 @@ def planning_map(
                 f"{labels[code]} ({int(counts.get(code, 0)):,})",
             )
         )
+    page.legend.append(
+        legend_row("", "Probability layers (hidden at first; classes of equal counts):")
+    )
+    page.legend.append(legend_row(line_sample(NEVER_COLOUR, 1, "2 3"), "probability 0 (never)"))
     for j, code in enumerate(prob_codes):
+        breaks = prob_breaks(assignment[f"p_{code}"].to_numpy(dtype=float))
+        colours = prob_colours(max(1, len(breaks) - 1))
         page.declare(
             f"probability:{code}",
             f"P({labels[code]})",
@@ -178,15 +185,24 @@ def planning_map(
             index=j,
             weight=3,
             tip="unit",
+            breaks=breaks,
+            colours=colours,
         )
-    colours = prob_colours()
-    edges = np.linspace(0, 1, PROB_BINS + 1)
-    page.legend.append(legend_row("", "Probability layers (hidden at first):"))
-    page.legend.append(legend_row(line_sample(NEVER_COLOUR, 1, "2 3"), "probability 0 (never)"))
-    for k, col in enumerate(colours):
-        page.legend.append(
-            legend_row(line_sample(col, 3, None), f"{edges[k]:.1f} to {edges[k + 1]:.1f}")
-        )
+        if not breaks:
+            page.legend.append(legend_row("", f"P({labels[code]}): no unit can be in it"))
+            continue
+        if code == "treated":
+            page.legend.append(legend_row("", f"P({labels[code]}), {len(colours)} classes:"))
+            for k, col in enumerate(colours):
+                page.legend.append(
+                    legend_row(
+                        line_sample(col, 3, None),
+                        f"{'above ' if k else ''}{breaks[k]:.3f} to {breaks[k + 1]:.3f}",
+                    )
+                )
+        else:
+            bounds = " | ".join(f"{breaks[k]:.3f}–{breaks[k + 1]:.3f}" for k in range(len(colours)))
+            page.legend.append(legend_row("", f"P({labels[code]}) classes, same colours: {bounds}"))
 
     # The zones in force are the design's own: they decided which units were eligible.
     add_zones(page, zones_in_force(spec), units.crs)

@@ -72,6 +72,14 @@ class ResultData:
     def change(self) -> np.ndarray:
         return self.per_unit["change"].to_numpy(dtype=float)
 
+    @property
+    def polygonal(self) -> bool:
+        """True for parcels (polygons), False for street segments (lines)."""
+        import shapely
+
+        kinds = shapely.get_type_id(np.asarray(self.units.geometry.array, dtype=object))
+        return bool(len(kinds)) and bool(np.isin(kinds, (3, 6)).all())
+
 
 def gather(analysis: Analysis, trial: TrialFile | str | os.PathLike) -> ResultData:
     from geoexp.trialfile import TrialFile

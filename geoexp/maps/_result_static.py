@@ -40,6 +40,10 @@ if TYPE_CHECKING:
     from geoexp.trialfile import TrialFile
 
 
+# Hatching of the spillover bands (band 1, band 2, ...), so that bands differ in grey too.
+RING_HATCHES = ("////", "..", "xx", "--")
+
+
 def _parts(geoms: np.ndarray) -> tuple[list[np.ndarray], np.ndarray, bool]:
     """Coordinate arrays to draw and the unit each belongs to; polygons by their outer rings."""
     parts, owner = shapely.get_parts(geoms, return_index=True)
@@ -166,12 +170,14 @@ def _draw(analysis, trial, ax, districts):
     if rings is not None:
         for k, (ring, label) in enumerate(zip(rings, ring_labels(data.bands), strict=True)):
             colour = condition_style(f"spillover_{k + 1}").colour
+            hatch = RING_HATCHES[min(k, len(RING_HATCHES) - 1)]
             gpd.GeoSeries([ring], crs=units.crs).plot(
                 ax=ax,
                 facecolor=to_rgba(colour, RING_FILL_OPACITY),
                 edgecolor=to_rgba(colour, 0.9),
                 linewidth=0.6,
                 linestyle="--",
+                hatch=hatch,
                 zorder=2,
             )
             ax.collections[-1].set_gid(f"ring:{k + 1}")
@@ -180,6 +186,7 @@ def _draw(analysis, trial, ax, districts):
                     facecolor=to_rgba(colour, RING_FILL_OPACITY + 0.1),
                     edgecolor=colour,
                     linestyle="--",
+                    hatch=hatch,
                     label=label,
                 )
             )
@@ -232,6 +239,19 @@ def _draw(analysis, trial, ax, districts):
             )
             coll.set_gid(f"units:{code}")
             ax.add_collection(coll)
+            # A white centre stripe over units whose count fell: the sign survives greyscale.
+            fell = np.flatnonzero(data.change[members][owner] < 0)
+            if fell.size:
+                stripe = LineCollection(
+                    [paths[i] for i in fell],
+                    colors="white",
+                    linewidths=max(0.5, 0.35 * width),
+                    linestyles=_scaled_dashes(style.dash, max(0.5, 0.35 * width)),
+                    capstyle="butt",
+                    zorder=z + 0.6,
+                )
+                stripe.set_gid(f"decrease:{code}")
+                ax.add_collection(stripe)
     condition_handles = []
     for code in data.codes:
         style = condition_style(code)
@@ -263,7 +283,10 @@ def _draw(analysis, trial, ax, districts):
         pad=0.02,
         extend="both" if clipped else "neither",
     )
-    colourbar.set_label("observed change per unit, post − pre (incidents)", fontsize=8)
+    colourbar.set_label(
+        "observed change per unit, post − pre (incidents);\nwhite centre stripe: the count fell",
+        fontsize=8,
+    )
     colourbar.ax.tick_params(labelsize=7)
 
     scale_bar_and_north_arrow(

@@ -199,7 +199,36 @@ def result_map(
                 "style": style,
             }
         )
+        if not data.polygonal:
+            # A white centre stripe over units whose count fell: the sign survives greyscale.
+            page.layers.append(
+                {
+                    "key": f"decrease:{code}",
+                    "group": group.get_name(),
+                    "data": "units",
+                    "expected": int(
+                        np.sum((data.per_unit["condition"] == code) & (data.change < 0))
+                    ),
+                    "kind": "decrease",
+                    "code": code,
+                    "tip": "none",
+                    "style": {**style, "weight": stripe_width(s.width), "color": "#ffffff"},
+                }
+            )
     return _finish(page, data, analysis, values, limit)
+
+
+def stripe_width(width: float) -> float:
+    """Width of the white centre stripe marking a fall in the count, for a line ``width`` wide."""
+    return max(1.0, round(0.35 * width, 2))
+
+
+def _sign_sample() -> str:
+    return (
+        '<svg width="44" height="14" aria-hidden="true">'
+        '<line x1="2" y1="7" x2="42" y2="7" stroke="#2166ac" stroke-width="6"/>'
+        '<line x1="2" y1="7" x2="42" y2="7" stroke="#ffffff" stroke-width="2"/></svg>'
+    )
 
 
 def _numbers(column: pd.Series) -> list:
@@ -218,7 +247,8 @@ def _ramp_html(limit: float, clipped: bool) -> str:
 
     cmap = colormaps[CHANGE_CMAP]
     stops = ", ".join(to_hex(cmap(x)) for x in np.linspace(0, 1, 11))
-    low, high = (f"≤ {-limit:g}", f"≥ +{limit:g}") if clipped else (f"{-limit:g}", f"+{limit:g}")
+    low, high = (f"≤ −{limit:g}", f"≥ +{limit:g}") if clipped else (f"−{limit:g}", f"+{limit:g}")
+    low, high = f"{low} fewer", f"{high} more"
     return (
         '<div class="geoexp-ramp-title">Observed change per unit, post − pre (incidents)</div>'
         f'<div class="geoexp-ramp" style="background: linear-gradient(to right, {stops});"></div>'
@@ -259,6 +289,10 @@ def _finish(page: Page, data: ResultData, analysis: Analysis, values: dict, limi
                 line_sample("#777777", s.width, s.dash_array),
                 f"{data.labels[code]} ({data.counts[code]:,})",
             )
+        )
+    if not data.polygonal:
+        rows.append(
+            legend_row(_sign_sample(), "count fell: white centre stripe (rose or unchanged: solid)")
         )
     verdicts = "".join(
         f'<li class="geoexp-verdict">{html.escape(v.sentence)}</li>' for v in analysis.verdicts

@@ -10,13 +10,29 @@ wording. :func:`distance_decay_plot` draws the effect by distance band.
 
 from geoexp.report._context import RESULT_MAP_TITLE, ReportContext, report_context
 from geoexp.report._figures import distance_decay_plot
+from geoexp.report._pdf import write_pdf_report
+from geoexp.report._planning import (
+    balance_plot,
+    flow_plot,
+    power_curve_plot,
+    probability_plot,
+    save_check_figures,
+    save_power_figure,
+)
 from geoexp.report._write import render_report, write_report
 
 __all__ = [
     "RESULT_MAP_TITLE",
     "ReportContext",
+    "balance_plot",
     "distance_decay_plot",
+    "flow_plot",
+    "power_curve_plot",
+    "probability_plot",
+    "save_check_figures",
+    "save_power_figure",
     "render_report",
     "report_context",
+    "write_pdf_report",
     "write_report",
 ]

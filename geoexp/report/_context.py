@@ -18,6 +18,7 @@ from geoexp.cautions import CAUTION
 from geoexp.graph import NetworkInfo
 from geoexp.maps import PRINT_RC
 from geoexp.report._figures import distance_decay_plot, png_bytes
+from geoexp.report._plan import FLOW_TITLE, PLAN_TITLE, plan_facts
 
 if TYPE_CHECKING:
     from geoexp.analysis import Analysis
@@ -118,6 +119,9 @@ class ReportContext:
     rows : pandas.DataFrame or None
         Every contrast row (eligible neighbours included) with its units,
         interval, rate ratio and sensitivity line.
+    plan : pandas.DataFrame or None
+        The trial at a glance (periods, eligibility rule, number treated, gap,
+        bands, tool version), when the trial file is given.
     """
 
     title: str
@@ -142,6 +146,8 @@ class ReportContext:
     displacement_text: str = DISPLACEMENT_TEXT
     positivity_note: str = POSITIVITY_NOTE
     methods: str = METHODS
+    plan: pd.DataFrame | None = None
+    plan_title: str = PLAN_TITLE
 
     @property
     def result_map_name(self) -> str | None:
@@ -292,6 +298,16 @@ def report_context(
         )
     for title, draw in (extra_figures or {}).items():
         figures.append(ReportFigure(title, _figure(draw, (7, 7))))
+    plan = None
+    if trial is not None:
+        from geoexp.report._planning import flow_plot
+
+        plan, flow = plan_facts(analysis, trial)
+        if flow is not None:
+            size = (6.4, 1.4 * len(flow.steps) + 0.4)
+            figures.insert(
+                0, ReportFigure(FLOW_TITLE, _figure(lambda ax: flow_plot(flow, ax), size))
+            )
     link = (
         relative_link(result_map_html, Path(report_path)) if result_map_html is not None else None
     )
@@ -330,4 +346,5 @@ def report_context(
         figures=tuple(figures),
         notes=tuple(analysis.notes),
         rows=_rows(analysis),
+        plan=plan,
     )

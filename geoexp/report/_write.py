@@ -14,6 +14,7 @@ from markupsafe import Markup
 from geoexp._atomic import atomic_path
 from geoexp._tables import html_table, markdown_table
 from geoexp.report._context import ReportContext, report_context
+from geoexp.report._pdf import write_pdf_report
 
 if TYPE_CHECKING:
     from geoexp.analysis import Analysis
@@ -61,6 +62,7 @@ def write_report(
     result_map_html: str | Path | None = None,
     static_map: bool = True,
     districts=None,
+    pdf_path: str | Path | None = None,
 ) -> tuple[Path, Path]:
     """Write the report as HTML (plots embedded) and a Markdown twin beside it.
 
@@ -72,8 +74,10 @@ def write_report(
     the interactive result map (from :func:`geoexp.maps.result_map`), linked
     from both reports. ``districts`` (polygons, a path or GeoDataFrame) are
     drawn on the static result map instead of outlines around each district's
-    units. Returns (html_path, markdown_path); the Markdown's figures are PNG
-    files beside it.
+    units. ``pdf_path``, when given, also gets the report as an A4 PDF with a
+    one-page summary for command staff first (:func:`write_pdf_report`).
+    Returns (html_path, markdown_path); the Markdown's figures are PNG files
+    beside it.
     """
     path = Path(path)
     md_path = path.with_suffix(".md")
@@ -96,4 +100,6 @@ def write_report(
         names.append(img.name)
     with atomic_path(md_path) as tmp:
         tmp.write_text(render_report(context, "md", figure_files=names), encoding="utf-8")
+    if pdf_path is not None:
+        write_pdf_report(context, pdf_path)
     return path, md_path

@@ -11,18 +11,20 @@
         return "<tr><td><b>" + esc(r[0]) + "</b></td><td>" + esc(r[1]) + "</td></tr>"; }).join("") + "</table>";
     };
   }
-  function probStyle(j, base) {
+  // Classes fitted to each layer's own values (bounds in lay.breaks, colours in lay.colours).
+  function probStyle(j, base, breaks, colours) {
     return function (f) {
       var v = f.properties.p ? f.properties.p[j] : null;
       if (v === null || v === undefined || v <= 0) {
         return {color: cfg.never_colour, weight: 1, dashArray: "2 3", opacity: 0.9};
       }
-      var k = Math.min(cfg.prob_colours.length - 1, Math.floor(v * cfg.prob_colours.length));
-      return {color: cfg.prob_colours[k], weight: base, opacity: 1};
+      var k = 0;
+      while (k < colours.length - 1 && v > breaks[k + 1]) k++;
+      return {color: colours[k], weight: base, opacity: 1};
     };
   }
   function layerStyle(lay) {
-    return lay.kind === "probability" ? probStyle(lay.index, lay.weight)
+    return lay.kind === "probability" ? probStyle(lay.index, lay.weight, lay.breaks, lay.colours)
       : function () { return lay.style; };
   }
   var handle = {map: map, layers: {}, groups: {}, expected: {}, drawn: null, legend: null};
