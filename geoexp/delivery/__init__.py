@@ -1,0 +1,43 @@
+"""Was the treatment delivered? Presence at units from visit logs and GPS pings.
+
+:func:`read_visits` reads officers' visit logs (a unit id or a position,
+start and end times, optional team and activity), validated row by row.
+:func:`stays_from_pings` reads GPS pings in chunks (CSV or Parquet), snaps
+them to units within a tolerance and groups each device's pings into stays
+(rules and defaults in :class:`StayRules`). Both give a :class:`StayTable`,
+whose :meth:`StayTable.dosage` gives minutes present and visits per unit per
+day, ISO week or whole window (:class:`Dosage`).
+"""
+
+from geoexp.delivery._from_pings import DEFAULT_TOLERANCE_M, stays_from_pings, unit_index
+from geoexp.delivery._snap import UnitIndex, snap_points
+from geoexp.delivery._stays import (
+    DEFAULT_MAX_GAP_S,
+    DEFAULT_MAX_SPEED_KMH,
+    DEFAULT_MIN_MINUTES,
+    StayBuilder,
+    StayRules,
+    rest_steps,
+    stay_bounds,
+)
+from geoexp.delivery._table import FREQUENCIES, Dosage, StayTable
+from geoexp.delivery._visits import read_visits
+
+__all__ = [
+    "DEFAULT_MAX_GAP_S",
+    "DEFAULT_MAX_SPEED_KMH",
+    "DEFAULT_MIN_MINUTES",
+    "DEFAULT_TOLERANCE_M",
+    "FREQUENCIES",
+    "Dosage",
+    "StayBuilder",
+    "StayRules",
+    "StayTable",
+    "UnitIndex",
+    "read_visits",
+    "rest_steps",
+    "snap_points",
+    "stay_bounds",
+    "stays_from_pings",
+    "unit_index",
+]
