@@ -6,9 +6,13 @@ start and end times, optional team and activity), validated row by row.
 them to units within a tolerance and groups each device's pings into stays
 (rules and defaults in :class:`StayRules`). Both give a :class:`StayTable`,
 whose :meth:`StayTable.dosage` gives minutes present and visits per unit per
-day, ISO week or whole window (:class:`Dosage`).
+day, ISO week or whole window (:class:`Dosage`). :func:`complier_effect`
+gives the effect of treatment received beside the intention-to-treat result
+(Angrist, Imbens & Rubin 1996), with the design's randomization test and an
+interval by test inversion (Imbens & Rosenbaum 2005).
 """
 
+from geoexp.delivery._complier import ComplierEffect, complier_effect
 from geoexp.delivery._from_pings import DEFAULT_TOLERANCE_M, stays_from_pings, unit_index
 from geoexp.delivery._snap import UnitIndex, snap_points
 from geoexp.delivery._stays import (
@@ -24,6 +28,8 @@ from geoexp.delivery._table import FREQUENCIES, Dosage, StayTable
 from geoexp.delivery._visits import read_visits
 
 __all__ = [
+    "ComplierEffect",
+    "complier_effect",
     "DEFAULT_MAX_GAP_S",
     "DEFAULT_MAX_SPEED_KMH",
     "DEFAULT_MIN_MINUTES",

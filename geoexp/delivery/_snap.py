@@ -31,7 +31,7 @@ from scipy.spatial import cKDTree
 from geoexp._engine import thread_count
 
 # Candidates asked for in the first and second pass (most points resolve in the first).
-_FIRST_K, _SECOND_K = 4, 16
+_FIRST_K, _SECOND_K = 3, 8
 
 
 @dataclass(frozen=True, eq=False)
@@ -83,6 +83,23 @@ def _segment_distance(px, py, a, b) -> np.ndarray:
         s = np.where(length2 > 0, (wx * vx + wy * vy) / length2, 0.0)
     s = np.clip(s, 0.0, 1.0)
     return np.hypot(wx - s * vx, wy - s * vy)
+
+
+def _best_of_rows(index: UnitIndex, px, py, cand, found):
+    """Nearest unit (tie: smallest id) for each point, among its row of candidate pieces."""
+    n, k = cand.shape
+    safe = np.where(found, cand, 0)
+    d = _segment_distance(
+        np.repeat(px, k), np.repeat(py, k), index.a[safe.ravel()], index.b[safe.ravel()]
+    ).reshape(n, k)
+    d[~found] = np.inf
+    u = index.owner[safe]
+    best = d.min(axis=1)
+    # Among the candidates at the best distance, the unit whose id sorts first.
+    rank = np.where(d == best[:, None], index.rank[u], np.iinfo(np.int64).max)
+    pick = rank.argmin(axis=1)
+    unit = np.where(np.isfinite(best), u[np.arange(n), pick], -1)
+    return unit, best
 
 
 def _best(index: UnitIndex, px, py, cand, rows, n_rows):
@@ -152,9 +169,7 @@ def snap_points(index: UnitIndex, x: np.ndarray, y: np.ndarray, tolerance: float
             workers=workers,
         )
         dm, cand = dm.reshape(len(pending), k), cand.reshape(len(pending), k)
-        found = np.isfinite(dm)
-        rows = np.broadcast_to(np.arange(len(pending))[:, None], dm.shape)[found]
-        u, d = _best(index, px[pending], py[pending], cand[found], rows, len(pending))
+        u, d = _best_of_rows(index, px[pending], py[pending], cand, np.isfinite(dm))
         best_u[pending], best_d[pending] = u, d
         # Resolved: fewer than k pieces within the radius, or the k-th midpoint is so far
         # that no unseen piece can be as near as the best one found.
