@@ -9,11 +9,20 @@ whose :meth:`StayTable.dosage` gives minutes present and visits per unit per
 day, ISO week or whole window (:class:`Dosage`). :func:`complier_effect`
 gives the effect of treatment received beside the intention-to-treat result
 (Angrist, Imbens & Rubin 1996), with the design's randomization test and an
-interval by test inversion (Imbens & Rosenbaum 2005).
+interval by test inversion (Imbens & Rosenbaum 2005). :func:`delivery_week`
+is the weekly delivery monitor: dose per exposure condition, under-served
+treated places and visited controls.
 """
 
 from geoexp.delivery._complier import ComplierEffect, complier_effect
 from geoexp.delivery._from_pings import DEFAULT_TOLERANCE_M, stays_from_pings, unit_index
+from geoexp.delivery._monitor import (
+    RECORD_LAYER,
+    DeliveryWeek,
+    delivery_week,
+    plot_weekly_delivery,
+    weekly_delivery,
+)
 from geoexp.delivery._snap import UnitIndex, snap_points
 from geoexp.delivery._stays import (
     DEFAULT_MAX_GAP_S,
@@ -35,7 +44,12 @@ __all__ = [
     "DEFAULT_MIN_MINUTES",
     "DEFAULT_TOLERANCE_M",
     "FREQUENCIES",
+    "DeliveryWeek",
     "Dosage",
+    "RECORD_LAYER",
+    "delivery_week",
+    "plot_weekly_delivery",
+    "weekly_delivery",
     "StayBuilder",
     "StayRules",
     "StayTable",
