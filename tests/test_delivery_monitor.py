@@ -136,3 +136,37 @@ def test_presence_command_needs_exactly_one_source(trial_copy, tmp_path):
     )
     assert result.exit_code == 2
     assert "either --pings or --visits" in result.output
+
+
+def test_received_command_prints_the_itt_and_the_complier_effect(demo, pings_file, tmp_path):
+    # The demo trial has stored outcomes; presence from invented pings is unrelated to the
+    # assignment here, so only the wiring is checked (the numbers are checked against
+    # statsmodels in tests/test_delivery_complier.py).
+    path, crs = pings_file
+    trial = tmp_path / "t.gpkg"
+    shutil.copy2(demo / "trial.gpkg", trial)
+    section = tmp_path / "received.md"
+    result = CliRunner().invoke(
+        app,
+        [
+            "received",
+            str(trial),
+            "--pings",
+            str(path),
+            "--x",
+            "x",
+            "--y",
+            "y",
+            "--crs",
+            crs,
+            "--draws",
+            "99",
+            "--section",
+            str(section),
+        ],
+    )
+    assert result.exit_code == 0, result.output
+    assert "complier effect" in result.output and "ITT on the outcome" in result.output
+    text = section.read_text()
+    assert text.startswith("## Effect of treatment received")
+    assert "primary result" in text

@@ -283,3 +283,85 @@ def monitor_command(
     if record:
         append_record(trial, RECORD_LAYER, summary.record())
         console.print(f"Week of {summary.week} recorded in {trial} (layer {RECORD_LAYER})")
+
+
+@app.command("received")
+def received_command(
+    trial: TrialArg,
+    pings: PingsOpt = None,
+    visits: VisitsOpt = None,
+    planned_minutes: Annotated[
+        float | None,
+        typer.Option(
+            help="Planned minutes per treated place per week: the dose becomes 'at the planned "
+            "dose' (0/1); without it the dose is minutes present.",
+            min=0,
+        ),
+    ] = None,
+    outcome: Annotated[str, typer.Option(help="'change' (post minus pre) or 'post'.")] = "change",
+    draws: Annotated[int, typer.Option(help="Randomization draws.", min=1, max=1_000_000)] = 2000,
+    level: Annotated[float, typer.Option(help="Confidence level of the interval.")] = 0.95,
+    section: Annotated[
+        Path | None, typer.Option(help="Markdown file for the report's added section.")
+    ] = None,
+    device: DeviceOpt = "device",
+    time: TimeOpt = "time",
+    unit_column: UnitColOpt = None,
+    start: StartOpt = "start",
+    end: EndOpt = "end",
+    team: TeamOpt = None,
+    activity: ActivityOpt = None,
+    lon: LonOpt = None,
+    lat: LatOpt = None,
+    x: XOpt = None,
+    y: YOpt = None,
+    crs: CrsOpt = None,
+    tolerance: TolOpt = 25.0,
+    max_gap: GapOpt = 300.0,
+    max_speed: SpeedOpt = 8.0,
+    min_stay: MinStayOpt = 2.0,
+) -> None:
+    """Effect of treatment received (complier effect) beside the intention-to-treat result.
+
+    Needs stored outcomes (geoexp count). The dose is presence during the post-period.
+    """
+    from geoexp._atomic import atomic_path
+    from geoexp.delivery import treatment_received
+
+    if outcome not in ("change", "post"):
+        raise typer.BadParameter(
+            f"must be change or post; got {outcome!r}", param_hint="'--outcome'"
+        )
+    if not 0 < level < 1:
+        raise typer.BadParameter("must be between 0 and 1", param_hint="'--level'")
+    inputs = {"--pings": pings, "--visits": visits}
+    check_outputs({"--section": section}, {k: v for k, v in inputs.items() if v}, trial=trial)
+    tf, stays = load_stays(
+        trial,
+        pings,
+        visits,
+        device=device,
+        time=time,
+        unit_column=unit_column,
+        start=start,
+        end=end,
+        team=team,
+        activity=activity,
+        lon=lon,
+        lat=lat,
+        x=x,
+        y=y,
+        crs=crs,
+        tolerance=tolerance,
+        max_gap=max_gap,
+        max_speed=max_speed,
+        min_stay=min_stay,
+    )
+    result = treatment_received(
+        tf, stays, planned_minutes=planned_minutes, outcome=outcome, n_draws=draws, level=level
+    )
+    console.print(str(result), markup=False)
+    if section is not None:
+        with writing(section, "report section"), atomic_path(section) as tmp:
+            tmp.write_text(result.to_markdown(), encoding="utf-8")
+        console.print(f"Section written to {section}")

@@ -23,6 +23,7 @@ from geoexp.delivery._monitor import (
     plot_weekly_delivery,
     weekly_delivery,
 )
+from geoexp.delivery._received import treatment_received
 from geoexp.delivery._snap import UnitIndex, snap_points
 from geoexp.delivery._stays import (
     DEFAULT_MAX_GAP_S,
@@ -59,5 +60,6 @@ __all__ = [
     "snap_points",
     "stay_bounds",
     "stays_from_pings",
+    "treatment_received",
     "unit_index",
 ]

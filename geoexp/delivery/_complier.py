@@ -84,6 +84,26 @@ class ComplierEffect:
             f"Monte Carlo error {self.mc_error:.4f})"
         )
 
+    def to_markdown(self) -> str:
+        """A report section: the ITT first (the primary result), the complier effect beside it."""
+        low = "-inf" if not np.isfinite(self.ci_low) else f"{self.ci_low:.3g}"
+        high = "+inf" if not np.isfinite(self.ci_high) else f"{self.ci_high:.3g}"
+        return (
+            "## Effect of treatment received\n\n"
+            "The intention-to-treat (ITT) result is the primary result; the complier effect "
+            "beside it scales it by how much assignment changed the presence delivered "
+            "(Angrist, Imbens & Rubin 1996). It assumes assignment changes incidents only "
+            "through presence and never lowers presence.\n\n"
+            f"| quantity ({self.contrast}) | value |\n| --- | --- |\n"
+            f"| ITT on the outcome (incidents per place) | {self.itt_outcome:.3g} |\n"
+            f"| ITT on the dose ({self.dose_label} per place) | {self.itt_dose:.3g} |\n"
+            f"| complier effect (incidents per {self.dose_label}) | {self.estimate:.3g} |\n"
+            f"| {self.level:.0%} interval, by inverting the randomization test "
+            f"(Imbens & Rosenbaum 2005) | [{low}, {high}] |\n"
+            f"| p-value, randomization test of the ITT ({self.n_draws:,} draws) | "
+            f"{self.p_value:.4f} |\n"
+        )
+
     def to_frame(self) -> pd.DataFrame:
         """One row with every field."""
         return pd.DataFrame([self.__dict__])
