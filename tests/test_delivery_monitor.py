@@ -170,3 +170,10 @@ def test_received_command_prints_the_itt_and_the_complier_effect(demo, pings_fil
     text = section.read_text()
     assert text.startswith("## Effect of treatment received")
     assert "primary result" in text
+
+
+@pytest.mark.parametrize("command", ["presence", "monitor", "received"])
+def test_delivery_commands_have_help(command):
+    result = CliRunner().invoke(app, [command, "--help"])
+    assert result.exit_code == 0
+    assert "Usage" in result.output and "--pings" in result.output
