@@ -271,3 +271,24 @@ def test_visit_log_position_far_from_every_unit_is_an_error(units):
     )
     with pytest.raises(InputError, match=r"no unit within 25 m.*'x/y'.*rows 0"):
         read_visits(frame, units, x="x", y="y", crs=CRS)
+
+
+def test_pings_in_longitude_latitude_give_the_same_stays(grid, units, tmp_path):
+    # pyproj's inverse projection (UTM zone 27S to WGS 84) round-trips to well under a millimetre,
+    # so the same pings given as longitude/latitude make the same stays.
+    import pyproj
+
+    pings = simulate_pings(grid.geometry.to_numpy(), 20_000, n_devices=5, rng=9)
+    lon, lat = pyproj.Transformer.from_crs(CRS, 4326, always_xy=True).transform(
+        pings["x"].to_numpy(), pings["y"].to_numpy()
+    )
+    degrees = pings.assign(lon=lon, lat=lat).drop(columns=["x", "y", "stop"])
+    degrees.loc[3, "lon"] = np.nan  # one ping without a position
+    degrees.to_csv(tmp_path / "deg.csv", index=False)
+    metres = pings.drop(columns="stop")
+    metres.loc[3, ["x", "y"]] = np.nan
+    metres.to_csv(tmp_path / "m.csv", index=False)
+    a = stays_from_pings(tmp_path / "deg.csv", units, lon="lon", lat="lat")
+    b = stays_from_pings(tmp_path / "m.csv", units, x="x", y="y", crs=CRS)
+    assert a.summary["pings_without_position"] == "1"
+    pd.testing.assert_frame_equal(a.frame, b.frame)

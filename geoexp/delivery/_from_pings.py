@@ -151,8 +151,8 @@ def stays_from_pings(
     ).sort_values(["start", "device"], kind="stable", ignore_index=True)
     summary = {
         "pings": f"{n:,}",
-        "no_position": f"{no_position:,} pings",
-        "snapped": f"{snapped:,} pings within {tolerance_m:g} m of a unit",
+        "pings_without_position": f"{no_position:,}",
+        "pings_snapped": f"{snapped:,} within {tolerance_m:g} m of a unit",
         "devices": f"{len(codes):,}",
         "rules": (
             f"gap <= {rules.max_gap_s:g} s, speed <= {rules.max_speed_kmh:g} km/h, "

@@ -8,8 +8,9 @@ longitude/latitude (EPSG:4326). Policy:
   visit logs, pings and trial dates must all be on the same local clock.
   A Parquet timestamp column without a time zone is used as it is.
 * An empty or unreadable time, or an empty device id, is an error naming the
-  rows. An empty or non-numeric position is not an error: the ping is counted
-  as "no position" and skipped.
+  rows; so is a position that is not a number (pyarrow's message names the
+  row). An empty position, or a longitude/latitude out of range, is not an
+  error: the ping is counted as "no position" and never snapped.
 """
 
 from __future__ import annotations

@@ -31,8 +31,9 @@ class StayTable:
     source : str
         The file the stays came from.
     summary : dict
-        Counts of what was read (``pings``, ``no_position``, ``snapped``,
-        ``devices`` for pings; ``rows`` for logs) and the rules used.
+        Counts of what was read (``pings``, ``pings_without_position``,
+        ``pings_snapped``, ``devices`` for pings; ``rows`` for logs) and the
+        rules used.
     """
 
     frame: pd.DataFrame
