@@ -35,6 +35,13 @@ from geoexp.delivery._stays import (
     stay_bounds,
 )
 from geoexp.delivery._table import FREQUENCIES, Dosage, StayTable
+from geoexp.delivery._timeline import (
+    PreTrend,
+    condition_series,
+    incidents_by_period,
+    plot_over_time,
+    pre_trend,
+)
 from geoexp.delivery._visits import read_visits
 
 __all__ = [
@@ -61,5 +68,10 @@ __all__ = [
     "stay_bounds",
     "stays_from_pings",
     "treatment_received",
+    "PreTrend",
+    "condition_series",
+    "incidents_by_period",
+    "plot_over_time",
+    "pre_trend",
     "unit_index",
 ]
