@@ -172,8 +172,48 @@ def test_received_command_prints_the_itt_and_the_complier_effect(demo, pings_fil
     assert "primary result" in text
 
 
-@pytest.mark.parametrize("command", ["presence", "monitor", "received"])
+@pytest.mark.parametrize("command", ["presence", "monitor", "received", "timeline"])
 def test_delivery_commands_have_help(command):
     result = CliRunner().invoke(app, [command, "--help"])
     assert result.exit_code == 0
-    assert "Usage" in result.output and "--pings" in result.output
+    assert "Usage" in result.output
+    assert ("--pings" in result.output) == (command != "timeline")
+
+
+def test_timeline_command_draws_the_chart_and_checks_the_pre_trend(trial_copy, tmp_path):
+    from geoexp.sampleregion import load_sample_region
+
+    frame = load_sample_region().incidents.to_crs(TrialFile.open(trial_copy).units().crs)
+    table = pd.DataFrame(
+        {"x": frame.geometry.x, "y": frame.geometry.y, "date": frame["date"].astype(str)}
+    )
+    table.to_csv(tmp_path / "inc.csv", index=False)
+    crs = frame.crs.to_string()
+    result = CliRunner().invoke(
+        app,
+        [
+            "timeline",
+            str(trial_copy),
+            "--incidents",
+            str(tmp_path / "inc.csv"),
+            "--x",
+            "x",
+            "--y",
+            "y",
+            "--crs",
+            crs,
+            "--window",
+            "2025-01-01:2025-12-31",
+            "--freq",
+            "month",
+            "--chart",
+            str(tmp_path / "t.png"),
+            "--out",
+            str(tmp_path / "t.csv"),
+        ],
+    )
+    assert result.exit_code == 0, result.output
+    assert "Pre-trial trend" in result.output or "No pre-trend check" in result.output
+    assert (tmp_path / "t.png").read_bytes()[:4] == b"\x89PNG"
+    series = pd.read_csv(tmp_path / "t.csv", index_col=0)
+    assert "treated" in series.columns

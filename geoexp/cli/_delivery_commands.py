@@ -365,3 +365,80 @@ def received_command(
         with writing(section, "report section"), atomic_path(section) as tmp:
             tmp.write_text(result.to_markdown(), encoding="utf-8")
         console.print(f"Section written to {section}")
+
+
+def _window(text: str) -> tuple[str, str]:
+    parts = [p.strip() for p in text.split(":")]
+    if len(parts) != 2 or not all(parts):
+        raise typer.BadParameter(
+            f"must be START:END dates, e.g. 2026-01-01:2026-06-30; got {text!r}",
+            param_hint="'--window'",
+        )
+    return parts[0], parts[1]
+
+
+@app.command("timeline")
+def timeline_command(
+    trial: TrialArg,
+    incidents: Annotated[Path, typer.Option(help="Incident points: CSV with a date column.")],
+    window: Annotated[str, typer.Option(help="Trial window START:END (ISO dates).")],
+    chart: Annotated[Path, typer.Option(help="PNG: incidents per unit by condition over time.")],
+    out: Annotated[
+        Path | None, typer.Option(help="CSV of mean incidents per unit by condition and period.")
+    ] = None,
+    freq: Annotated[str, typer.Option(help="'week' (ISO, from Monday) or 'month'.")] = "week",
+    date_column: Annotated[str, typer.Option(help="Column of incident dates (ISO).")] = "date",
+    lon: LonOpt = None,
+    lat: LatOpt = None,
+    x: XOpt = None,
+    y: YOpt = None,
+    crs: CrsOpt = None,
+    tolerance: TolOpt = 30.0,
+) -> None:
+    """Incidents per unit by exposure condition over time, the trial window shaded; pre-trend."""
+    import matplotlib
+
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+
+    from geoexp._atomic import atomic_path
+    from geoexp.delivery import condition_series, incidents_by_period, plot_over_time, pre_trend
+    from geoexp.trialfile import TrialFile
+    from geoexp.units import UnitSet
+
+    if freq not in ("week", "month"):
+        raise typer.BadParameter(f"must be week or month; got {freq!r}", param_hint="'--freq'")
+    first, last = _window(window)
+    check_outputs({"--chart": chart, "--out": out}, {"--incidents": incidents}, trial=trial)
+    tf = TrialFile.open(trial)
+    units = UnitSet.from_frame(tf.units(), None, source=str(trial))
+    counts = incidents_by_period(
+        units,
+        incidents,
+        date_column=date_column,
+        x=x,
+        y=y,
+        lon=lon,
+        lat=lat,
+        crs=crs,
+        freq=freq,
+        tolerance_m=tolerance,
+    )
+    series = condition_series(counts, tf.assignment())
+    console.print(
+        f"{int(counts['incidents'].sum()):,} incidents counted per unit and {freq} "
+        f"({counts.attrs['dropped']:,} with no unit within {tolerance:g} m left out)"
+    )
+    try:
+        console.print(str(pre_trend(series, first)), markup=False)
+    except InputError as err:
+        console.print(f"No pre-trend check: {err}", markup=False)
+    ax = plot_over_time(series, (first, last))
+    with writing(chart, "chart"), atomic_path(chart) as tmp:
+        ax.figure.savefig(tmp, format="png", dpi=120, bbox_inches="tight")
+    plt.close(ax.figure)
+    console.print(f"Chart written to {chart}")
+    if out is not None:
+        with writing(out, "table"), atomic_path(out) as tmp:
+            series.to_csv(tmp, encoding="utf-8")
+        console.print(f"Mean incidents per unit by condition and {freq} written to {out}")
