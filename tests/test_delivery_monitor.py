@@ -13,7 +13,7 @@ from geoexp.cli import app
 from geoexp.delivery import RECORD_LAYER, delivery_week, stays_from_pings
 from geoexp.errors import InputError
 from geoexp.sampleregion import simulate_pings
-from geoexp.trialfile import TrialFile, append_record
+from geoexp.trialfile import TrialFile, append_record, verify_trial
 from geoexp.units import UnitSet
 
 
@@ -91,6 +91,7 @@ def test_monitor_command_appends_dated_records_and_keeps_the_assignment(
     assert len(records) == 2 * n_conditions  # appended, not overwritten
     assert set(records["week"]) == {"2025-01-06"}
     pd.testing.assert_frame_equal(tf.assignment(), before)
+    assert verify_trial(tf).problems == ()  # the record leaves the trial's fingerprints intact
     assert (tmp_path / "chart.png").read_bytes()[:4] == b"\x89PNG"
     lists = pd.read_csv(tmp_path / "lists.csv")
     assert set(lists["issue"]) <= {"under-served", "control visited"}
