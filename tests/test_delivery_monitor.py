@@ -164,6 +164,8 @@ def test_received_command_prints_the_itt_and_the_complier_effect(demo, pings_fil
             "99",
             "--section",
             str(section),
+            "--dose-chart",
+            str(tmp_path / "d.png"),
         ],
     )
     assert result.exit_code == 0, result.output
@@ -171,6 +173,7 @@ def test_received_command_prints_the_itt_and_the_complier_effect(demo, pings_fil
     text = section.read_text()
     assert text.startswith("## Effect of treatment received")
     assert "primary result" in text
+    assert (tmp_path / "d.png").read_bytes()[:4] == b"\x89PNG"
 
 
 @pytest.mark.parametrize("command", ["presence", "monitor", "received", "timeline"])

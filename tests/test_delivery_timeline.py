@@ -107,3 +107,22 @@ def test_unreadable_dates_are_named(units):
     frame = pd.DataFrame({"x": [0.0, 0.0], "y": [0.0, 0.0], "date": ["2025-01-01", "01/02/2025"]})
     with pytest.raises(InputError, match=r"'date'.*rows 1"):
         incidents_by_period(units, frame, x="x", y="y", crs=CRS)
+
+
+def test_dose_groups_partition_the_places():
+    from geoexp.delivery import dose_response_table
+
+    rng = np.random.default_rng(0)
+    minutes = np.where(rng.random(300) < 0.3, 0.0, rng.exponential(40, 300))
+    y = rng.poisson(3, 300).astype(float)
+    condition = np.where(np.arange(300) < 100, "treated", "pure_control")
+    table = dose_response_table(minutes, y, condition, bins=4)
+    assert table["places"].sum() == 300
+    # Group 0 is exactly the places without presence; its mean outcome is theirs.
+    none = table[table["group"] == 0].set_index("condition")
+    for c in ("treated", "pure_control"):
+        mask = (condition == c) & (minutes == 0)
+        assert none.loc[c, "places"] == mask.sum()
+        assert none.loc[c, "mean_outcome"] == pytest.approx(y[mask].mean())
+    # Overall mean outcome is kept: the place-weighted group means average back to it.
+    assert (table["places"] * table["mean_outcome"]).sum() / 300 == pytest.approx(y.mean())

@@ -304,6 +304,10 @@ def received_command(
     section: Annotated[
         Path | None, typer.Option(help="Markdown file for the report's added section.")
     ] = None,
+    dose_chart: Annotated[
+        Path | None,
+        typer.Option(help="PNG: outcome by minutes present per place (descriptive, not causal)."),
+    ] = None,
     device: DeviceOpt = "device",
     time: TimeOpt = "time",
     unit_column: UnitColOpt = None,
@@ -335,7 +339,11 @@ def received_command(
     if not 0 < level < 1:
         raise typer.BadParameter("must be between 0 and 1", param_hint="'--level'")
     inputs = {"--pings": pings, "--visits": visits}
-    check_outputs({"--section": section}, {k: v for k, v in inputs.items() if v}, trial=trial)
+    check_outputs(
+        {"--section": section, "--dose-chart": dose_chart},
+        {k: v for k, v in inputs.items() if v},
+        trial=trial,
+    )
     tf, stays = load_stays(
         trial,
         pings,
@@ -365,6 +373,21 @@ def received_command(
         with writing(section, "report section"), atomic_path(section) as tmp:
             tmp.write_text(result.to_markdown(), encoding="utf-8")
         console.print(f"Section written to {section}")
+    if dose_chart is not None:
+        import matplotlib
+
+        matplotlib.use("Agg")
+        import matplotlib.pyplot as plt
+
+        from geoexp.delivery import dose_response_table, plot_dose_response, received_inputs
+
+        _, assignment, y_unit, minutes, _ = received_inputs(tf, stays, outcome)
+        table = dose_response_table(minutes, y_unit, assignment.to_frame()["condition"].to_numpy())
+        ax = plot_dose_response(table)
+        with writing(dose_chart, "chart"), atomic_path(dose_chart) as tmp:
+            ax.figure.savefig(tmp, format="png", dpi=120, bbox_inches="tight")
+        plt.close(ax.figure)
+        console.print(f"Dose-response chart (descriptive, not causal) written to {dose_chart}")
 
 
 def _window(text: str) -> tuple[str, str]:

@@ -15,6 +15,7 @@ treated places and visited controls.
 """
 
 from geoexp.delivery._complier import ComplierEffect, complier_effect
+from geoexp.delivery._dose import dose_response_table, plot_dose_response
 from geoexp.delivery._from_pings import DEFAULT_TOLERANCE_M, stays_from_pings, unit_index
 from geoexp.delivery._monitor import (
     RECORD_LAYER,
@@ -23,7 +24,7 @@ from geoexp.delivery._monitor import (
     plot_weekly_delivery,
     weekly_delivery,
 )
-from geoexp.delivery._received import treatment_received
+from geoexp.delivery._received import received_inputs, treatment_received
 from geoexp.delivery._snap import UnitIndex, snap_points
 from geoexp.delivery._stays import (
     DEFAULT_MAX_GAP_S,
@@ -68,6 +69,9 @@ __all__ = [
     "stay_bounds",
     "stays_from_pings",
     "treatment_received",
+    "received_inputs",
+    "dose_response_table",
+    "plot_dose_response",
     "PreTrend",
     "condition_series",
     "incidents_by_period",

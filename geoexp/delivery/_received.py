@@ -16,6 +16,36 @@ from geoexp.outcomes import load_outcomes
 from geoexp.trialfile import TrialFile, design_from_trial, verify_trial
 
 
+def received_inputs(
+    trial: TrialFile | str | os.PathLike,
+    stays: StayTable,
+    outcome: Literal["change", "post"] = "change",
+):
+    """The design, assignment, outcome per unit, minutes present in the post-period and that period.
+
+    The trial is verified first (a changed design or outcome table is refused).
+    """
+    tf = trial if isinstance(trial, TrialFile) else TrialFile.open(trial)
+    verify_trial(tf)
+    design, assignment = design_from_trial(tf)
+    outcomes = load_outcomes(tf)
+    if outcome not in ("change", "post"):
+        raise InputError(f"outcome must be 'change' or 'post', got {outcome!r}")
+    counts = outcomes.counts.reindex(design.units.ids)
+    if counts["post"].isna().any():
+        raise InputError("the stored outcomes do not cover every unit of the trial")
+    post = counts["post"].to_numpy(dtype=float)
+    y = post - counts["pre"].to_numpy(dtype=float) if outcome == "change" else post
+    first, last = (str(d) for d in outcomes.post)
+    minutes = (
+        stays.dosage("period", start=first, end=last)
+        .per_unit()["minutes"]
+        .reindex(design.units.ids, fill_value=0.0)
+        .to_numpy(dtype=float)
+    )
+    return design, assignment, y, minutes, (first, last)
+
+
 def treatment_received(
     trial: TrialFile | str | os.PathLike,
     stays: StayTable,
@@ -56,24 +86,7 @@ def treatment_received(
     -------
     ComplierEffect
     """
-    tf = trial if isinstance(trial, TrialFile) else TrialFile.open(trial)
-    verify_trial(tf)
-    design, assignment = design_from_trial(tf)
-    outcomes = load_outcomes(tf)
-    if outcome not in ("change", "post"):
-        raise InputError(f"outcome must be 'change' or 'post', got {outcome!r}")
-    counts = outcomes.counts.reindex(design.units.ids)
-    if counts["post"].isna().any():
-        raise InputError("the stored outcomes do not cover every unit of the trial")
-    post = counts["post"].to_numpy(dtype=float)
-    y = post - counts["pre"].to_numpy(dtype=float) if outcome == "change" else post
-    first, last = (str(d) for d in outcomes.post)
-    minutes = (
-        stays.dosage("period", start=first, end=last)
-        .per_unit()["minutes"]
-        .reindex(design.units.ids, fill_value=0.0)
-        .to_numpy(dtype=float)
-    )
+    design, assignment, y, minutes, (first, last) = received_inputs(trial, stays, outcome)
     if planned_minutes is not None:
         if not (np.isfinite(planned_minutes) and planned_minutes > 0):
             raise InputError(f"planned_minutes must be a positive number, got {planned_minutes!r}")
