@@ -292,3 +292,17 @@ def test_pings_in_longitude_latitude_give_the_same_stays(grid, units, tmp_path):
     b = stays_from_pings(tmp_path / "m.csv", units, x="x", y="y", crs=CRS)
     assert a.summary["pings_without_position"] == "1"
     pd.testing.assert_frame_equal(a.frame, b.frame)
+
+
+def test_simulated_patrols_favour_the_planned_places(grid, units, tmp_path):
+    # Half of the stops go to 20 favoured units: far more of the minutes present are there
+    # than their share of the units (20 of 400 = 5%), yet not all (imperfect delivery).
+    favoured = np.arange(0, 400, 20)
+    pings = simulate_pings(
+        grid.geometry.to_numpy(), 40_000, n_devices=6, favoured=favoured, favour_share=0.5, rng=4
+    )
+    pings.drop(columns="stop").to_parquet(tmp_path / "p.parquet")
+    stays = stays_from_pings(tmp_path / "p.parquet", units, x="x", y="y", crs=CRS)
+    at_favoured = stays.frame["unit"].isin(units.ids[favoured])
+    share = stays.frame.loc[at_favoured, "minutes"].sum() / stays.frame["minutes"].sum()
+    assert 0.3 < share < 0.7

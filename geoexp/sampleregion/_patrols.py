@@ -3,8 +3,8 @@
 Each device alternates driving (at about 30 km/h along a straight line) and
 stopping (GPS fixes scattered a few metres around a point on a unit). The
 next stop is a random walk from the last one, snapped to the nearest unit's
-midpoint, so devices stay in a neighbourhood as patrols do. Stops at units
-listed in ``favoured`` are more likely (the planned places). Everything is
+midpoint, so devices stay in a neighbourhood as patrols do. A share of the stops
+can go to ``favoured`` units instead (the planned places). Everything is
 generated on whole arrays; the tracks are invented and only for tests,
 benchmarks and the demo.
 """
@@ -31,6 +31,8 @@ def simulate_pings(
     mean_stop_pings: float = 20.0,
     walk_m: float = 400.0,
     gps_error_m: float = 4.0,
+    favoured: np.ndarray | None = None,
+    favour_share: float = 0.0,
     start: str = "2025-01-06T00:00:00",
     rng: RngLike = 0,
 ) -> pd.DataFrame:
@@ -50,6 +52,13 @@ def simulate_pings(
         Standard deviation of the step, in metres, from one stop to the next.
     gps_error_m : float
         Standard deviation of a fix around the true position, in metres.
+    favoured : array of int, optional
+        Positions of units patrols are sent to (the treated places of a plan).
+    favour_share : float
+        Share of stops made at a randomly chosen favoured unit instead of the
+        next unit of the random walk (0 to 1); the rest of the stops are
+        where the walk leads, so some favoured units are under-served and
+        some other units are visited, as in a trial with imperfect delivery.
     start : str
         Time of the first ping (local clock).
     rng : None, int, SeedSequence or Generator
@@ -82,6 +91,11 @@ def simulate_pings(
     span = np.maximum(hi - lo, 1.0)
     walk = lo + np.abs(((origin + np.cumsum(steps, axis=1)) - lo + span) % (2 * span) - span)
     _, stop_unit = tree.query(walk.reshape(-1, 2))
+    if favoured is not None and len(favoured) and favour_share > 0:
+        if not 0 <= favour_share <= 1:
+            raise InputError(f"favour_share must be between 0 and 1, got {favour_share!r}")
+        sent = rng.random(stop_unit.size) < favour_share
+        stop_unit[sent] = rng.choice(np.asarray(favoured), int(sent.sum()))
     target = mid[stop_unit].reshape(n_devices, n_legs, 2)
     before = np.concatenate([target[:, :1], target[:, :-1]], axis=1)
     length = np.hypot(*(target - before).transpose(2, 0, 1))
