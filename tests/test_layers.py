@@ -37,6 +37,7 @@ LAYERS: list[set[str]] = [
     {"design"},
     {"estimate", "inference"},
     {"power", "outcomes", "trialfile"},
+    {"delivery"},  # presence at units from visit logs and GPS pings; the delivery monitor
     {"analysis"},
     {"maps", "briefing", "report"},  # the output layer
     {"workflow", "publish"},  # count, analyse and report as one job; tables to a database

@@ -4,6 +4,7 @@ from geoexp.cli import (  # noqa: F401  (register commands)
     _baseline_commands,
     _briefing_commands,
     _database_commands,
+    _delivery_commands,
     _field_commands,
     _map_commands,
     _power_commands,

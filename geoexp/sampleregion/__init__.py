@@ -14,6 +14,7 @@ from geoexp.sampleregion._city import (
     write_sample_region,
 )
 from geoexp.sampleregion._grid import synthetic_grid
+from geoexp.sampleregion._patrols import simulate_pings
 from geoexp.sampleregion._trial import DEMO_MULTIPLIERS, simulate_trial_incidents
 
 __all__ = [
@@ -22,6 +23,7 @@ __all__ = [
     "SampleRegion",
     "load_sample_region",
     "make_city",
+    "simulate_pings",
     "synthetic_grid",
     "write_sample_region",
 ]

@@ -29,9 +29,10 @@ from geoexp.trialfile._integrity import (
 )
 from geoexp.trialfile._lock import DEFAULT_WAIT_S, lock_path, trial_lock
 from geoexp.trialfile._rebuild import design_from_trial
-from geoexp.trialfile._records import store_outcomes, store_results
+from geoexp.trialfile._records import append_record, store_outcomes, store_results
 
 __all__ = [
+    "append_record",
     "DEFAULT_WAIT_S",
     "TrialFile",
     "TrialIntegrity",

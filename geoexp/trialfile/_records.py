@@ -33,7 +33,7 @@ from geoexp.trialfile._file import (
 from geoexp.trialfile._integrity import outcomes_fingerprint, results_fingerprint
 from geoexp.trialfile._lock import Notify
 
-__all__ = ["store_outcomes", "store_results"]
+__all__ = ["append_record", "store_outcomes", "store_results"]
 
 
 def store_outcomes(
@@ -156,5 +156,40 @@ def store_results(
             return {"results_fingerprint": results_fingerprint(stored)}
 
         return _Change(layers, new_meta, (), after)
+
+    return update_trial(path, change, wait_s=wait_s, notify=notify)
+
+
+# Layers a record may never be appended to: the trial's own tables.
+_OWN_LAYERS = ("units", "assignment", "probabilities", "unit_fingerprints", "trial_meta")
+
+
+def append_record(
+    trial: TrialFile | str | os.PathLike[str],
+    layer: str,
+    rows: pd.DataFrame,
+    *,
+    wait_s: float | None = None,
+    notify: Notify | None = None,
+) -> TrialFile:
+    """Append dated rows to a record layer (e.g. ``delivery_weekly``) under the trial's lock.
+
+    The layer is read afresh under the lock and the rows are added after the
+    ones it holds, so two writers never lose each other's rows. The trial's
+    own layers (units, assignment, probabilities, fingerprints, meta) and the
+    outcome and result layers are refused: a record never overwrites them.
+    """
+    if (
+        layer in _OWN_LAYERS
+        or layer in (OUTCOMES_LAYER, RESULTS_LAYER)
+        or layer.startswith("superseded_")
+    ):
+        raise InputError(
+            f"layer {layer!r} belongs to the trial itself; records go to a layer of their own"
+        )
+    path = Path(trial.path if isinstance(trial, TrialFile) else trial)
+
+    def change(current: TrialFile) -> _Change:
+        return _Change({layer: append_rows(current, layer, rows.reset_index(drop=True))})
 
     return update_trial(path, change, wait_s=wait_s, notify=notify)
