@@ -257,3 +257,23 @@ def test_near_pairs_in_blocks_match_the_textbook_variance(monkeypatch):
             y, d, pi, 0, 3, bits, labels=LABELS, estimator="horvitz-thompson", near=(a, b)
         )
         assert e.std_error**2 == pytest.approx(textbook_variance(0, 3, y, d, pi, joint), rel=1e-10)
+
+
+def test_variance_step_runs_on_one_blas_thread(monkeypatch):
+    # the thread policy: the many small matrix products of the variance run on one BLAS
+    # thread, whatever the library's default (threadpoolctl reports the live setting)
+    from threadpoolctl import threadpool_info
+
+    seen = []
+    real = _horvitz.variance_terms
+
+    def spy(*args, **kwargs):
+        seen.extend(lib["num_threads"] for lib in threadpool_info() if lib["user_api"] == "blas")
+        return real(*args, **kwargs)
+
+    monkeypatch.setattr(_horvitz, "variance_terms", spy)
+    conds, po = path_enumeration()
+    bits = bits_of(conds, 4)
+    d = conds[4]
+    estimate_contrast(po[np.arange(6), d], d, bits.probabilities(), 2, 3, bits, labels=LABELS)
+    assert seen and all(t == 1 for t in seen)
