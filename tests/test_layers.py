@@ -26,6 +26,7 @@ LAYERS: list[set[str]] = [
     {"estimate", "inference"},
     {"power", "outcomes", "trialfile"},
     {"analysis"},
+    {"sweep"},  # design sweeps over the power simulation, here or on a Dask cluster
     {"maps", "briefing", "report"},  # the output layer
     {"workflow"},  # count, analyse and report as one job
     {"quickstart"},  # the demo job
