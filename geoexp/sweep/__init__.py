@@ -11,7 +11,13 @@ ranks them; the work runs in this process or as tasks on a Dask cluster
 """
 
 from geoexp.sweep._candidates import Candidate, candidate_key, candidate_seed
-from geoexp.sweep._cluster import Backend, DaskBackend, LocalBackend, make_backend
+from geoexp.sweep._cluster import (
+    Backend,
+    DaskBackend,
+    LocalBackend,
+    apply_to_shared,
+    make_backend,
+)
 from geoexp.sweep._evaluate import SweepLayer, evaluate_candidate, minimum_detectable_effect
 from geoexp.sweep._figure import plot_power
 from geoexp.sweep._run import SweepResult, rank_table, run_sweep
@@ -27,6 +33,7 @@ __all__ = [
     "SweepLayer",
     "SweepResult",
     "SweepSpec",
+    "apply_to_shared",
     "candidate_key",
     "candidate_seed",
     "evaluate_candidate",

@@ -56,6 +56,13 @@ class LocalBackend:
         """Nothing to release."""
 
 
+def apply_to_shared(item: tuple, shared: Any) -> Any:
+    """A task for any library function: ``item`` is (function, args, kwargs), called as
+    ``function(shared, *args, **kwargs)``, e.g. a randomization test of a design sent once."""
+    function, args, kwargs = item
+    return function(shared, *args, **kwargs)
+
+
 def _one_thread_task(function: Callable[[Any, Any], Any], item: Any, shared: Any) -> Any:
     """A task on a worker: its kernels and BLAS on one thread, whatever the worker's machine."""
     with limit_threads(1):
