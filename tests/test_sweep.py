@@ -308,3 +308,31 @@ def test_a_cluster_of_two_worker_processes_gives_identical_results(folder, spec)
     assert remote_test.statistic == local_test.statistic
     np.testing.assert_array_equal(remote_test.null_draws, local_test.null_draws)
     assert np.unique(local_test.null_draws).size > 10  # a real reference distribution
+
+
+def test_an_unreachable_scheduler_is_a_clear_error():
+    from geoexp.errors import InputError
+
+    # nothing listens on port 9 of this machine (the discard port, unused here)
+    with pytest.raises(InputError, match="could not reach the Dask scheduler"):
+        DaskBackend(scheduler="tcp://127.0.0.1:9", timeout=2)
+    with pytest.raises(InputError, match="either a number of local workers or a scheduler"):
+        DaskBackend(workers=2, scheduler="tcp://127.0.0.1:9")
+
+
+def test_sweep_command_refuses_workers_and_scheduler_together(folder, tmp_path):
+    done = CliRunner().invoke(
+        app,
+        [
+            "sweep",
+            str(folder / "sweep.toml"),
+            "--out",
+            str(tmp_path / "s.csv"),
+            "--workers",
+            "2",
+            "--scheduler",
+            "tcp://127.0.0.1:9",
+        ],
+    )
+    assert done.exit_code == 2
+    assert "not both" in done.output
