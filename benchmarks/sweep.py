@@ -93,7 +93,8 @@ def main() -> None:
         layer = SweepLayer.for_specs(base, [spec.design_spec(c) for c in spec.candidates()])
         print(
             f"{args.n:,} segments, {len(spec.candidates())} candidates x {args.sims} simulated "
-            f"trials x {args.draws} draws; {os.cpu_count()} cores; shared layer and graph "
+            f"trials x {args.draws} draws; {os.cpu_count()} cores, load average "
+            f"{os.getloadavg()[0]:.1f}; shared layer and graph "
             f"{time.perf_counter() - start:.1f} s"
         )
         run_sweep(warm, layer=layer)  # compile the kernels first
@@ -125,6 +126,7 @@ def main() -> None:
             f"speed-up of 2 workers: {seconds[1] / seconds[2]:.2f}x over 1 worker, "
             f"{seconds['local'] / seconds[2]:.2f}x over this process; tables identical: {same}"
         )
+        print(f"load average at the end: {os.getloadavg()[0]:.1f}")
         per = local.table["seconds"]
         print(f"seconds per candidate in this process: {per.min():.1f} to {per.max():.1f}")
         pd.set_option("display.width", 200)
