@@ -14,6 +14,7 @@ import shapely
 from scipy.stats import norm
 from typer.testing import CliRunner
 
+from geoexp._rng import Stream
 from geoexp.cli import app
 from geoexp.design import Design
 from geoexp.errors import DesignError
@@ -24,7 +25,10 @@ from geoexp.sweep import (
     SweepSpec,
     apply_to_shared,
     candidate_seed,
+    chunk_sizes,
+    evaluate_candidate,
     minimum_detectable_effect,
+    pooled_mean_sd,
     rank_table,
     run_sweep,
 )
@@ -276,6 +280,54 @@ def test_sweep_command_writes_table_and_figure(folder, tmp_path):
     assert refused.exit_code == 2
 
 
+# --- one large design in chunks -------------------------------------------------------
+
+
+def test_pooled_mean_and_sd_equal_those_of_the_pooled_values():
+    rng = np.random.default_rng(9)
+    groups = [rng.normal(3, 2, size=n) for n in (5, 1, 12, 0, 7)]
+    counts = [g.size for g in groups]
+    means = [g.mean() if g.size else np.nan for g in groups]
+    sds = [g.std(ddof=1) if g.size > 1 else np.nan for g in groups]
+    mean, sd = pooled_mean_sd(counts, means, sds)
+    every = np.concatenate(groups)
+    # [A] numpy on the pooled values themselves
+    assert mean == pytest.approx(every.mean(), rel=1e-12)
+    assert sd == pytest.approx(every.std(ddof=1), rel=1e-12)
+
+
+def test_chunks_of_one_design_pool_to_their_own_simulations(folder):
+    data = {**SWEEP, "grid": {"treated": [12]}}
+    data["simulation"] = {**SWEEP["simulation"], "sims": 50, "chunk_sims": 20}
+    chunked = SweepSpec.from_dict(data, base_dir=folder)
+    assert chunk_sizes(chunked.simulation) == [20, 20, 10]
+    row = run_sweep(chunked).table.iloc[0]
+    # each chunk is simulate_power on the design's power stream with index chunk + 1
+    candidate_spec = chunked.design_spec(chunked.candidates()[0])
+    design = Design.from_spec(candidate_spec)
+    model = NegativeBinomialOutcome("past", 0.2, {"treated": 0.5, "spillover_1": 0.9})
+    rejected = sum(
+        simulate_power(design, model, n_sims=n, n_draws=99, rng=design.stream(Stream.POWER, c + 1))
+        .to_frame()
+        .loc["treated", "n_rejected"]
+        for c, n in enumerate([20, 20, 10])
+    )
+    assert row["power_treated"] == rejected / 50
+    # the same chunks run one after the other in one call give the same row
+    alone = evaluate_candidate(
+        candidate_spec, _layer_of(chunked), chunked.simulation, dict(chunked.effects)
+    )
+    for key, value in alone.items():
+        if key != "seconds":
+            assert row[key] == value or (pd.isna(row[key]) and pd.isna(value)), key
+
+
+def _layer_of(spec: SweepSpec):
+    from geoexp.sweep import SweepLayer
+
+    return SweepLayer.for_specs(spec.base, [spec.design_spec(c) for c in spec.candidates()])
+
+
 # --- the Dask back end -----------------------------------------------------------------
 
 
@@ -285,6 +337,9 @@ def test_a_cluster_of_two_worker_processes_gives_identical_results(folder, spec)
     one = {**SWEEP, "grid": {"treated": [12], "gap_m": [150]}}
     single = SweepSpec.from_dict(one, base_dir=folder)
     local = run_sweep(single)
+    one["simulation"] = {**SWEEP["simulation"], "sims": 50, "chunk_sims": 20}
+    chunked = SweepSpec.from_dict(one, base_dir=folder)
+    chunked_local = run_sweep(chunked)
     design = Design.from_spec(single.design_spec(single.candidates()[0]))
     assignment = design.draw()
     probs = design.probabilities().probabilities
@@ -298,12 +353,16 @@ def test_a_cluster_of_two_worker_processes_gives_identical_results(folder, spec)
     try:
         assert "2 worker" in backend.describe()
         remote = run_sweep(single, backend=backend)
+        chunked_remote = run_sweep(chunked, backend=backend)
         [(_, remote_test)] = list(
             backend.run(apply_to_shared, [(fisher_test, args, options)], design)
         )
     finally:
         backend.close()
     pd.testing.assert_frame_equal(_rows(remote.table), _rows(local.table), check_exact=True)
+    pd.testing.assert_frame_equal(
+        _rows(chunked_remote.table), _rows(chunked_local.table), check_exact=True
+    )
     assert remote_test.p_value == local_test.p_value
     assert remote_test.statistic == local_test.statistic
     np.testing.assert_array_equal(remote_test.null_draws, local_test.null_draws)

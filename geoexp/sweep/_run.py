@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import time
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -13,7 +14,13 @@ from geoexp._atomic import atomic_path
 from geoexp.cautions import CAUTION
 from geoexp.sweep._candidates import Candidate
 from geoexp.sweep._cluster import Backend, make_backend
-from geoexp.sweep._evaluate import SweepLayer, evaluate_candidate
+from geoexp.sweep._evaluate import (
+    SweepLayer,
+    chunk_sizes,
+    evaluate_candidate,
+    evaluate_part,
+    power_columns,
+)
 from geoexp.sweep._spec import RankBy, SweepSpec
 
 _GRID_COLUMNS = ("treated", "gap_m", "bands_m", "method")
@@ -137,6 +144,35 @@ def _task(item: tuple, layer: SweepLayer) -> dict[str, Any]:
     return evaluate_candidate(spec, layer, simulation, effects, target_power)
 
 
+def _part_task(item: tuple, layer: SweepLayer) -> dict[str, Any]:
+    spec, simulation, effects, part = item
+    start = time.perf_counter()
+    out = evaluate_part(spec, layer, simulation, effects, part)
+    out["seconds"] = time.perf_counter() - start
+    return out
+
+
+def _chunked_rows(
+    results: dict[int, dict[str, Any]],
+    owners: list[tuple[int, int | None]],
+    specs: list,
+    spec: SweepSpec,
+) -> dict[int, dict[str, Any]]:
+    """Each candidate's row from its probability task and its chunks (pooled in chunk order)."""
+    rows: dict[int, dict[str, Any]] = {}
+    for i, candidate_spec in enumerate(specs):
+        mine = [(part, results[t]) for t, (owner, part) in enumerate(owners) if owner == i]
+        head = next(r for part, r in mine if part is None)
+        row: dict[str, Any] = {"spec_hash": candidate_spec.short_hash, "seed": candidate_spec.seed}
+        row.update({k: v for k, v in head.items() if k != "seconds"})
+        if head["feasible"]:
+            chunks = sorted((part, r) for part, r in mine if part is not None)
+            row.update(power_columns([r for _, r in chunks], spec.simulation, spec.target_power))
+        row["seconds"] = sum(r["seconds"] for _, r in mine)
+        rows[i] = row
+    return rows
+
+
 def run_sweep(
     spec: SweepSpec,
     *,
@@ -181,17 +217,29 @@ def run_sweep(
         layer = SweepLayer.for_specs(spec.base, specs)
     own = backend is None
     backend = make_backend(workers=workers, scheduler=scheduler) if own else backend
-    items = [(s, spec.simulation, dict(spec.effects), spec.target_power) for s in specs]
-    rows: dict[int, dict[str, Any]] = {}
+    effects = dict(spec.effects)
+    n_chunks = len(chunk_sizes(spec.simulation))
+    if n_chunks == 1:
+        task = _task
+        items = [(s, spec.simulation, effects, spec.target_power) for s in specs]
+        owners: list[tuple[int, int | None]] = [(i, None) for i in range(len(specs))]
+    else:
+        # one task for each candidate's probabilities and one for each chunk of its trials
+        task = _part_task
+        owners = [(i, part) for i in range(len(specs)) for part in (None, *range(n_chunks))]
+        items = [(specs[i], spec.simulation, effects, part) for i, part in owners]
+    results: dict[int, dict[str, Any]] = {}
     try:
         where = backend.describe()
         with _progress_bar(progress, len(items), where) as advance:
-            for i, row in backend.run(_task, items, layer):
-                rows[i] = row
-                advance(candidates[i].label)
+            for t, result in backend.run(task, items, layer):
+                results[t] = result
+                i, part = owners[t]
+                advance(candidates[i].label + ("" if part is None else f" (chunk {part + 1})"))
     finally:
         if own:
             backend.close()
+    rows = results if n_chunks == 1 else _chunked_rows(results, owners, specs, spec)
     records = []
     for i, candidate in enumerate(candidates):
         values = dict(candidate.values)

@@ -27,6 +27,8 @@ A sweep file is TOML::
     dispersion = 0.5
     outcome = "change"
     probability_draws = 2000      # default: the base design's draws
+    chunk_sims = 50               # optional: simulated trials per task, so that one large
+                                  # design's power runs as several tasks on a cluster
 
 Every key is checked, with the same rules as a design spec's keys, before any
 candidate is built: the message names the file, the table, the key and what
@@ -76,6 +78,7 @@ _SIMULATION: dict[str, Any] = {
     "dispersion": check_real(0, 1e6, low_open=False, high_open=False, what="a dispersion"),
     "outcome": check_choice("change", "post"),
     "probability_draws": check_whole(100, MAX_DRAWS, "a number of Monte Carlo draws"),
+    "chunk_sims": check_whole(1, MAX_DRAWS, "a number of simulated trials per task"),
 }
 _RATIO = check_real(0, 1e6, low_open=True, high_open=False, what="a rate ratio")
 _TOP: dict[str, Any] = {
@@ -99,6 +102,7 @@ class Simulation:
     dispersion: float = 0.5
     outcome: Literal["change", "post"] = "change"
     probability_draws: int | None = None
+    chunk_sims: int | None = None
 
 
 @dataclass(frozen=True)
