@@ -82,7 +82,7 @@ class Candidate:
             elif isinstance(v, float):
                 v = f"{v:g}"
             parts.append(f"{k}={v}")
-        return ", ".join(parts)
+        return ", ".join(parts) or "the base design"
 
     @property
     def seed_sequence(self) -> np.random.SeedSequence:
