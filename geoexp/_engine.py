@@ -11,7 +11,8 @@ gives identical results. This module is the one place that
   (:func:`numba_module`, :func:`jit`, :func:`compile_kernels`), so importing
   geoexp stays fast and works without numba;
 * keeps numba's threads, BLAS threads and the project's own worker threads
-  from oversubscribing the cores (:func:`compute_threads`, :func:`thread_count`).
+  from oversubscribing the cores (:func:`compute_threads`, :func:`thread_count`,
+  :func:`limit_threads`).
 """
 
 from __future__ import annotations
@@ -34,6 +35,7 @@ _numba: Any = _UNSET
 _noted = False
 _compiled: dict = {}
 _controller: list = [None, -1]  # threadpoolctl controller and the module count it saw
+_cap: list = [None]  # threads this process may use for kernels (set by limit_threads)
 
 
 def numba_module() -> ModuleType | None:
@@ -127,12 +129,33 @@ def cores() -> int:
 def thread_count() -> int:
     """Threads for a parallel kernel: the cores available, at most numba's configured number.
 
-    ``NUMBA_NUM_THREADS`` (numba's own setting) lowers it; nothing raises it
-    above the cores this process may use.
+    ``NUMBA_NUM_THREADS`` (numba's own setting) and :func:`limit_threads`
+    lower it; nothing raises it above the cores this process may use.
     """
     numba = numba_module() if "numba" in sys.modules else None
     configured = int(numba.config.NUMBA_NUM_THREADS) if numba is not None else cores()
-    return max(1, min(cores(), configured))
+    capped = configured if _cap[0] is None else min(configured, _cap[0])
+    return max(1, min(cores(), capped))
+
+
+@contextmanager
+def limit_threads(n_threads: int) -> Iterator[None]:
+    """Cap the threads of every parallel kernel run inside at ``n_threads`` (restored on exit).
+
+    For a process that shares its machine's cores with others of its kind,
+    such as one of several workers of a cluster on one machine: each runs its
+    kernels on its share of the cores, so that together they never run more
+    threads than there are cores. BLAS is held to one thread inside
+    :func:`compute_threads` already.
+    """
+    if isinstance(n_threads, bool) or not isinstance(n_threads, int) or n_threads < 1:
+        raise InputError(f"n_threads must be a whole number >= 1, got {n_threads!r}")
+    before = _cap[0]
+    _cap[0] = n_threads if before is None else min(before, n_threads)
+    try:
+        yield
+    finally:
+        _cap[0] = before
 
 
 def _blas_controller():

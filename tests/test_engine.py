@@ -59,3 +59,20 @@ def test_compute_threads_limits_blas_and_numba_and_restores():
     assert _blas_threads() == blas_before
     if numba is not None:
         assert numba.get_num_threads() == numba_before
+
+
+def test_limit_threads_caps_the_kernels_threads_and_restores():
+    before = _engine.thread_count()
+    with _engine.limit_threads(1):
+        assert _engine.thread_count() == 1
+        with _engine.compute_threads() as n_threads:
+            assert n_threads == 1
+            numba = _engine.numba_module()
+            if numba is not None:
+                assert numba.get_num_threads() == 1
+        with _engine.limit_threads(4):  # an inner cap never raises an outer one
+            assert _engine.thread_count() == 1
+    assert _engine.thread_count() == before
+    with pytest.raises(InputError, match="n_threads"):
+        with _engine.limit_threads(0):
+            pass

@@ -339,3 +339,23 @@ def test_displacement_reading_needs_a_clear_direct_effect_and_parts_add_up():
     assert clear.total_net_effect == pytest.approx(clear.target_part + clear.buffer_part)
     assert clear.control_trend == pytest.approx(1.0)
     assert clear.target_part == pytest.approx(30.0) and clear.buffer_part == pytest.approx(8.0)
+
+
+def test_variance_step_runs_on_one_blas_thread(monkeypatch):
+    # the thread policy: the many small matrix products of the variance run on one BLAS
+    # thread, whatever the library's default (threadpoolctl reports the live setting)
+    from threadpoolctl import threadpool_info
+
+    seen = []
+    real = _horvitz.variance_terms
+
+    def spy(*args, **kwargs):
+        seen.extend(lib["num_threads"] for lib in threadpool_info() if lib["user_api"] == "blas")
+        return real(*args, **kwargs)
+
+    monkeypatch.setattr(_horvitz, "variance_terms", spy)
+    conds, po = path_enumeration()
+    bits = bits_of(conds, 4)
+    d = conds[4]
+    estimate_contrast(po[np.arange(6), d], d, bits.probabilities(), 2, 3, bits, labels=LABELS)
+    assert seen and all(t == 1 for t in seen)

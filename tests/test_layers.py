@@ -39,6 +39,7 @@ LAYERS: list[set[str]] = [
     {"power", "outcomes", "trialfile"},
     {"delivery"},  # presence at units from visit logs and GPS pings; the delivery monitor
     {"analysis"},
+    {"sweep"},  # design sweeps over the power simulation, here or on a Dask cluster
     {"maps", "briefing", "report"},  # the output layer
     {"workflow", "publish"},  # count, analyse and report as one job; tables to a database
     {"quickstart"},  # the demo job

@@ -8,6 +8,7 @@ from geoexp.cli import (  # noqa: F401  (register commands)
     _field_commands,
     _map_commands,
     _power_commands,
+    _sweep_commands,
 )
 from geoexp.cli._app import app, main
 

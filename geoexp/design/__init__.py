@@ -40,6 +40,12 @@ from geoexp.design._samplers import (
     SaturationSampler,
     SeparatedSampler,
 )
+from geoexp.design._schema import SCHEMA as SPEC_KEYS
+from geoexp.design._schema import choice as check_choice
+from geoexp.design._schema import listing as check_list
+from geoexp.design._schema import real as check_real
+from geoexp.design._schema import text as check_text
+from geoexp.design._schema import whole as check_whole
 from geoexp.design._spec import (
     AssignmentSpec,
     DesignSpec,
@@ -55,6 +61,12 @@ __all__ = [
     "refuse_sparse_network",
     "MAX_DRAWS",
     "SAMPLER_BUILDERS",
+    "SPEC_KEYS",
+    "check_choice",
+    "check_list",
+    "check_real",
+    "check_text",
+    "check_whole",
     "Sampler",
     "build_sampler",
     "check_draws",

@@ -10,6 +10,7 @@ import numpy as np
 import pandas as pd
 from scipy.stats import norm
 
+from geoexp._engine import compute_threads
 from geoexp.errors import InputError
 from geoexp.exposure import ConditionBits, kish_ess
 
@@ -368,7 +369,10 @@ def estimate_contrast(
     near_pop = None
     if near is not None:
         near_pop = _near_in_population(near, pop, y.size)
-    vk, vl, cov, joint = variance_terms(resid, d, k, l, qk, ql, bits, rows, near_pop)
+    # many small matrix products of joint-probability blocks: one BLAS thread, so a busy
+    # machine (or several workers on it) is not oversubscribed
+    with compute_threads():
+        vk, vl, cov, joint = variance_terms(resid, d, k, l, qk, ql, bits, rows, near_pop)
     var = max((vk + vl - 2 * cov) / max(n, 1) ** 2, 0.0)
     est = mk - ml
     se = float(np.sqrt(var))

@@ -1,0 +1,146 @@
+"""Where a sweep's tasks run: in this process, or as tasks on a Dask cluster.
+
+Both back ends run the same task function on the same inputs, and every
+task's result depends on its inputs alone (each candidate carries its own
+seed), so a cluster gives bit-identical results to this process. On a
+cluster the shared inputs (units, eligible mask, graph) are scattered to
+every worker once, and each task holds its kernels to one thread
+(:func:`geoexp._engine.limit_threads`, BLAS on one thread inside
+:func:`geoexp._engine.compute_threads`): a machine running as many worker
+threads as it has cores is never oversubscribed. Dask is an optional extra:
+``pip install 'geoexp[cluster]'``.
+"""
+
+from __future__ import annotations
+
+import logging
+from collections.abc import Callable, Iterator, Sequence
+from typing import Any, Protocol
+
+from geoexp._engine import limit_threads
+from geoexp._optional import import_optional
+from geoexp.errors import InputError
+
+
+class Backend(Protocol):
+    """Runs ``function(item, shared)`` for every item; yields (index, result) as they finish."""
+
+    def run(
+        self, function: Callable[[Any, Any], Any], items: Sequence[Any], shared: Any
+    ) -> Iterator[tuple[int, Any]]:
+        """Run every task; yield each result with its item's index."""
+        ...
+
+    def describe(self) -> str:
+        """Where the tasks run, in words."""
+        ...
+
+    def close(self) -> None:
+        """Release what the back end started."""
+        ...
+
+
+class LocalBackend:
+    """Every task in this process, one after the other (numba kernels use this process's cores)."""
+
+    def run(self, function, items, shared):
+        """Run the tasks in order."""
+        for i, item in enumerate(items):
+            yield i, function(item, shared)
+
+    def describe(self) -> str:
+        """Where the tasks run."""
+        return "this process"
+
+    def close(self) -> None:
+        """Nothing to release."""
+
+
+def apply_to_shared(item: tuple, shared: Any) -> Any:
+    """A task for any library function: ``item`` is (function, args, kwargs), called as
+    ``function(shared, *args, **kwargs)``, e.g. a randomization test of a design sent once."""
+    function, args, kwargs = item
+    return function(shared, *args, **kwargs)
+
+
+def _one_thread_task(function: Callable[[Any, Any], Any], item: Any, shared: Any) -> Any:
+    """A task on a worker: its kernels and BLAS on one thread, whatever the worker's machine."""
+    with limit_threads(1):
+        return function(item, shared)
+
+
+class DaskBackend:
+    """Tasks on a Dask cluster: a local one of ``workers`` processes, or a running scheduler.
+
+    Parameters
+    ----------
+    workers
+        Start a local cluster of this many worker processes, one thread each.
+    scheduler
+        Address of a running scheduler, e.g. ``tcp://10.0.0.5:8786``.
+    timeout
+        Seconds to wait for the scheduler.
+    """
+
+    def __init__(
+        self, *, workers: int | None = None, scheduler: str | None = None, timeout: float = 20
+    ) -> None:
+        if (workers is None) == (scheduler is None):
+            raise InputError("give either a number of local workers or a scheduler address")
+        distributed = import_optional("distributed", "cluster", "Running on a Dask cluster")
+        self._cluster = None
+        if scheduler is not None:
+            try:
+                self.client = distributed.Client(scheduler, timeout=f"{timeout}s")
+            except (OSError, TimeoutError, ValueError) as err:
+                raise InputError(
+                    f"could not reach the Dask scheduler at {scheduler!r} within {timeout:g} s "
+                    f"({err}); start one with 'dask scheduler' and workers with "
+                    f"'dask worker {scheduler} --nthreads 1'"
+                ) from None
+            self._where = f"the Dask scheduler at {scheduler}"
+        else:
+            if isinstance(workers, bool) or not isinstance(workers, int) or workers < 1:
+                raise InputError(f"workers must be a whole number >= 1, got {workers!r}")
+            self._cluster = distributed.LocalCluster(
+                n_workers=workers,
+                threads_per_worker=1,
+                processes=True,
+                dashboard_address=None,
+                silence_logs=logging.ERROR,
+            )
+            self.client = distributed.Client(self._cluster)
+            self._where = f"a local Dask cluster of {workers} worker process(es), 1 thread each"
+        self._as_completed = distributed.as_completed
+
+    def run(self, function, items, shared):
+        """Scatter ``shared`` to every worker once, submit one task per item, yield as they finish."""
+        shared_future = self.client.scatter(shared, broadcast=True)
+        futures = [
+            self.client.submit(_one_thread_task, function, item, shared_future, pure=False)
+            for item in items
+        ]
+        index = {future.key: i for i, future in enumerate(futures)}
+        try:
+            for future in self._as_completed(futures):
+                yield index[future.key], future.result()
+        finally:
+            self.client.cancel(futures)
+
+    def describe(self) -> str:
+        """Where the tasks run."""
+        n = len(self.client.scheduler_info().get("workers", {}))
+        return f"{self._where} ({n} worker(s) connected)"
+
+    def close(self) -> None:
+        """Close the client, and the local cluster if this back end started it."""
+        self.client.close()
+        if self._cluster is not None:
+            self._cluster.close()
+
+
+def make_backend(*, workers: int | None = None, scheduler: str | None = None) -> Backend:
+    """This process when neither is given; else a :class:`DaskBackend`."""
+    if workers is None and scheduler is None:
+        return LocalBackend()
+    return DaskBackend(workers=workers, scheduler=scheduler)
