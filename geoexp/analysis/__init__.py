@@ -7,7 +7,8 @@ the benefit (diffusion of benefits)? The report of the answer (HTML and
 Markdown) is written by :func:`geoexp.report.write_report`, above this layer.
 """
 
-from geoexp.analysis._run import Analysis, ContrastResult, analyse, save_results
+from geoexp.analysis._result import Analysis, ContrastResult
+from geoexp.analysis._run import analyse, save_results
 from geoexp.analysis._verdict import Verdict
 
 __all__ = ["Analysis", "ContrastResult", "Verdict", "analyse", "save_results"]

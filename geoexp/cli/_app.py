@@ -27,12 +27,15 @@ from geoexp.errors import InputError
 # lists them. Register a new command here (one name in its step); a command not listed is
 # shown last, under "Other commands".
 WORKFLOW = (
-    ("Plan and design", ("sample-region", "draw")),
+    ("Prepare the data", ("sample-region", "baseline")),
+    ("Choose a design", ("sweep",)),
+    ("Plan and design", ("draw",)),
     ("Check the design", ("check",)),
     ("Power of the design", ("power",)),
-    ("Maps and field outputs", ("map", "briefing", "export")),
-    ("Count incidents", ("count", "load-counts")),
-    ("Analyse and report", ("analyse",)),
+    ("Maps and field outputs", ("map", "briefing", "field-list", "export")),
+    ("During the trial: delivery", ("presence", "monitor")),
+    ("Count incidents", ("count", "load-counts", "timeline")),
+    ("Analyse and report", ("analyse", "received", "write-tables")),
     ("The whole job on the sample city", ("demo",)),
 )
 

@@ -15,14 +15,12 @@ column, the baseline a design ranks hot spots by.
 
 from geoexp.outcomes._baseline import BaselineCounts, count_onto_units, write_counted_layer
 from geoexp.outcomes._counts import (
-    MAX_DROPPED_SHARE,
-    REASONS,
-    DropReport,
     OutcomeTable,
     count_incidents,
     load_outcomes,
     save_outcomes,
 )
+from geoexp.outcomes._drops import MAX_DROPPED_SHARE, REASONS, DropReport
 
 __all__ = [
     "BaselineCounts",

@@ -25,7 +25,7 @@ import shapely
 
 from geoexp._atomic import atomic_path
 from geoexp.errors import InputError
-from geoexp.outcomes._counts import _FIELDS, MAX_DROPPED_SHARE, REASONS, DropReport, parse_period
+from geoexp.outcomes._drops import _FIELDS, MAX_DROPPED_SHARE, REASONS, DropReport, parse_period
 from geoexp.outcomes._read import DATE_MISSING, DATE_UNPARSEABLE, read_incidents
 from geoexp.outcomes._snap import id_rank, snap
 from geoexp.units import ROW_ID, UnitSet, read_layer
