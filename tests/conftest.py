@@ -3,6 +3,9 @@
 from __future__ import annotations
 
 import os
+import shlex
+import subprocess
+from pathlib import Path
 
 import matplotlib
 import pytest
@@ -62,21 +65,47 @@ DATABASE_OPT_OUT_VARIABLE = "GEOEXP_SKIP_DATABASE_TESTS"
 def database_url():
     """URL of a PostgreSQL database with PostGIS for the database tests.
 
-    Without one the tests fail with directions, unless the developer opted out
-    with GEOEXP_SKIP_DATABASE_TESTS=1 (then they skip, with that reason shown).
+    Order: the URL in GEOEXP_TEST_DATABASE_URL; else a throwaway cluster started
+    for this session with ``.ci/test-database`` when PostgreSQL and PostGIS are
+    installed (stopped and deleted at the end); else, like the browser tests,
+    the tests skip with the reason outside CI and fail in CI (``CI=true``).
+    GEOEXP_SKIP_DATABASE_TESTS=1 skips them outside CI without trying.
     """
     url = os.environ.get(DATABASE_URL_VARIABLE, "").strip()
     if url:
-        return url
-    if os.environ.get(DATABASE_OPT_OUT_VARIABLE) == "1" and os.environ.get("CI") != "true":
+        yield url
+        return
+    in_ci = os.environ.get("CI") == "true"
+    if os.environ.get(DATABASE_OPT_OUT_VARIABLE) == "1" and not in_ci:
         pytest.skip(f"database tests skipped: {DATABASE_OPT_OUT_VARIABLE}=1 was set")
-    pytest.fail(
-        f"the database tests need PostgreSQL with PostGIS: set {DATABASE_URL_VARIABLE}, e.g. "
-        'start a throwaway cluster with  eval "$(bash .ci/test-database start)"  (Debian '
-        "packages postgresql and postgresql-postgis), or opt out locally with "
-        f"{DATABASE_OPT_OUT_VARIABLE}=1",
-        pytrace=False,
+    script = Path(__file__).resolve().parents[1] / ".ci" / "test-database"
+    started = subprocess.run(
+        ["bash", str(script), "start"], capture_output=True, text=True, check=False
     )
+    values = dict(
+        line.removeprefix("export ").split("=", 1)
+        for line in started.stdout.splitlines()
+        if line.startswith("export ") and "=" in line
+    )
+    values = {k: shlex.split(v)[0] if v else v for k, v in values.items()}
+    if started.returncode == 0 and values.get(DATABASE_URL_VARIABLE):
+        try:
+            yield values[DATABASE_URL_VARIABLE]
+        finally:
+            subprocess.run(
+                ["bash", str(script), "stop", values.get("GEOEXP_TEST_DATABASE_DIR", "")],
+                capture_output=True,
+                check=False,
+            )
+        return
+    reason = (
+        "the database tests need PostgreSQL with PostGIS (Debian packages postgresql and "
+        f"postgresql-postgis) or {DATABASE_URL_VARIABLE}; starting a throwaway cluster "
+        f"failed: {started.stderr.strip()[-300:]}"
+    )
+    if in_ci:
+        pytest.fail(reason, pytrace=False)
+    pytest.skip(reason)
 
 
 @pytest.fixture(scope="session")
