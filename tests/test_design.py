@@ -340,3 +340,38 @@ def test_check_says_when_extreme_weights_make_a_contrast_unreliable(region_path,
     fine = check_design(make(region_path, units, graph), n_draws=300)
     direct = next(line for line in fine.verdict if line.startswith("Direct effect"))
     assert "Not reliably estimable" not in direct
+
+
+def test_balance_leaves_out_identifier_columns(region_path, units, graph):
+    import geoexp.design._check as check_module
+
+    frame = pd.DataFrame(
+        {
+            "segment_id": np.arange(5),  # named like an id
+            "code": np.array([11, 12, 13, 14, 15]),  # whole numbers, one per unit: a code
+            "incidents": np.array([1, 0, 3, 1, 0]),  # repeated counts: a real covariate
+            "rate": np.array([0.5, 0.1, 0.5, 0.2, 0.3]),
+        }
+    )
+    kept = [c for c in frame.columns if not check_module._identifier_like(c, frame[c])]
+    # Counted by hand from the columns above.
+    assert kept == ["incidents", "rate"]
+
+
+def test_chance_imbalance_gives_the_gap_and_the_advice(region_path, units, graph):
+    # Seeds tried in order until a draw lands more than 0.1 from the design's average on the
+    # baseline (with 30 of 120 treated such draws are common); the wording is then checked.
+    found = []
+    for seed in range(1, 30):
+        data = spec_dict(region_path, gap_m=150.0)
+        data["seed"] = seed
+        design = Design.from_spec(DesignSpec.from_dict(data), units=units, graph=graph)
+        check = check_design(design, n_draws=200, assignment=design.draw())
+        found = [line for line in check.verdict if "differs by chance" in line]
+        if found:
+            break
+    assert found, "no seed gave a chance imbalance: the check never reports one"
+    for line in found:
+        assert "[rerandomize]" in line and "never change the seed" in line and "a gap of" in line
+    # The wording never calls a difference "imbalanced" against a threshold it does not pass.
+    assert not any("is imbalanced" in line for line in check.verdict)

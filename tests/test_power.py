@@ -29,7 +29,13 @@ from geoexp.units import UnitSet
 
 
 def toy_design(
-    side: int, spacing: float, *, treated: int, top_k: int | None = None, seed: int = 7
+    side: int,
+    spacing: float,
+    *,
+    treated: int,
+    top_k: int | None = None,
+    seed: int = 7,
+    bands: tuple[float, ...] = (150.0,),
 ) -> Design:
     """Small squares on a grid; with spacing far beyond the bands there are no pairs at all."""
     rng = np.random.default_rng(seed)
@@ -49,7 +55,7 @@ def toy_design(
         "draws": 1000,
         "units": {"path": "toy.gpkg", "id_column": "uid"},
         "assignment": {"method": "complete", "treated": treated},
-        "exposure": {"bands_m": [150.0]},
+        "exposure": {"bands_m": list(bands)},
     }
     if top_k is not None:
         data["eligible"] = {"top_column": "score", "top_k": top_k}
@@ -294,6 +300,20 @@ def test_same_seed_same_result_and_comparison_side_by_side(lattice, isolated):
     # the comparison runs each design exactly as simulate_power does with the same seed
     np.testing.assert_array_equal(table[("grid", "power")].to_numpy(), one.to_frame()["power"])
     assert "would be detected" in str(one)
+
+
+def test_comparison_keeps_bands_of_different_distances_apart(lattice):
+    wide = toy_design(12, 100.0, treated=10, top_k=40, bands=(250.0,))
+    model = NegativeBinomialOutcome("past", 0.5, {"treated": 0.6})
+    table = compare_designs({"150 m": lattice, "250 m": wide}, model, n_sims=20, n_draws=20, rng=4)
+    rows = list(table.index)
+    assert "spillover 0-150 m vs pure control" in rows
+    assert "spillover 0-250 m vs pure control" in rows
+    # a band row holds values only for the design that has that band
+    assert np.isnan(table.loc["spillover 0-150 m vs pure control", ("250 m", "power")])
+    assert np.isnan(table.loc["spillover 0-250 m vs pure control", ("150 m", "power")])
+    # the treated row is the same contrast in both designs
+    assert np.isfinite(table.loc["treated vs pure control", ("250 m", "power")])
 
 
 def test_power_command_on_the_demo_spec(demo_outputs):

@@ -161,9 +161,18 @@ def _balance_columns(design: Design, columns: list[str] | None) -> list[str]:
     if design.spec.rerandomize is not None:
         chosen += [c for c in design.spec.rerandomize.covariates if c not in chosen]
     if not chosen:
-        numeric = frame.drop(columns="geometry").select_dtypes("number").columns
-        chosen = list(numeric[:6])
+        numeric = frame.drop(columns="geometry").select_dtypes("number")
+        chosen = [c for c in numeric.columns if not _identifier_like(c, numeric[c])][:6]
     return chosen
+
+
+def _identifier_like(name: str, values: pd.Series) -> bool:
+    # An identifier or a row number says nothing about balance: a column named like an id,
+    # or whole numbers that are all different (a code per unit).
+    lowered = str(name).lower()
+    if lowered in {"id", "fid", "objectid", "row"} or lowered.endswith(("_id", "id")):
+        return True
+    return pd.api.types.is_integer_dtype(values) and values.is_unique and len(values) > 1
 
 
 def check_design(
@@ -415,9 +424,15 @@ def _verdict(design, probs, expected, positivity, balance) -> list[str]:
         if "drawn" in balance.columns:
             off = balance[(balance["drawn"] - balance["mean_over_draws"]).abs() > BALANCE_THRESHOLD]
             for (cov, contrast), row in off.iterrows():
+                gap = abs(row["drawn"] - row["mean_over_draws"])
                 lines.append(
-                    f"The drawn assignment is imbalanced on {cov} for '{contrast}' "
-                    f"(d = {row['drawn']:+.2f} against {row['mean_over_draws']:+.2f} on average)."
+                    f"The drawn assignment differs by chance from the design's average on {cov} "
+                    f"for '{contrast}': standardized difference d = {row['drawn']:+.2f} against "
+                    f"{row['mean_over_draws']:+.2f} over the design's draws, a gap of {gap:.2f} "
+                    f"(more than the {BALANCE_THRESHOLD} rule of thumb). The randomization tests "
+                    "allow for chance imbalance. To limit it, add [rerandomize] with this column "
+                    "to the design and draw again with a reason; never change the seed to get a "
+                    "nicer draw."
                 )
     lines.append(
         f"Units that can never be treated ({plural(int((~elig).sum()), 'non-eligible unit')}) enter only as "

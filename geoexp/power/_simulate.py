@@ -509,9 +509,10 @@ def compare_designs(
     """Power of several designs for the same outcome model, side by side.
 
     Each design is simulated with :func:`simulate_power` (its own sampler,
-    probabilities and tests). Contrasts are matched by condition code
-    (``treated``, ``spillover_1``, ...); a design without a band shows
-    missing values there.
+    probabilities and tests). Contrasts are matched by what they compare,
+    with the band's distances (``spillover 0-150 m vs pure control``), so the
+    first band of a 0-150 m design and that of a 0-100 m design are different
+    rows; a design without a row shows missing values there.
 
     Parameters
     ----------
@@ -525,7 +526,7 @@ def compare_designs(
     Returns
     -------
     pandas.DataFrame
-        Index: contrast code; columns: (design name, quantity) with quantities
+        Index: the contrast with its distances; columns: (design name, quantity) with quantities
         ``power``, ``mc_error``, ``planted_effect``, ``mean_estimate``, ``n_units``.
     """
     if not designs:
@@ -544,7 +545,10 @@ def compare_designs(
             alternative=alternative,
             rng=root,
         )
-        frames[str(name)] = result.to_frame()[
+        frame = result.to_frame()[
             ["power", "mc_error", "planted_effect", "mean_estimate", "n_units"]
         ]
-    return pd.concat(frames, axis=1)
+        frames[str(name)] = frame.set_axis(
+            pd.Index([c.label for c in result.contrasts], name="contrast"), axis=0
+        )
+    return pd.concat(frames, axis=1, sort=False)
