@@ -32,6 +32,18 @@ def geo_uri(lat: np.ndarray, lon: np.ndarray, decimals: int = DECIMALS) -> list[
     Mayrhofer & Spanring (2010), RFC 5870 "A Uniform Resource Identifier for
     Geographic Locations ('geo' URI)": latitude first, then longitude, in
     decimal degrees. Phones open such a link in their map or navigation app.
+
+    Parameters
+    ----------
+    lat, lon : numpy.ndarray
+        Latitude and longitude of each place in decimal degrees (WGS 84).
+    decimals : int
+        Decimal places kept (5 places of a degree is about 1 m).
+
+    Returns
+    -------
+    list of str
+        One URI per place, in input order.
     """
     return [f"geo:{a:.{decimals}f},{o:.{decimals}f}" for a, o in zip(lat, lon, strict=True)]
 
@@ -93,7 +105,21 @@ def save_field_list(
 
     The GeoJSON is RFC 7946 GeoJSON: points in WGS 84 longitude/latitude with the
     list's columns as properties, which map apps on phones open directly.
-    Both writes are atomic. Returns the written paths.
+    Both writes are atomic.
+
+    Parameters
+    ----------
+    places : geopandas.GeoDataFrame
+        The output of :func:`field_list`.
+    csv : path, optional
+        CSV file to write (UTF-8; the place number first, then the unit id).
+    geojson : path, optional
+        GeoJSON file to write; its layer is named after the file.
+
+    Returns
+    -------
+    list of pathlib.Path
+        The files written, CSV first; empty when neither path is given.
     """
     written = []
     if csv is not None:

@@ -131,6 +131,23 @@ def briefing_figures(
     Map artists carry a ``gid`` (``place``, ``place-number``, ``street-label``,
     ``scale-bar``, ``north-arrow``, ``district-label``), so their drawn extents
     can be checked or the pages drawn elsewhere.
+
+    Parameters
+    ----------
+    trial : TrialFile or path
+        A trial file with a drawn assignment.
+    paper : {"a4", "letter"}
+        Paper size, portrait.
+    districts : sequence of str, optional
+        Only these districts; default every district with treated units.
+    district_polygons : path or GeoDataFrame, optional
+        District polygons to draw as they are; by default approximate outlines
+        around each district's units.
+
+    Yields
+    ------
+    matplotlib.figure.Figure
+        One page of the pack, in page order.
     """
     data = load_trial(trial)
     plan = plan_pages(data, paper, districts)

@@ -147,6 +147,9 @@ def complier_effect(
         the design's randomization test of the ITT.
     level : float
         Confidence level of the interval.
+    dose_label : str
+        Words for one unit of ``dose`` (e.g. ``"minute present"``), used in the
+        result's text: the effect reads as incidents per ``dose_label``.
 
     Returns
     -------

@@ -17,8 +17,28 @@ from geoexp.errors import InputError
 def dose_response_table(minutes, y, condition, *, bins: int = 5) -> pd.DataFrame:
     """Mean outcome per dose group (no presence, then quantile bins of positive minutes).
 
-    Returns one row per condition and dose group: ``places``, ``mean_minutes``
-    and ``mean_outcome``.
+    Parameters
+    ----------
+    minutes : array_like
+        Minutes present per place.
+    y : array_like
+        Outcome per place (e.g. incidents in the post-period), one per place.
+    condition : array_like
+        Exposure condition of each place (compared as text).
+    bins : int
+        Number of quantile bins of the positive minutes (fewer when quantiles
+        coincide); places with no presence form group 0.
+
+    Returns
+    -------
+    pandas.DataFrame
+        One row per condition and dose group: ``condition``, ``group``,
+        ``places`` (count), ``mean_minutes`` and ``mean_outcome``.
+
+    Raises
+    ------
+    geoexp.errors.InputError
+        Inputs of different lengths, or ``bins`` below 1.
     """
     minutes = np.asarray(minutes, dtype=float)
     y = np.asarray(y, dtype=float)
@@ -50,7 +70,25 @@ def dose_response_table(minutes, y, condition, *, bins: int = 5) -> pd.DataFrame
 
 
 def plot_dose_response(table: pd.DataFrame, ax=None, *, outcome_label: str = "incidents per place"):
-    """Mean outcome against mean minutes per dose group, one line per condition; returns the Axes."""
+    """Mean outcome against mean minutes per dose group, one line per condition.
+
+    Descriptive only: places were not randomized to their dose, so the chart
+    does not show a causal effect of presence.
+
+    Parameters
+    ----------
+    table : pandas.DataFrame
+        The output of :func:`dose_response_table`.
+    ax : matplotlib.axes.Axes, optional
+        Axes to draw on; a new 6 x 3.5 inch figure by default.
+    outcome_label : str
+        Label of the vertical axis, with the outcome's units.
+
+    Returns
+    -------
+    matplotlib.axes.Axes
+        The axes drawn on.
+    """
     import matplotlib.pyplot as plt
 
     if ax is None:

@@ -27,7 +27,18 @@ _PIECE_M = 25.0
 
 
 def unit_index(units) -> UnitIndex:
-    """The snapping index of a UnitSet (see :func:`stays_from_pings`)."""
+    """The snapping index of a UnitSet (see :func:`stays_from_pings`).
+
+    Parameters
+    ----------
+    units : geoexp.units.UnitSet
+        The trial's units; ties between units are broken by ascending id.
+
+    Returns
+    -------
+    UnitIndex
+        Index for :func:`snap_points`, in the units' CRS.
+    """
     geometry = units.geometry.to_numpy()
     order = np.argsort(np.asarray(units.ids), kind="stable")
     rank = np.empty(len(order), dtype=np.int64)
@@ -70,12 +81,26 @@ def stays_from_pings(
         The trial's units (e.g. ``TrialFile.open(path).unit_set()``).
     device, time : str
         Columns of the device id and the time (ISO 8601 local clock time).
-    x, y, crs : optional
-        Position columns in a stated CRS; or ``lon``/``lat`` in EPSG:4326.
+    x, y : str, optional
+        Columns of the position's easting and northing in ``crs``.
+    lon, lat : str, optional
+        Columns of the position's longitude and latitude in decimal degrees
+        (WGS 84, EPSG:4326), used instead of ``x``/``y``.
+    crs : optional
+        CRS of ``x``/``y``: anything pyproj accepts.
     tolerance_m : float
         Largest distance in metres between a ping and its unit. The default,
         25 m, covers the usual error of vehicle GPS in streets (5-15 m, more
         between tall buildings) plus half a street's width (common practice).
+    max_gap_s : float
+        Longest time in seconds between two pings of a stay (default 300 s).
+    max_speed_kmh : float
+        Fastest speed in km/h between two pings still counted as at rest
+        (default 8 km/h).
+    min_minutes : float
+        Shortest stay kept, in minutes (default 2 minutes).
+    chunk_rows : int
+        Rows of the file read at a time, which bounds the memory used.
 
     Returns
     -------

@@ -149,7 +149,28 @@ def _condition_order(label: str) -> tuple[int, int]:
 def weekly_delivery(
     assignment: pd.DataFrame, dosage: Dosage, *, planned_minutes: float
 ) -> pd.DataFrame:
-    """Every week of ``dosage``: mean minutes and share at the planned dose per condition."""
+    """Every week of ``dosage``: mean minutes and share at the planned dose per condition.
+
+    Parameters
+    ----------
+    assignment : pandas.DataFrame
+        Indexed by unit id, with a ``condition`` column (``treated``,
+        ``spillover_k``, ``pure_control``), as the trial file's assignment layer.
+    dosage : Dosage
+        Weekly dose (``StayTable.dosage("week")``).
+    planned_minutes : float
+        Minutes of presence per treated place per week the plan asks for.
+
+    Returns
+    -------
+    pandas.DataFrame
+        One row per week and condition, weeks in time order: ``week`` (its
+        Monday), ``condition``, ``mean_minutes`` (minutes present per place
+        per week) and ``at_dose_share`` (share of the condition's places that
+        reached ``planned_minutes``), plus ``places``, ``any_presence_share``
+        and ``mean_visits`` as in :func:`delivery_week`; empty (the first
+        four columns only) when ``dosage`` holds no week.
+    """
     weeks = sorted(dosage.frame["period"].unique())
     frames = []
     for week in weeks:  # a handful of weeks: one pass of vectorised work each
@@ -163,7 +184,21 @@ def weekly_delivery(
 def plot_weekly_delivery(table: pd.DataFrame, planned_minutes: float, ax=None):
     """Weekly chart: mean minutes present per place by condition, the planned dose dashed.
 
-    Returns the matplotlib Axes.
+    Parameters
+    ----------
+    table : pandas.DataFrame
+        The output of :func:`weekly_delivery`: columns ``week``, ``condition``
+        and ``mean_minutes`` (minutes present per place per week).
+    planned_minutes : float
+        Minutes of presence per treated place per week the plan asks for,
+        drawn as a dashed horizontal line.
+    ax : matplotlib.axes.Axes, optional
+        Axes to draw on; a new 7 x 3.5 inch figure by default.
+
+    Returns
+    -------
+    matplotlib.axes.Axes
+        The axes drawn on.
     """
     import matplotlib.pyplot as plt
 

@@ -24,6 +24,29 @@ def received_inputs(
     """The design, assignment, outcome per unit, minutes present in the post-period and that period.
 
     The trial is verified first (a changed design or outcome table is refused).
+
+    Parameters
+    ----------
+    trial : TrialFile or path
+        A trial file with a drawn assignment and stored outcomes.
+    stays : StayTable
+        Stays at the trial's units (from a visit log or GPS pings).
+    outcome : {"change", "post"}
+        The outcome per unit: post-period incidents less pre-period incidents
+        (``"change"``), or post-period incidents alone (``"post"``).
+
+    Returns
+    -------
+    design : geoexp.design.Design
+        The trial's design.
+    assignment : geoexp.design.Assignment
+        The drawn assignment.
+    y : numpy.ndarray
+        The outcome per unit in the design's unit order (incidents).
+    minutes : numpy.ndarray
+        Minutes present per unit over the post-period (0 where no stay).
+    period : tuple of str
+        First and last day of the post-period (ISO dates).
     """
     tf = trial if isinstance(trial, TrialFile) else TrialFile.open(trial)
     verify_trial(tf)

@@ -124,6 +124,7 @@ def snap_points(index: UnitIndex, x: np.ndarray, y: np.ndarray, tolerance: float
     Parameters
     ----------
     index : UnitIndex
+        The units' snapping index, built by :func:`unit_index`.
     x, y : numpy.ndarray
         Coordinates in the units' CRS; points with a NaN coordinate are not snapped.
     tolerance : float

@@ -65,7 +65,34 @@ class StayRules:
 
 
 def rest_steps(dev, t, x, y, unit, rules: StayRules, metres_per_unit: float) -> np.ndarray:
-    """For pings sorted by device then time: True for each step (i, i+1) at rest at a unit."""
+    """For pings sorted by device then time: True for each step (i, i+1) at rest at a unit.
+
+    A step is at rest when both pings are of the same device, at most
+    ``rules.max_gap_s`` seconds apart, snapped to the same unit, and the
+    device moved no faster than ``rules.max_speed_kmh`` between them (two
+    pings at the same time are at rest only if the position did not change).
+
+    Parameters
+    ----------
+    dev : numpy.ndarray
+        Device code of each ping (any type comparable with ``==``).
+    t : numpy.ndarray
+        Time of each ping in seconds (integer or float).
+    x, y : numpy.ndarray
+        Position of each ping in the units' CRS.
+    unit : numpy.ndarray
+        Position of the unit each ping was snapped to, -1 where none.
+    rules : StayRules
+        The largest gap and speed of a step at rest.
+    metres_per_unit : float
+        Metres in one unit of the CRS, to turn ``x``/``y`` distances into metres.
+
+    Returns
+    -------
+    numpy.ndarray
+        Boolean, one entry fewer than the pings: entry i for the step from
+        ping i to ping i + 1.
+    """
     same = dev[1:] == dev[:-1]
     dt = (t[1:] - t[:-1]).astype(np.float64)
     dist = np.hypot(x[1:] - x[:-1], y[1:] - y[:-1]) * metres_per_unit
@@ -76,7 +103,21 @@ def rest_steps(dev, t, x, y, unit, rules: StayRules, metres_per_unit: float) -> 
 
 
 def stay_bounds(rest: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """First and last ping of each maximal run of rest steps."""
+    """First and last ping of each maximal run of rest steps.
+
+    Parameters
+    ----------
+    rest : numpy.ndarray
+        Boolean per step between consecutive pings, as :func:`rest_steps` gives.
+
+    Returns
+    -------
+    first : numpy.ndarray
+        int64 index of the first ping of each run.
+    last : numpy.ndarray
+        int64 index of the last ping of each run (a run of steps i .. j-1
+        spans pings i .. j).
+    """
     edge = np.diff(np.r_[0, rest.astype(np.int8), 0])
     return np.flatnonzero(edge == 1), np.flatnonzero(edge == -1)
 

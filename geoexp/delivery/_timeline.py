@@ -55,6 +55,26 @@ def incidents_by_period(
     is an error naming the rows. Incidents with no position or no unit within
     the tolerance are left out and their number is kept in ``attrs["dropped"]``.
 
+    Parameters
+    ----------
+    units : geoexp.units.UnitSet
+        The trial's units.
+    incidents : path or DataFrame
+        CSV file or frame, one row per incident.
+    date_column : str
+        Column of the incident's date (ISO 8601).
+    x, y : str, optional
+        Columns of the incident's easting and northing in ``crs``.
+    lon, lat : str, optional
+        Columns of the incident's longitude and latitude in decimal degrees
+        (WGS 84, EPSG:4326), used instead of ``x``/``y``.
+    crs : optional
+        CRS of ``x``/``y``: anything pyproj accepts.
+    freq : {"week", "month"}
+        Period: ISO week starting on Monday, or calendar month.
+    tolerance_m : float
+        Largest distance in metres from an incident to its unit.
+
     Returns
     -------
     pandas.DataFrame
@@ -116,6 +136,20 @@ def condition_series(counts: pd.DataFrame, assignment: pd.DataFrame) -> pd.DataF
 
     Every unit of ``assignment`` counts, zeros included; periods run from the
     first to the last period seen in ``counts`` without gaps.
+
+    Parameters
+    ----------
+    counts : pandas.DataFrame
+        The output of :func:`incidents_by_period` (its ``attrs["freq"]`` gives
+        the period).
+    assignment : pandas.DataFrame
+        Indexed by unit id, with a ``condition`` column.
+
+    Returns
+    -------
+    pandas.DataFrame
+        Indexed by ``period`` (first day), one column per condition: mean
+        incidents per unit per period.
     """
     if "condition" not in assignment.columns:
         raise InputError("the assignment has no 'condition' column")
@@ -167,6 +201,26 @@ def pre_trend(
     an intercept; the usual OLS standard error and a two-sided t test with
     ``n - 2`` degrees of freedom are given (serial correlation would make the
     standard error too small: read the p-value as a warning, not a proof).
+
+    Parameters
+    ----------
+    series : pandas.DataFrame
+        The output of :func:`condition_series` (periods x conditions).
+    trial_start : str
+        First day of the trial (ISO date); the periods before it are used.
+    first, second : str
+        The two conditions compared.
+
+    Returns
+    -------
+    PreTrend
+        Slope of the difference in incidents per unit per period, per period,
+        with its standard error and p-value.
+
+    Raises
+    ------
+    geoexp.errors.InputError
+        A condition missing from ``series``, or fewer than 3 pre-trial periods.
     """
     from scipy import stats
 
@@ -184,7 +238,22 @@ def pre_trend(
 
 
 def plot_over_time(series: pd.DataFrame, window: tuple[str, str], ax=None):
-    """Incidents per unit by condition over time, the trial window shaded; returns the Axes."""
+    """Incidents per unit by condition over time, the trial window shaded.
+
+    Parameters
+    ----------
+    series : pandas.DataFrame
+        The output of :func:`condition_series` (periods x conditions).
+    window : tuple of str
+        First and last day of the trial (ISO dates), shaded grey.
+    ax : matplotlib.axes.Axes, optional
+        Axes to draw on; a new 7 x 3.5 inch figure by default.
+
+    Returns
+    -------
+    matplotlib.axes.Axes
+        The axes drawn on.
+    """
     import matplotlib.pyplot as plt
 
     if ax is None:

@@ -64,6 +64,14 @@ def read_visits(
         Columns of the visit's start and end (local clock times).
     unit_column : str, optional
         Column of unit ids; otherwise give x/y (and crs), lon/lat, or a point layer.
+    x, y : str, optional
+        Columns of the logged position's easting and northing in ``crs``.
+    lon, lat : str, optional
+        Columns of the logged position's longitude and latitude in decimal
+        degrees (WGS 84, EPSG:4326).
+    crs : optional
+        CRS of ``x``/``y``: anything pyproj accepts (``"EPSG:2263"``, an EPSG
+        code, WKT, a ``pyproj.CRS``).
     team_column, activity_column : str, optional
         Columns of the team or officer and the activity type.
     tolerance_m : float

@@ -96,6 +96,8 @@ def unit_flow(
     Parameters
     ----------
     design : Design
+        The design whose eligibility steps (rule, exclusion zones, hot-spot
+        cut) are recomputed from its spec and units.
     assignment : Assignment, optional
         The drawn assignment, for the randomized box (treated and not treated).
     n_analysed : int, optional

@@ -52,6 +52,15 @@ def network_check(design: Design) -> NetworkDiagnostics | None:
 def refuse_sparse_network(design: Design, diagnostics: NetworkDiagnostics | None) -> None:
     """Refuse to draw over an implausibly sparse along-street graph, unless the spec accepts it.
 
+    Parameters
+    ----------
+    design : Design
+        The design about to be drawn; its spec says whether a sparse network
+        is accepted.
+    diagnostics : NetworkDiagnostics or None
+        The along-street graph's diagnostics; None (no along-street distances)
+        passes.
+
     Raises
     ------
     geoexp.errors.DesignError

@@ -57,14 +57,46 @@ def _is_real(value: Any) -> bool:
 
 
 def text(value: Any, where: str) -> str:
-    """Non-empty text."""
+    """Non-empty text.
+
+    Parameters
+    ----------
+    value : object
+        The value read from the spec.
+    where : str
+        The value's place in the spec (e.g. ``"[design] name"``), for the message.
+
+    Returns
+    -------
+    str
+        ``value`` unchanged.
+
+    Raises
+    ------
+    geoexp.errors.DesignError
+        ``value`` is not text or is blank.
+    """
     if not isinstance(value, str) or not value.strip():
         raise _fail(where, "non-empty text", value)
     return value
 
 
 def whole(low: int, high: int, what: str = "a whole number") -> Check:
-    """An integer in ``[low, high]`` (an integral float is accepted)."""
+    """An integer in ``[low, high]`` (an integral float is accepted).
+
+    Parameters
+    ----------
+    low, high : int
+        Smallest and largest value allowed (both included).
+    what : str
+        Words for the value in the error message.
+
+    Returns
+    -------
+    Check
+        A check ``(value, where) -> int`` that returns the value as an int
+        and raises :class:`geoexp.errors.DesignError` otherwise.
+    """
 
     def check(value: Any, where: str) -> int:
         expected = f"{what} from {low:,} to {high:,}"
@@ -81,7 +113,23 @@ def whole(low: int, high: int, what: str = "a whole number") -> Check:
 
 
 def real(low: float, high: float, *, low_open: bool, high_open: bool, what: str) -> Check:
-    """A finite number in an interval, kept as written."""
+    """A finite number in an interval, kept as written.
+
+    Parameters
+    ----------
+    low, high : float
+        Ends of the interval.
+    low_open, high_open : bool
+        Whether each end is left out of the interval.
+    what : str
+        Words for the value in the error message.
+
+    Returns
+    -------
+    Check
+        A check ``(value, where) -> value`` that returns the number unchanged
+        and raises :class:`geoexp.errors.DesignError` otherwise.
+    """
     interval = f"{'(' if low_open else '['}{low:g}, {high:g}{')' if high_open else ']'}"
 
     def check(value: Any, where: str) -> Any:
@@ -104,7 +152,19 @@ def flag(value: Any, where: str) -> bool:
 
 
 def choice(*options: str) -> Check:
-    """One of the given words."""
+    """One of the given words.
+
+    Parameters
+    ----------
+    *options : str
+        The words allowed.
+
+    Returns
+    -------
+    Check
+        A check ``(value, where) -> str`` that returns the word and raises
+        :class:`geoexp.errors.DesignError` naming the options otherwise.
+    """
 
     def check(value: Any, where: str) -> str:
         if not isinstance(value, str) or value not in options:
@@ -115,7 +175,25 @@ def choice(*options: str) -> Check:
 
 
 def listing(element: Check, what: str, *, single: bool = False, non_empty: bool = False) -> Check:
-    """A list whose elements pass ``element``; ``single`` also accepts one bare element."""
+    """A list whose elements pass ``element``; ``single`` also accepts one bare element.
+
+    Parameters
+    ----------
+    element : Check
+        The check of each element; its messages name the element as ``where[i]``.
+    what : str
+        Words for the elements in the error message.
+    single : bool
+        Accept one bare element as a list of one.
+    non_empty : bool
+        Refuse an empty list.
+
+    Returns
+    -------
+    Check
+        A check ``(value, where) -> list`` that returns the checked elements
+        and raises :class:`geoexp.errors.DesignError` otherwise.
+    """
 
     def check(value: Any, where: str) -> list:
         if single and not isinstance(value, list):

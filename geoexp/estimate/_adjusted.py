@@ -16,7 +16,7 @@ def adjusted_contrast(
     l: int,
     units: np.ndarray,
 ) -> float:
-    """tau = mu(k) - mu(l), each side's weighted mean adjusted to the units' mean covariate.
+    """Covariate-adjusted contrast tau = mu(k) - mu(l), both sides' means at the mean covariate.
 
     Lin (2013) adjusts a randomized comparison by regressing the outcome on the
     treatment, the centred covariate and their interaction; with unequal
@@ -26,7 +26,27 @@ def adjusted_contrast(
     the mean covariate of all units of the estimand:
     mu(c) = ybar_w(c) + b_c (xbar - xbar_w(c)), with b_c the weighted slope.
     Here x is the unit's pre-period count and y its post-period count.
-    Returns NaN when a side has no unit or no spread in x.
+
+    Parameters
+    ----------
+    y : numpy.ndarray
+        Outcome per unit (post-period incidents).
+    x : numpy.ndarray
+        Covariate per unit (pre-period incidents), one per unit.
+    observed : numpy.ndarray
+        Observed exposure condition code of every unit.
+    probabilities : numpy.ndarray
+        (n_units, n_conditions) exposure probabilities of the design.
+    k, l : int
+        Condition codes of the exposure and the reference side.
+    units : numpy.ndarray
+        Boolean mask of the estimand's units.
+
+    Returns
+    -------
+    float
+        The adjusted contrast in the outcome's units (incidents per unit);
+        NaN when a side has no unit.
     """
     y = np.asarray(y, dtype=float)
     x = np.asarray(x, dtype=float)

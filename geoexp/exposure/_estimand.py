@@ -36,6 +36,19 @@ def kish_ess(weights: np.ndarray, axis: int | None = None) -> np.ndarray | float
 
     Equals the number of units when all weights are equal and falls towards 1
     as one weight dominates. NaN when every weight is zero.
+
+    Parameters
+    ----------
+    weights : numpy.ndarray
+        Non-negative weights.
+    axis : int, optional
+        Axis to sum over; default all entries.
+
+    Returns
+    -------
+    float or numpy.ndarray
+        A float when the sums are over every entry, else an array with
+        ``axis`` removed.
     """
     w = np.asarray(weights, dtype=float)
     with np.errstate(invalid="ignore", divide="ignore"):
@@ -142,6 +155,35 @@ def contrast_units(
     (the estimand changes, which the result says in words; Crump, Hotz, Imbens
     & Mitnik 2009 trim on the propensity score for the same reason).
     ``within`` restricts the group further (e.g. focal units chosen at random).
+
+    Parameters
+    ----------
+    probabilities : numpy.ndarray
+        (n_units, n_conditions) exposure probabilities of the design.
+    eligible : numpy.ndarray
+        Boolean mask of the units that could be treated.
+    k, l : int
+        Condition codes of the exposure and the reference condition.
+    labels : tuple of str
+        Condition labels, indexed by code.
+    group : {"eligible", "never-eligible", "all"}
+        The units the contrast is about.
+    floor : float
+        Smallest probability of either condition a unit needs to be in the
+        estimand, in [0, 0.5); 0 keeps every unit with positive probabilities.
+    within : numpy.ndarray, optional
+        Boolean mask restricting the group further.
+
+    Returns
+    -------
+    Estimand
+        The units of the estimand, how many were trimmed by the floor, and
+        the expected Kish effective sample size of each side.
+
+    Raises
+    ------
+    geoexp.errors.InputError
+        A floor outside [0, 0.5) or an unknown group.
     """
     if not 0 <= floor < 0.5:
         raise InputError(f"the positivity floor must lie in [0, 0.5), got {floor!r}")

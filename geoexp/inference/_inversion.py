@@ -165,6 +165,43 @@ def constant_effect_test(
     inversion). The interval is the set of tau_k the test does not reject at
     1 - level; ``test`` is the same test at tau_k = 0 from the same draws.
     With ``interval=False`` only the test is computed (the interval is NaN).
+
+    Parameters
+    ----------
+    design : geoexp.design.Design
+        The trial's design; its sampler gives the randomization distribution.
+    observed : numpy.ndarray
+        Observed exposure condition code of every unit.
+    y : numpy.ndarray
+        Outcome per unit (e.g. incidents in the post-period, or the change).
+    probabilities : numpy.ndarray
+        (n_units, n_conditions) exposure probabilities of the design.
+    contrast : ContrastSpec
+        Condition codes ``k`` and ``l`` and the mask of the units compared.
+    effects : numpy.ndarray
+        Constant additive effect of every condition against the reference, one
+        per condition code (in the outcome's units), held fixed for the
+        conditions other than ``k``.
+    n_draws : int
+        Draws of the design for the test and the interval.
+    rng : None, int, SeedSequence or Generator
+        Default: the design's stream for test inversion of condition ``k``.
+    level : float
+        Confidence level of the interval.
+    center : float, optional
+        Where the search for the interval's ends starts; default the estimate.
+    scale : float
+        Typical size of the effect (e.g. the estimate's standard error): the
+        search starts 8 times this either side of ``center``.
+    null : str, optional
+        Words for the null hypothesis in the result; a default names condition ``k``.
+    interval : bool
+        Compute the interval as well as the test.
+
+    Returns
+    -------
+    InvertedTest
+        The estimate, the test of no effect and the interval.
     """
     y = np.asarray(y, dtype=float)
     k, l = contrast.k, contrast.l
@@ -306,6 +343,39 @@ def rate_ratio_test(
     against its own past, which removes most of the between-unit variation of
     hot spots and keeps the test exact (the baseline is fixed under every
     assignment). Its estimand is the same rho_k.
+
+    Parameters
+    ----------
+    design : geoexp.design.Design
+        The trial's design; its sampler gives the randomization distribution.
+    observed : numpy.ndarray
+        Observed exposure condition code of every unit.
+    y : numpy.ndarray
+        Outcome per unit: post-period counts (non-negative).
+    probabilities : numpy.ndarray
+        (n_units, n_conditions) exposure probabilities of the design.
+    contrast : ContrastSpec
+        Condition codes ``k`` and ``l`` and the mask of the units compared.
+    ratios : numpy.ndarray
+        Rate ratio of every condition against the reference, one per
+        condition code, held fixed for the conditions other than ``k``.
+    n_draws : int
+        Draws of the design for the test and the interval.
+    rng : None, int, SeedSequence or Generator
+        Default: the design's rate-ratio stream of condition ``k``.
+    level : float
+        Confidence level of the interval.
+    null : str, optional
+        Words for the null hypothesis in the result; a default names condition ``k``.
+    interval : bool
+        Compute the interval as well as the test.
+    baseline : numpy.ndarray, optional
+        Pre-period count of each unit, to compare each side against its own past.
+
+    Returns
+    -------
+    InvertedTest
+        The rate ratio, the test of a ratio of 1 and the interval.
     """
     y = np.asarray(y, dtype=float)
     if (y < 0).any():

@@ -33,6 +33,27 @@ def contrast_statistic(
     (:mod:`geoexp.inference`), their inversion into intervals and every
     simulated trial of :mod:`geoexp.power`, so power is the power of the very
     test the analysis runs.
+
+    Parameters
+    ----------
+    num_k, den_k : numpy.ndarray
+        Weighted sums of the exposure side: sum of y_i / pi_i(k) and of 1 / pi_i(k).
+    num_l, den_l : numpy.ndarray
+        The same sums of the reference side.
+    estimator : {"hajek", "horvitz-thompson"}
+        Ratio (Hajek) or plain (Horvitz-Thompson) means.
+    n_units : int, optional
+        Number of units in the estimand; needed for Horvitz-Thompson.
+
+    Returns
+    -------
+    numpy.ndarray
+        The contrast, in the outcome's units, with the sums' common shape.
+
+    Raises
+    ------
+    geoexp.errors.InputError
+        An unknown estimator.
     """
     with np.errstate(invalid="ignore", divide="ignore"):
         if estimator == "hajek":

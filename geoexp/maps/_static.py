@@ -317,7 +317,20 @@ def north_arrow(
     anchor: tuple[float, float] = (0.95, 0.86),
     label: str = "N",
 ) -> None:
-    """Draw a north arrow pointing ``angle`` degrees counter-clockwise from the map's top."""
+    """Draw a north arrow pointing ``angle`` degrees counter-clockwise from the map's top.
+
+    Parameters
+    ----------
+    ax : matplotlib.axes.Axes
+        The map's axes.
+    angle : float
+        Direction of true north in degrees counter-clockwise from the top of
+        the map (see :func:`true_north_angle`).
+    anchor : tuple of float
+        Centre of the arrow in axes fractions (0 to 1 from the lower left).
+    label : str
+        Text at the arrow's tip.
+    """
     fig = ax.figure
     bbox = ax.get_position()
     width_in = bbox.width * fig.get_figwidth()

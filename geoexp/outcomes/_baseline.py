@@ -249,6 +249,7 @@ def write_counted_layer(
     units : UnitSet
         The units the counts were made on, read from ``units.source``.
     counts : BaselineCounts
+        The counts per unit; their column name becomes the new column.
     path : path
         ``.gpkg`` or ``.csv``.
     source_layer : str, optional

@@ -35,7 +35,18 @@ _TABLE_NAME = re.compile(rf"^\s*{_IDENTIFIER}(?:\s*\.\s*{_IDENTIFIER})?\s*$")
 
 
 def is_database_url(value: object) -> bool:
-    """True when ``value`` is text starting with ``postgresql://`` or ``postgres://``."""
+    """True when ``value`` is text starting with ``postgresql://`` or ``postgres://``.
+
+    Parameters
+    ----------
+    value : object
+        Anything given as a source; only text can be a URL.
+
+    Returns
+    -------
+    bool
+        Whether ``value`` is a PostgreSQL URL (the scheme in any case).
+    """
     if not isinstance(value, str):
         return False
     head = value.strip().split(":", 1)[0].lower()
@@ -43,7 +54,18 @@ def is_database_url(value: object) -> bool:
 
 
 def mask_url(url: str) -> str:
-    """The URL with any password (in the user part or as ``password=``) replaced by ``***``."""
+    """The URL with any password (in the user part or as ``password=``) replaced by ``***``.
+
+    Parameters
+    ----------
+    url : str
+        A database URL.
+
+    Returns
+    -------
+    str
+        The URL safe to print in messages and logs.
+    """
     parts = urlsplit(url)
     netloc = parts.netloc
     if "@" in netloc:
@@ -66,7 +88,18 @@ def _join(scheme: str, netloc: str, path: str, query: str) -> str:
 
 
 def has_password(url: str) -> bool:
-    """True when the URL itself carries a password."""
+    """True when the URL itself carries a password.
+
+    Parameters
+    ----------
+    url : str
+        A database URL.
+
+    Returns
+    -------
+    bool
+        True for a password in the user part or a ``password=`` parameter.
+    """
     parts = urlsplit(url)
     if parts.password:
         return True
@@ -183,6 +216,23 @@ def connect(url: str):
 
     The URL goes to libpq as it is, so libpq's environment variables, password
     file and service file work as they do for ``psql``.
+
+    Parameters
+    ----------
+    url : str
+        A ``postgresql://`` URL naming the database only (no table or layer
+        parameters).
+
+    Returns
+    -------
+    sqlalchemy.engine.Engine
+        Engine using psycopg.
+
+    Raises
+    ------
+    geoexp.errors.InputError
+        Not a ``postgresql://`` URL, or it carries ``table=``, ``query=`` or
+        ``geometry=`` (the URL names only the database here).
     """
     sqlalchemy = import_optional("sqlalchemy", "postgis", "Reading from or writing to PostGIS")
     psycopg = import_optional("psycopg", "postgis", "Reading from or writing to PostGIS")

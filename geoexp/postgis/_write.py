@@ -23,7 +23,26 @@ _PLAIN_NAME = re.compile(r"^[a-z_][a-z0-9_]{0,62}$")
 
 
 def check_name(name: str, what: str) -> str:
-    """Refuse names that plain SQL would need to quote (lower case letters, digits, ``_``)."""
+    """Refuse names that plain SQL would need to quote (lower case letters, digits, ``_``).
+
+    Parameters
+    ----------
+    name : str
+        A schema, table or column name.
+    what : str
+        Words for the name in the error message (e.g. ``"table"``).
+
+    Returns
+    -------
+    str
+        ``name`` unchanged.
+
+    Raises
+    ------
+    geoexp.errors.InputError
+        Not a name of lower-case letters, digits and ``_`` starting with a
+        letter or ``_``, at most 63 characters.
+    """
     if not isinstance(name, str) or not _PLAIN_NAME.match(name):
         raise InputError(
             f"{what} {name!r} is not a plain SQL name: use lower-case letters, digits and _, "

@@ -193,5 +193,18 @@ def power_curve(
 
 
 def underpowered(power: float, target: float = TARGET_POWER) -> bool:
-    """True when a simulated power falls below ``target``."""
+    """True when a simulated power falls below ``target``.
+
+    Parameters
+    ----------
+    power : float
+        Simulated power (share of trials that reject); NaN is not underpowered.
+    target : float
+        Power wanted (default 0.8).
+
+    Returns
+    -------
+    bool
+        Whether ``power`` is finite and below ``target``.
+    """
     return bool(np.isfinite(power) and power < target)

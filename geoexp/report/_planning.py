@@ -36,7 +36,18 @@ def _new_ax(ax, size=(6.4, 3.6)):
 def probability_plot(check: DesignCheck, ax=None):
     """Histogram of P(treated) across the eligible units, with its range and the share m/n.
 
-    Returns the matplotlib Axes.
+    Parameters
+    ----------
+    check : DesignCheck
+        The design check; its probabilities of being treated are plotted for
+        the units that can be treated.
+    ax : matplotlib.axes.Axes, optional
+        Axes to draw on; a new figure by default.
+
+    Returns
+    -------
+    matplotlib.axes.Axes
+        The axes drawn on.
     """
     ax = _new_ax(ax)
     p = check.probabilities.probabilities[:, 0]
@@ -61,7 +72,18 @@ def probability_plot(check: DesignCheck, ax=None):
 def balance_plot(check: DesignCheck, ax=None):
     """Standardized differences across draws per covariate and contrast, the drawn value marked.
 
-    Returns the matplotlib Axes.
+    Parameters
+    ----------
+    check : DesignCheck
+        The design check with its balance table and the standardized
+        differences of every draw (in covariate standard deviations).
+    ax : matplotlib.axes.Axes, optional
+        Axes to draw on; a new figure by default.
+
+    Returns
+    -------
+    matplotlib.axes.Axes
+        The axes drawn on.
     """
     ax = _new_ax(ax, (6.4, 3.8))
     rows = []
@@ -94,7 +116,17 @@ def balance_plot(check: DesignCheck, ax=None):
 def flow_plot(flow: UnitFlow, ax=None):
     """The flow of units as boxes: all, each eligibility step, randomized, analysed.
 
-    Returns the matplotlib Axes.
+    Parameters
+    ----------
+    flow : UnitFlow
+        The counts of units at each step (:func:`geoexp.design.unit_flow`).
+    ax : matplotlib.axes.Axes, optional
+        Axes to draw on; a new figure by default.
+
+    Returns
+    -------
+    matplotlib.axes.Axes
+        The axes drawn on.
     """
     n = len(flow.steps)
     ax = _new_ax(ax, (6.4, 1.4 * n + 0.4))
@@ -142,7 +174,19 @@ def flow_plot(flow: UnitFlow, ax=None):
 def power_curve_plot(curve: PowerCurve, ax=None):
     """Power against the planted rate ratio, one line per number treated, target power marked.
 
-    Returns the matplotlib Axes.
+    Bars are 95% Monte Carlo intervals (1.96 Monte Carlo standard errors).
+
+    Parameters
+    ----------
+    curve : PowerCurve
+        Simulated power per planted rate ratio and number of treated units.
+    ax : matplotlib.axes.Axes, optional
+        Axes to draw on; a new figure by default.
+
+    Returns
+    -------
+    matplotlib.axes.Axes
+        The axes drawn on.
     """
     from geoexp.power import TARGET_POWER
 
@@ -194,6 +238,22 @@ def save_check_figures(
     ``<prefix>_probability.png`` (P(treated) across eligible units),
     ``<prefix>_balance.png`` (balance across draws, the drawn value marked) and
     ``<prefix>_flow.png`` (units through the design).
+
+    Parameters
+    ----------
+    check : DesignCheck
+        The design check to draw.
+    flow : UnitFlow
+        The counts of units at each step of the design.
+    folder : path
+        Folder to write to (created when missing).
+    prefix : str
+        Start of every file name.
+
+    Returns
+    -------
+    list of pathlib.Path
+        The probability, balance and flow figures, in that order.
     """
     folder = Path(folder)
     folder.mkdir(parents=True, exist_ok=True)
@@ -211,7 +271,20 @@ def save_check_figures(
 
 
 def save_power_figure(curve: PowerCurve, path: str | Path) -> Path:
-    """Write the power curve as a PNG file; return its path."""
+    """Write the power curve as a PNG file; return its path.
+
+    Parameters
+    ----------
+    curve : PowerCurve
+        Simulated power per planted rate ratio and number of treated units.
+    path : path
+        PNG file to write (its folder is created when missing).
+
+    Returns
+    -------
+    pathlib.Path
+        The written file.
+    """
     path = Path(path)
     path.parent.mkdir(parents=True, exist_ok=True)
     return _save(lambda ax: power_curve_plot(curve, ax), (6.4, 3.8), path)

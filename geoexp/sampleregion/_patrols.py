@@ -46,6 +46,8 @@ def simulate_pings(
         Number of pings wanted (the result has exactly this many rows).
     n_devices : int
         Devices, each reporting every ``interval_s`` seconds (with a little jitter).
+    interval_s : float
+        Seconds between two pings of a device.
     mean_stop_pings : float
         Mean number of pings of a stop (geometric).
     walk_m : float
@@ -62,6 +64,7 @@ def simulate_pings(
     start : str
         Time of the first ping (local clock).
     rng : None, int, SeedSequence or Generator
+        Seed or generator of the simulation (normalised by ``geoexp._rng``).
 
     Returns
     -------

@@ -30,7 +30,19 @@ def _canonical(key: str, value: Any) -> Any:
 
 
 def candidate_key(values: dict[str, Any]) -> str:
-    """Canonical JSON of a candidate's grid values (sorted keys): what its seed is derived from."""
+    """Canonical JSON of a candidate's grid values (sorted keys): what its seed is derived from.
+
+    Parameters
+    ----------
+    values : dict
+        The candidate's grid values by parameter name.
+
+    Returns
+    -------
+    str
+        Compact JSON with sorted keys, the same for equal values whatever
+        their order.
+    """
     canonical = {str(k): _canonical(str(k), v) for k, v in values.items()}
     return json.dumps(canonical, sort_keys=True, separators=(",", ":"))
 

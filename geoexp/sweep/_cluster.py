@@ -57,8 +57,24 @@ class LocalBackend:
 
 
 def apply_to_shared(item: tuple, shared: Any) -> Any:
-    """A task for any library function: ``item`` is (function, args, kwargs), called as
-    ``function(shared, *args, **kwargs)``, e.g. a randomization test of a design sent once."""
+    """A task for any library function, called on the data sent once to every worker.
+
+    ``item`` is (function, args, kwargs), called as
+    ``function(shared, *args, **kwargs)``, e.g. a randomization test of a
+    design sent once.
+
+    Parameters
+    ----------
+    item : tuple
+        ``(function, args, kwargs)`` of the task.
+    shared : object
+        The data every task shares (e.g. a design).
+
+    Returns
+    -------
+    object
+        What ``function`` returns.
+    """
     function, args, kwargs = item
     return function(shared, *args, **kwargs)
 
@@ -140,7 +156,20 @@ class DaskBackend:
 
 
 def make_backend(*, workers: int | None = None, scheduler: str | None = None) -> Backend:
-    """This process when neither is given; else a :class:`DaskBackend`."""
+    """The back end that runs a sweep's tasks: this process, or a Dask cluster.
+
+    Parameters
+    ----------
+    workers : int, optional
+        Start a local Dask cluster of this many worker processes.
+    scheduler : str, optional
+        Address of a running Dask scheduler, e.g. ``tcp://10.0.0.5:8786``.
+
+    Returns
+    -------
+    Backend
+        A :class:`LocalBackend` when neither is given; else a :class:`DaskBackend`.
+    """
     if workers is None and scheduler is None:
         return LocalBackend()
     return DaskBackend(workers=workers, scheduler=scheduler)

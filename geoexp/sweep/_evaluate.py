@@ -62,13 +62,40 @@ def minimum_detectable_effect(
     MDE = (z_{1 - alpha/2} + z_{power}) * SE for a two-sided test at level alpha
     (z_{1 - alpha} one-sided), the normal approximation of Bloom (1995,
     "Minimum detectable effects", Evaluation Review 19(5)).
+
+    Parameters
+    ----------
+    std_error : float
+        Standard error of the estimate, in the effect's units.
+    alpha : float
+        Level of the test.
+    power : float
+        Probability of detecting the effect wanted.
+    alternative : str
+        ``"two-sided"``; any other value is one-sided.
+
+    Returns
+    -------
+    float
+        The minimum detectable effect, in the units of ``std_error``.
     """
     tail = alpha / 2 if alternative == "two-sided" else alpha
     return float((norm.ppf(1 - tail) + norm.ppf(power)) * std_error)
 
 
 def chunk_sizes(simulation: Simulation) -> list[int]:
-    """Simulated trials per chunk: all at once, or ``chunk_sims`` at a time (the last smaller)."""
+    """Simulated trials per chunk: all at once, or ``chunk_sims`` at a time (the last smaller).
+
+    Parameters
+    ----------
+    simulation : Simulation
+        The number of simulated trials and the chunk size.
+
+    Returns
+    -------
+    list of int
+        Simulated trials of each chunk, summing to ``simulation.sims``.
+    """
     if simulation.chunk_sims is None or simulation.chunk_sims >= simulation.sims:
         return [simulation.sims]
     full, rest = divmod(simulation.sims, simulation.chunk_sims)
@@ -119,6 +146,22 @@ def pooled_mean_sd(counts, means, sds) -> tuple[float, float]:
 
     The sum of squares about the pooled mean is the within-group sums
     (n_i - 1) s_i^2 plus the between-group sums n_i (m_i - m)^2.
+
+    Parameters
+    ----------
+    counts : array_like
+        Number of values in each group; empty groups are left out.
+    means : array_like
+        Mean of each group.
+    sds : array_like
+        Standard deviation (ddof 1) of each group; NaN for a group of one.
+
+    Returns
+    -------
+    mean : float
+        Pooled mean; NaN when every group is empty.
+    sd : float
+        Pooled standard deviation; NaN for fewer than two values.
     """
     n = np.asarray(counts, dtype=float)
     m = np.asarray(means, dtype=float)
@@ -139,7 +182,24 @@ def pooled_mean_sd(counts, means, sds) -> tuple[float, float]:
 def power_columns(
     parts: list[dict[str, Any]], simulation: Simulation, target_power: float
 ) -> dict[str, Any]:
-    """The power columns of a row from the power of each chunk (in chunk order)."""
+    """The power columns of a row from the power of each chunk (in chunk order).
+
+    Parameters
+    ----------
+    parts : list of dict
+        The result of each chunk's task, in chunk order.
+    simulation : Simulation
+        The simulation settings (its ``alpha`` is the level of the tests).
+    target_power : float
+        Power used for the minimum detectable effect.
+
+    Returns
+    -------
+    dict
+        Per contrast code: ``power_``, ``mc_error_``, ``planted_``, ``bias_``,
+        ``sd_`` and ``mde_`` columns (estimates in the outcome's units), and
+        ``notes``.
+    """
     row: dict[str, Any] = {}
     for i, first in enumerate(parts[0]["contrasts"]):
         code = first["contrast"]
@@ -179,6 +239,24 @@ def evaluate_part(
     """One task of a chunked candidate: its probabilities (``part`` None) or one chunk's power.
 
     An infeasible design gives ``{"feasible": False, "notes": ...}``.
+
+    Parameters
+    ----------
+    spec : DesignSpec
+        The candidate's design.
+    layer : SweepLayer
+        The units, eligible mask and exposure graph every candidate shares.
+    simulation : Simulation
+        How power is simulated.
+    effects : mapping of str to float
+        Effect to plant per contrast.
+    part : int or None
+        Chunk number, or None for the exposure probabilities.
+
+    Returns
+    -------
+    dict
+        The task's columns of the candidate's row.
     """
     with compute_threads():
         try:

@@ -13,7 +13,21 @@ def plot_power(result: SweepResult, contrast: str | None = None, ax=None):
 
     Each line joins the candidates that differ only in the number treated;
     bars are two Monte Carlo standard errors; the dashed line is the target
-    power. Returns the matplotlib axes.
+    power.
+
+    Parameters
+    ----------
+    result : SweepResult
+        The sweep's result.
+    contrast : str, optional
+        Contrast plotted; default the one the sweep ranks by.
+    ax : matplotlib.axes.Axes, optional
+        Axes to draw on; a new 7 x 4.5 inch figure by default.
+
+    Returns
+    -------
+    matplotlib.axes.Axes
+        The axes drawn on.
     """
     import matplotlib.pyplot as plt
 

@@ -120,6 +120,22 @@ def rank_table(
     minimum detectable effect first (in absolute value); ``cost``: the
     candidates reaching ``target_power`` first, fewest expected treated units
     among them, then the others by power.
+
+    Parameters
+    ----------
+    table : pandas.DataFrame
+        One row per candidate, in grid order.
+    rank_by : {"power", "mde", "cost"}
+        The ranking rule.
+    contrast : str
+        Contrast code whose columns are ranked.
+    target_power : float
+        Power a candidate must reach to rank first by ``cost``.
+
+    Returns
+    -------
+    pandas.DataFrame
+        A new table, sorted, with ``rank`` as its first column.
     """
     power = table.get(f"power_{contrast}", pd.Series(np.nan, index=table.index)).fillna(-1.0)
     treated = pd.to_numeric(table.get("expected_treated", table["treated"]), errors="coerce")

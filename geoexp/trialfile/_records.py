@@ -178,6 +178,29 @@ def append_record(
     ones it holds, so two writers never lose each other's rows. The trial's
     own layers (units, assignment, probabilities, fingerprints, meta) and the
     outcome and result layers are refused: a record never overwrites them.
+
+    Parameters
+    ----------
+    trial : TrialFile or path
+        The trial GeoPackage.
+    layer : str
+        The record layer.
+    rows : pandas.DataFrame
+        The rows to add (their index is dropped).
+    wait_s : float, optional
+        Seconds to wait for another writer (default 120 s).
+    notify : callable, optional
+        Receives plain-words notes, e.g. that this call waits for another writer.
+
+    Returns
+    -------
+    TrialFile
+        The trial as written.
+
+    Raises
+    ------
+    geoexp.errors.InputError
+        ``layer`` is one of the trial's own layers.
     """
     if (
         layer in _OWN_LAYERS

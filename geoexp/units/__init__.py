@@ -60,7 +60,20 @@ ROW_ID = "row"
 
 
 def numbered(frame: gpd.GeoDataFrame, source: str) -> gpd.GeoDataFrame:
-    """The layer with its features numbered 0, 1, ... in file order as ids named ``"row"``."""
+    """The layer with its features numbered 0, 1, ... in file order as ids named ``"row"``.
+
+    Parameters
+    ----------
+    frame : geopandas.GeoDataFrame
+        The layer as read.
+    source : str
+        The layer's file, for the error message.
+
+    Returns
+    -------
+    geopandas.GeoDataFrame
+        The layer indexed by a ``RangeIndex`` named ``"row"``.
+    """
     if ROW_ID in frame.columns:
         raise InputError(
             f"'{source}' already has a column {ROW_ID!r}; to number the units in file order the "

@@ -117,7 +117,25 @@ class CRSResult:
 
 
 def parse_crs(value: object, where: str) -> pyproj.CRS:
-    """Turn anything pyproj accepts (``"EPSG:2263"``, 4326, WKT, CRS) into a CRS."""
+    """Turn anything pyproj accepts (``"EPSG:2263"``, 4326, WKT, CRS) into a CRS.
+
+    Parameters
+    ----------
+    value : object
+        The CRS as given.
+    where : str
+        Where it was given, for the error message.
+
+    Returns
+    -------
+    pyproj.CRS
+        The CRS.
+
+    Raises
+    ------
+    geoexp.errors.CRSError
+        pyproj does not understand ``value``.
+    """
     try:
         return pyproj.CRS.from_user_input(value)
     except (PyprojCRSError, TypeError, ValueError) as err:

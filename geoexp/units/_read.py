@@ -21,6 +21,18 @@ def database_source(path: object, layer: str | None) -> DatabaseSource | None:
     """The database source ``path`` names (a URL or a DatabaseSource), or None for a file.
 
     With a URL, ``layer`` names the table (``schema.name``) unless the URL does.
+
+    Parameters
+    ----------
+    path : object
+        A file path, a ``postgresql://`` URL or a DatabaseSource.
+    layer : str, optional
+        Table of a URL; must be None for a DatabaseSource.
+
+    Returns
+    -------
+    DatabaseSource or None
+        The source, or None when ``path`` is a file.
     """
     if isinstance(path, DatabaseSource):
         if layer is not None:
@@ -35,6 +47,26 @@ def read_layer(path: str | os.PathLike, layer: str | None, what: str) -> gpd.Geo
     """Read one layer of ``path`` with pyogrio; ``what`` names the layer's role in messages.
 
     A ``postgresql://`` URL or a DatabaseSource is read from the database instead.
+
+    Parameters
+    ----------
+    path : path
+        File, ``postgresql://`` URL or DatabaseSource.
+    layer : str, optional
+        Layer of the file; needed when the file has more than one layer with geometry.
+    what : str
+        The layer's role (e.g. ``"units"``), for the messages.
+
+    Returns
+    -------
+    geopandas.GeoDataFrame
+        The layer as read.
+
+    Raises
+    ------
+    geoexp.errors.InputError
+        A missing or unreadable file, an unknown layer, or no ``layer`` for a
+        file with several layers with geometry.
     """
     database = database_source(path, layer)
     if database is not None:
