@@ -258,6 +258,14 @@ def _visible_and_on_top(o: Opened, selector: str) -> bool:
     )
 
 
+def _legend_text(o) -> str:
+    """The legend's text, opened first when it starts collapsed (as it does at laptop size)."""
+    toggle = o.page.query_selector("#geoexp-legend-toggle")
+    if toggle is not None and toggle.get_attribute("aria-expanded") == "false":
+        toggle.click()
+    return o.page.inner_text("#geoexp-legend")
+
+
 def test_zones_in_force_shown_with_reasons_at_laptop_size(trial, demo, open_page, tmp_path):
     import geopandas as gpd
 
@@ -271,7 +279,7 @@ def test_zones_in_force_shown_with_reasons_at_laptop_size(trial, demo, open_page
     counts = o.drawn_counts()
     assert counts["zones:1"] == len(zones) == 1
     reason = zones["reason"].iloc[0]
-    assert reason in o.page.inner_text("#geoexp-legend")
+    assert reason in _legend_text(o)
     tips = o.page.evaluate(
         """() => window.geoexpMap.layers["zones:1"].getLayers()
                  .map(l => l.getTooltip() && l.getTooltip().getContent())"""
@@ -354,5 +362,5 @@ def test_drawing_round_trip_with_a_reason_at_laptop_size(region_path, open_page,
     again = open_page(
         save_map(drawing_map(units, zones=[saved], tiles=None), tmp_path / "d2.html"), LAPTOP
     )
-    assert "school grounds" in again.page.inner_text("#geoexp-legend")
+    assert "school grounds" in _legend_text(again)
     assert again.drawn_counts()["zones:1"] == 1

@@ -31,7 +31,7 @@ def test_flow_adds_up_to_the_design_own_numbers(demo_design, demo):
     assert flow.n_treated == assignment.n_treated == int(assignment.treated.sum())
     assert counts["Analysed (units with outcomes)"].n_units == design.units.n
     # Zone step against shapely directly: units whose geometry intersects the drawn zone.
-    zone = gpd.read_file(demo / "exclusion_zone.geojson").to_crs(design.units.frame.crs)
+    zone = gpd.read_file(demo / "exclusion_zones.geojson").to_crs(design.units.frame.crs)
     inside = shapely.intersects(
         np.asarray(design.units.frame.geometry.array, dtype=object), zone.union_all()
     )

@@ -14,7 +14,7 @@ from typing import Annotated
 import typer
 
 from geoexp._paths import check_outputs, writing
-from geoexp.cli._app import AllowDroppedOpt, ToleranceOpt, _period, app, console
+from geoexp.cli._app import AllowDroppedOpt, ToleranceOpt, _period, _types, app, console
 
 
 class PlanarChoice(StrEnum):
@@ -60,9 +60,12 @@ def baseline_command(
         typer.Option(help="'iso', 'dmy' (day first), 'mdy' (month first) or a strftime pattern."),
     ] = None,
     type_column: Annotated[str | None, typer.Option(help="Column of incident types.")] = None,
-    incident_type: Annotated[
-        list[str] | None,
-        typer.Option("--type", help="Count only this incident type (repeat); needs --type-column."),
+    types: Annotated[
+        str | None,
+        typer.Option(
+            help="Count only these incident types, separated by commas (e.g. "
+            "burglary,robbery); needs --type-column."
+        ),
     ] = None,
     lon: Annotated[str | None, typer.Option(help="Longitude column (CSV in WGS 84).")] = None,
     lat: Annotated[str | None, typer.Option(help="Latitude column (CSV in WGS 84).")] = None,
@@ -84,8 +87,7 @@ def baseline_command(
             "give --id-column (a column of unique ids) or --number-rows, one of them",
             param_hint="'--id-column'",
         )
-    if incident_type and type_column is None:
-        raise typer.BadParameter("--type needs --type-column", param_hint="'--type'")
+    kept = _types(types, type_column)
     check_outputs({"--out": out}, {"UNITS": units, "--incidents": incidents})
     unit_set = UnitSet.from_file(
         units,
@@ -102,7 +104,7 @@ def baseline_command(
         date_column=date_column if period is not None else None,
         period=None if period is None else _period(period, "--period"),
         type_column=type_column,
-        types=tuple(incident_type or ()),
+        types=kept or (),
         x=x,
         y=y,
         lon=lon,

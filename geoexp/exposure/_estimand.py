@@ -112,7 +112,7 @@ class Estimand:
     @property
     def who(self) -> str:
         """The units in words, with their number."""
-        return f"{self.n_units} {_GROUP_WORDS[self.group]}"
+        return f"{self.n_units:,} {_GROUP_WORDS[self.group]}"
 
     @property
     def left_out(self) -> str:
@@ -120,12 +120,12 @@ class Estimand:
         parts = []
         if self.n_never_reference:
             parts.append(
-                f"{self.n_never_reference} can be {self.exposure_label} but never "
+                f"{self.n_never_reference:,} can be {self.exposure_label} but never "
                 f"{self.reference_label} under this design (positivity)"
             )
         if self.n_below_floor:
             parts.append(
-                f"{self.n_below_floor} have a probability below {self.floor:g} of "
+                f"{self.n_below_floor:,} have a probability below {self.floor:g} of "
                 f"{self.exposure_label} or of {self.reference_label}, so their weights would "
                 f"exceed {1 / self.floor:.0f} (positivity floor)"
             )
