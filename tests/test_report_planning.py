@@ -54,7 +54,8 @@ def test_check_saves_and_lists_its_figures(demo_outputs, tmp_path):
 
 def test_power_curve_from_the_command_line(demo_outputs, tmp_path):
     args = ["power", str(demo_outputs["spec"]), "--rate-ratio", "treated=0.6"]
-    args += ["--sims", "20", "--draws", "20", "--curve", "--curve-ratio", "0.9"]
+    args += ["--baseline-column", "incidents_y1", "--simulated-trials", "20"]
+    args += ["--test-draws", "20", "--curve", "--curve-ratio", "0.9"]
     args += ["--curve-treated", "20", "--figures", str(tmp_path)]
     done = run(*args)
     assert done.returncode == 0, done.stderr
@@ -70,5 +71,12 @@ def test_power_curve_from_the_command_line(demo_outputs, tmp_path):
         assert "Warning: underpowered: treated vs pure control" in out
     assert _drawn(tmp_path / "power_curve.png")
     assert f"Figure: {tmp_path / 'power_curve.png'}" in out
-    refused = run("power", str(demo_outputs["spec"]), "--figures", str(tmp_path))
+    refused = run(
+        "power",
+        str(demo_outputs["spec"]),
+        "--baseline-column",
+        "incidents_y1",
+        "--figures",
+        str(tmp_path),
+    )
     assert refused.returncode == 2 and "--curve" in refused.stderr

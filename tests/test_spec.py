@@ -546,6 +546,8 @@ def test_readme_spec_examples_pass_the_strict_schema():
     blocks = re.findall(r"```toml\n(.*?)```", text, flags=re.S)
     assert len(blocks) >= 2
     seen: set[tuple[str, str]] = set()
+    sweep_blocks = [b for b in blocks if "[grid]" in b]
+    blocks = [b for b in blocks if "[grid]" not in b]
     for block in blocks:
         data = tomllib.loads(block)
         spec = DesignSpec.from_dict(data, source="README example")  # strict: unknown keys fail
@@ -556,6 +558,12 @@ def test_readme_spec_examples_pass_the_strict_schema():
                 assert set(keys) <= set(SCHEMA[table])
             else:
                 assert table in TOP
+    # a sweep example is read by the sweep's own strict reader, over the README's first design
+    from geoexp.sweep import SweepSpec
+
+    first = DesignSpec.from_dict(tomllib.loads(blocks[0]), source="README example")
+    for block in sweep_blocks:
+        SweepSpec.from_dict(tomllib.loads(block), source="README sweep example", base=first)
     # the keys real data need are shown
     for needed in [
         ("units", "crs"),
