@@ -11,15 +11,18 @@ Artists carry a ``gid`` so that their extents can be checked afterwards:
 from __future__ import annotations
 
 from collections.abc import Callable, Sequence
+from typing import TypeVar
 
 import numpy as np
 from matplotlib.axes import Axes
 from matplotlib.backends.backend_agg import FigureCanvasAgg
+from matplotlib.figure import Figure
 from matplotlib.text import Annotation, Text
 from matplotlib.transforms import Bbox, offset_copy
 
 from geoexp.maps import halo_text
 
+C = TypeVar("C")  # a candidate position of map furniture
 MARKER_SIZE = 22.0  # scatter size of a numbered place's marker, points squared
 MARKER_PAD = 1.5  # points kept clear around a marker
 # Offsets (points) of a number from its marker, nearest first: the eight compass points,
@@ -54,10 +57,13 @@ class Placer:
 
     def __init__(self, ax: Axes, taken: Sequence[Bbox] = ()) -> None:
         fig = ax.figure
-        if not isinstance(fig.canvas, FigureCanvasAgg):
-            FigureCanvasAgg(fig)  # a renderer to measure text with; the PDF is drawn later
+        assert isinstance(fig, Figure)  # briefing maps are drawn on whole figures
+        canvas = fig.canvas
+        if not isinstance(canvas, FigureCanvasAgg):
+            canvas = FigureCanvasAgg(fig)  # a renderer to measure text with; the PDF is drawn later
         self.ax = ax
-        self.renderer = fig.canvas.get_renderer()
+        self.figure = fig
+        self.renderer = canvas.get_renderer()
         inner = ax.get_window_extent(self.renderer)
         self.frame = Bbox.from_extents(inner.x0 + 2, inner.y0 + 2, inner.x1 - 2, inner.y1 - 2)
         self.taken: list[Bbox] = list(taken)
@@ -92,7 +98,7 @@ class Placer:
         """
         ax = self.ax
         for dx, dy in offsets:
-            transform = offset_copy(ax.transData, fig=ax.figure, x=dx, y=dy, units="points")
+            transform = offset_copy(ax.transData, fig=self.figure, x=dx, y=dy, units="points")
             h = ha or ("left" if dx > 0 else "right" if dx < 0 else "center")
             v = va or ("bottom" if dy > 0 else "top" if dy < 0 else "center")
             probe = ax.text(x, y, text, transform=transform, ha=h, va=v, **kwargs)
@@ -107,7 +113,7 @@ class Placer:
                 return True
         return False
 
-    def furniture(self, candidates: Sequence, draw: Callable[[object], None], gid: str) -> bool:
+    def furniture(self, candidates: Sequence[C], draw: Callable[[C], object], gid: str) -> bool:
         """Draw furniture at the first candidate where all it draws fits; False if none fits.
 
         ``draw(candidate)`` adds artists to the axes; they are measured and, when

@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 from pathlib import Path
-from typing import Annotated
+from typing import Annotated, Literal, cast
 
 import typer
 
@@ -336,6 +336,7 @@ def received_command(
         raise typer.BadParameter(
             f"must be change or post; got {outcome!r}", param_hint="'--outcome'"
         )
+    measure = cast(Literal["change", "post"], outcome)  # checked just above
     if not 0 < level < 1:
         raise typer.BadParameter("must be between 0 and 1", param_hint="'--level'")
     inputs = {"--pings": pings, "--visits": visits}
@@ -366,7 +367,7 @@ def received_command(
         min_stay=min_stay,
     )
     result = treatment_received(
-        tf, stays, planned_minutes=planned_minutes, outcome=outcome, n_draws=draws, level=level
+        tf, stays, planned_minutes=planned_minutes, outcome=measure, n_draws=draws, level=level
     )
     console.print(str(result), markup=False)
     if section is not None:
@@ -381,7 +382,7 @@ def received_command(
 
         from geoexp.delivery import dose_response_table, plot_dose_response, received_inputs
 
-        _, assignment, y_unit, minutes, _ = received_inputs(tf, stays, outcome)
+        _, assignment, y_unit, minutes, _ = received_inputs(tf, stays, measure)
         table = dose_response_table(minutes, y_unit, assignment.to_frame()["condition"].to_numpy())
         ax = plot_dose_response(table)
         with writing(dose_chart, "chart"), atomic_path(dose_chart) as tmp:
@@ -431,6 +432,7 @@ def timeline_command(
 
     if freq not in ("week", "month"):
         raise typer.BadParameter(f"must be week or month; got {freq!r}", param_hint="'--freq'")
+    period = cast(Literal["week", "month"], freq)  # checked just above
     first, last = _window(window)
     check_outputs({"--chart": chart, "--out": out}, {"--incidents": incidents}, trial=trial)
     tf = TrialFile.open(trial)
@@ -444,7 +446,7 @@ def timeline_command(
         lon=lon,
         lat=lat,
         crs=crs,
-        freq=freq,
+        freq=period,
         tolerance_m=tolerance,
     )
     series = condition_series(counts, tf.assignment())

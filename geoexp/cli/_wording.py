@@ -64,10 +64,14 @@ def in_option_words(message: str, keywords: dict[str, str]) -> str:
         message = message.replace(function, words)
     for keyword in sorted(keywords, key=len, reverse=True):
         option = keywords[keyword]
+
+        def with_value(m: re.Match[str], o: str = option) -> str:
+            return o + _value(m.group(1))
+
         # keyword=value (a quoted text, a number, True/False), then a bare keyword=
         message = re.sub(
             rf"(?<![\w-]){re.escape(keyword)}=('[^']*'|\"[^\"]*\"|True|False|-?[\d.]+)",
-            lambda m, o=option: o + _value(m.group(1)),
+            with_value,
             message,
         )
         message = re.sub(rf"(?<![\w-]){re.escape(keyword)}=", option, message)

@@ -191,6 +191,7 @@ def complier_effect(
         rng,
         covariates=pd.DataFrame(cols, index=design.graph.ids),
     ).covariate_sums
+    assert sums is not None  # covariates were given
     sk, sl = sums[:, k, :], sums[:, l, :]
     with np.errstate(invalid="ignore", divide="ignore"):
         # Hajek contrasts per draw: of the outcome (a) and of the dose (b); stat(beta) = a - beta b.

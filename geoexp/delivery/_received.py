@@ -3,7 +3,8 @@
 from __future__ import annotations
 
 import os
-from typing import Literal
+from pathlib import Path
+from typing import TYPE_CHECKING, Literal
 
 import numpy as np
 
@@ -15,12 +16,15 @@ from geoexp.exposure import condition_bits
 from geoexp.outcomes import load_outcomes
 from geoexp.trialfile import TrialFile, design_from_trial, verify_trial
 
+if TYPE_CHECKING:
+    from geoexp.design import Assignment, Design
+
 
 def received_inputs(
     trial: TrialFile | str | os.PathLike,
     stays: StayTable,
     outcome: Literal["change", "post"] = "change",
-):
+) -> tuple[Design, Assignment, np.ndarray, np.ndarray, tuple[str, str]]:
     """The design, assignment, outcome per unit, minutes present in the post-period and that period.
 
     The trial is verified first (a changed design or outcome table is refused).
@@ -48,7 +52,7 @@ def received_inputs(
     period : tuple of str
         First and last day of the post-period (ISO dates).
     """
-    tf = trial if isinstance(trial, TrialFile) else TrialFile.open(trial)
+    tf = trial if isinstance(trial, TrialFile) else TrialFile.open(Path(trial))
     verify_trial(tf)
     design, assignment = design_from_trial(tf)
     outcomes = load_outcomes(tf)

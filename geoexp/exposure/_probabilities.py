@@ -25,7 +25,8 @@ if TYPE_CHECKING:
 class DrawSource(Protocol):
     """What the exposure engine needs of a sampler: chunks of draws as CSR rows of treated units."""
 
-    n_units: int
+    @property
+    def n_units(self) -> int: ...
 
     def iter_chunks(
         self, n_draws: int, rng: RngLike = None, *, chunk: int | None = None

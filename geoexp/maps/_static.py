@@ -11,7 +11,7 @@ from __future__ import annotations
 import math
 from collections.abc import Sequence
 from dataclasses import dataclass
-from typing import Literal
+from typing import TYPE_CHECKING, Any, Literal
 
 import geopandas as gpd
 import numpy as np
@@ -25,10 +25,13 @@ from matplotlib.text import Text
 
 from geoexp.maps._palette import condition_style
 
+if TYPE_CHECKING:
+    from matplotlib.typing import RcKeyType
+
 # The palette's widths are screen pixels for the web maps; at full width on paper the
 # street grid would swamp the page, so print scales every width (and with it every dash).
 PRINT_WIDTH = 0.55
-PRINT_RC = {
+PRINT_RC: dict[RcKeyType, Any] = {
     # Type 42 (TrueType) keeps text as text, so unit ids can be searched and copied.
     "pdf.fonttype": 42,
     "font.family": "DejaVu Sans",

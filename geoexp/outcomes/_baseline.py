@@ -18,6 +18,7 @@ import os
 import warnings
 from dataclasses import dataclass
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 import pandas as pd
@@ -180,7 +181,9 @@ def count_onto_units(
                 f"{', '.join(repr(t) for t in sorted(found)[:20]) or 'none'}"
             )
     reason = np.zeros(rows.n, dtype=np.int8)
+    assert rows.x is not None and rows.y is not None  # read_incidents always sets them
     if days is not None:
+        assert rows.dates is not None  # read_incidents always sets them
         inside = (rows.dates >= np.datetime64(days[0])) & (rows.dates <= np.datetime64(days[1]))
         reason[~inside] = 4
         reason[rows.date_problem == DATE_UNPARSEABLE] = 3
@@ -205,9 +208,10 @@ def count_onto_units(
     )
     per_reason = np.bincount(reason[wanted], minlength=len(REASONS) + 1)[1:]
     n_wanted = int(wanted.sum())
+    dropped: dict[str, Any] = {f: int(n) for f, n in zip(_FIELDS, per_reason, strict=True)}
     drops = DropReport(
         n_incidents=n_wanted,
-        **{f: int(n) for f, n in zip(_FIELDS, per_reason, strict=True)},
+        **dropped,
         ties=int(snapped.tied[snapped.unit >= 0].sum()),
         tolerance_m=float(tolerance_m),
         source=rows.source,

@@ -22,6 +22,7 @@ from __future__ import annotations
 
 import re
 from dataclasses import dataclass
+from typing import TypeGuard
 from urllib.parse import parse_qsl, quote, urlencode, urlsplit
 
 from geoexp._optional import import_optional
@@ -34,7 +35,7 @@ _IDENTIFIER = r'(?:[A-Za-z_][A-Za-z0-9_$]*|"(?:[^"]|"")+")'
 _TABLE_NAME = re.compile(rf"^\s*{_IDENTIFIER}(?:\s*\.\s*{_IDENTIFIER})?\s*$")
 
 
-def is_database_url(value: object) -> bool:
+def is_database_url(value: object) -> TypeGuard[str]:
     """True when ``value`` is text starting with ``postgresql://`` or ``postgres://``.
 
     Parameters
@@ -184,13 +185,13 @@ class DatabaseSource:
             else:
                 rest.append((key, value))
         given = {"table": table, "query": query, "geometry": geometry}
-        for key, value in given.items():
-            if value is not None:
+        for key, given_value in given.items():
+            if given_value is not None:
                 if key in own:
                     raise InputError(
                         f"the database URL {mask_url(text)} already gives {key}=; give it once"
                     )
-                own[key] = value
+                own[key] = given_value
         url = _join(parts.scheme, parts.netloc, parts.path, urlencode(rest, quote_via=quote))
         return cls(url, own.get("table"), own.get("query"), own.get("geometry"))
 
@@ -204,6 +205,7 @@ class DatabaseSource:
         """The SQL that reads the source's rows."""
         if self.table is not None:
             return f"SELECT * FROM {self.table.strip()}"
+        assert self.query is not None  # exactly one of table and query (checked on creation)
         return self.query.strip().rstrip(";")
 
     def connect(self):

@@ -13,11 +13,15 @@ from __future__ import annotations
 
 from collections.abc import Sequence
 from dataclasses import dataclass
+from typing import TYPE_CHECKING
 
 import numpy as np
 import pandas as pd
 
 from geoexp.errors import InputError
+
+if TYPE_CHECKING:
+    from geoexp.power._models import OutcomeMeasure
 
 # Power below which a design is called underpowered.
 TARGET_POWER = 0.8  # common practice (Cohen 1988, from memory)
@@ -110,7 +114,7 @@ def power_curve(
     n_sims: int = 200,
     n_draws: int = 500,
     alpha: float = 0.05,
-    outcome: str = "change",
+    outcome: OutcomeMeasure = "change",
     seed: int | None = None,
 ) -> PowerCurve:
     """Simulate the power of the direct-effect test over effect sizes and numbers treated.

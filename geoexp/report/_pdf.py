@@ -26,6 +26,8 @@ from geoexp._atomic import atomic_path
 from geoexp.maps import PRINT_RC
 
 if TYPE_CHECKING:
+    from matplotlib.figure import Figure
+
     from geoexp.report._context import ReportContext
 
 A4_INCHES = (8.27, 11.69)
@@ -47,7 +49,7 @@ class _Pages:
     def __init__(self, pdf, title: str):
         self.pdf = pdf
         self.title = title
-        self.fig = None
+        self.fig: Figure | None = None
         self.y = 0.0
         self.number = 0
 
@@ -77,6 +79,7 @@ class _Pages:
         line_h = size * 1.45 / 72 / A4_INCHES[1]
         for line in lines:
             self.room(line_h)
+            assert self.fig is not None  # room() starts a page when none is open
             self.fig.text(
                 MARGIN + indent,
                 self.y,
@@ -121,6 +124,7 @@ class _Pages:
             height = top_room
         self.heading(title, 11)
         self.room(height)
+        assert self.fig is not None  # room() starts a page when none is open
         ax = self.fig.add_axes((MARGIN, self.y - height, width, height))
         ax.imshow(pixels)
         ax.set_axis_off()
@@ -161,6 +165,7 @@ def _summary_table(pages: _Pages, context: ReportContext) -> None:
         ]
         height = max(len(c) for c in cells) * line_h + line_h * 0.5
         pages.room(height)
+        assert pages.fig is not None  # room() starts a page when none is open
         x = x0
         for lines, w in zip(cells, widths, strict=True):
             pages.fig.text(

@@ -5,7 +5,7 @@ from __future__ import annotations
 import time
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 import pandas as pd
@@ -22,6 +22,9 @@ from geoexp.sweep._evaluate import (
     power_columns,
 )
 from geoexp.sweep._spec import RankBy, SweepSpec
+
+if TYPE_CHECKING:
+    from rich.progress import Progress
 
 _GRID_COLUMNS = ("treated", "gap_m", "bands_m", "method")
 
@@ -232,12 +235,13 @@ def run_sweep(
     if layer is None:
         layer = SweepLayer.for_specs(spec.base, specs)
     own = backend is None
-    backend = make_backend(workers=workers, scheduler=scheduler) if own else backend
+    if backend is None:
+        backend = make_backend(workers=workers, scheduler=scheduler)
     effects = dict(spec.effects)
     n_chunks = len(chunk_sizes(spec.simulation))
     if n_chunks == 1:
         task = _task
-        items = [(s, spec.simulation, effects, spec.target_power) for s in specs]
+        items: list[tuple] = [(s, spec.simulation, effects, spec.target_power) for s in specs]
         owners: list[tuple[int, int | None]] = [(i, None) for i in range(len(specs))]
     else:
         # one task for each candidate's probabilities and one for each chunk of its trials
@@ -282,7 +286,7 @@ class _progress_bar:
 
     def __init__(self, show: bool, total: int, where: str) -> None:
         self.show, self.total, self.where = show, total, where
-        self._bar = None
+        self._bar: Progress | None = None
 
     def __enter__(self):
         if not self.show:
@@ -290,7 +294,7 @@ class _progress_bar:
         from rich.console import Console
         from rich.progress import BarColumn, MofNCompleteColumn, Progress, TimeElapsedColumn
 
-        self._bar = Progress(
+        bar = Progress(
             "[progress.description]{task.description}",
             BarColumn(),
             MofNCompleteColumn(),
@@ -298,11 +302,12 @@ class _progress_bar:
             console=Console(stderr=True),
             transient=False,
         )
-        self._bar.start()
-        task = self._bar.add_task(f"candidates on {self.where}", total=self.total)
+        self._bar = bar
+        bar.start()
+        task = bar.add_task(f"candidates on {self.where}", total=self.total)
 
         def advance(label: str) -> None:
-            self._bar.update(task, advance=1, description=f"done: {label}")
+            bar.update(task, advance=1, description=f"done: {label}")
 
         return advance
 
