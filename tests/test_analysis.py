@@ -251,7 +251,7 @@ def test_every_row_is_about_one_set_of_units_and_its_interval_agrees_with_its_te
         ), row.label
         assert row.effect.n_units == row.estimand.n_units
         assert row.estimand.floor == analysis.floor
-        assert str(row.estimand.n_units) in row.verdict.sentence
+        assert f"{row.estimand.n_units:,}" in row.verdict.sentence  # printed with separators
         if row.rate_ratio is not None and np.isfinite(row.rate_ratio.ci_low):
             assert row.rate_ratio.excludes_null == (row.rate_ratio.test.p_value <= alpha)
         assert "% of the pure-control mean" not in row.verdict.sentence
