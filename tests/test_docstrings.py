@@ -82,15 +82,9 @@ INCOMPLETE = {
     "geoexp.report.write_report",
     "geoexp.sampleregion.write_sample_region",
     "geoexp.trialfile.export_assignment_csv",
-    "geoexp.trialfile.lock_path",
-    "geoexp.trialfile.outcomes_fingerprint",
-    "geoexp.trialfile.results_fingerprint",
     "geoexp.trialfile.store_outcomes",
     "geoexp.trialfile.store_results",
     "geoexp.trialfile.write_trial",
-    "geoexp.units.describe_crs",
-    "geoexp.units.is_planar",
-    "geoexp.units.planar_crs",
     "geoexp.workflow.report_outputs",
 }
 
