@@ -46,10 +46,6 @@ INCOMPLETE = {
     "geoexp.report.report_context",
     "geoexp.report.write_report",
     "geoexp.sampleregion.write_sample_region",
-    "geoexp.trialfile.export_assignment_csv",
-    "geoexp.trialfile.store_outcomes",
-    "geoexp.trialfile.store_results",
-    "geoexp.trialfile.write_trial",
     "geoexp.workflow.report_outputs",
 }
 
