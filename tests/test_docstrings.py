@@ -29,7 +29,6 @@ FUNCTIONS = {"PR01", "RT01"}
 INCOMPLETE = {
     "geoexp.analysis.analyse",
     "geoexp.analysis.save_results",
-    "geoexp.briefing.page_layout",
     "geoexp.design.check_design",
     "geoexp.estimate.estimate_contrast",
     "geoexp.estimate.saturation_effects",
@@ -41,12 +40,9 @@ INCOMPLETE = {
     "geoexp.inference.invert_constant_effect",
     "geoexp.inference.spillover_test",
     "geoexp.maps.save_result_map",
-    "geoexp.report.distance_decay_plot",
     "geoexp.report.render_report",
     "geoexp.report.report_context",
     "geoexp.report.write_report",
-    "geoexp.sampleregion.write_sample_region",
-    "geoexp.workflow.report_outputs",
 }
 
 
