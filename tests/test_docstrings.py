@@ -40,9 +40,6 @@ INCOMPLETE = {
     "geoexp.inference.invert_constant_effect",
     "geoexp.inference.spillover_test",
     "geoexp.maps.save_result_map",
-    "geoexp.report.render_report",
-    "geoexp.report.report_context",
-    "geoexp.report.write_report",
 }
 
 
