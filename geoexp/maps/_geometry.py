@@ -91,7 +91,13 @@ def district_outlines(
 
     Returns
     -------
-    (GeoDataFrame with a ``name`` column, in the units' CRS, or None; str)
+    outlines : geopandas.GeoDataFrame or None
+        One polygon per district with a ``name`` column, in the units' CRS
+        (given districts reprojected to it); None when neither ``districts``
+        nor a ``column`` the units have is given.
+    note : str
+        Where they came from: :data:`DISTRICTS_GIVEN` or
+        :data:`DISTRICTS_DRAWN`, empty with no outlines.
     """
     if districts is not None:
         out = read_polygons(districts, "districts", units.crs)
