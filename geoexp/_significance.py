@@ -50,6 +50,18 @@ def significance(
     S + (R,) (one row of draws per observed value), or ``null`` of shape (R,)
     shared by every observed value.
 
+    Parameters
+    ----------
+    observed : float or numpy.ndarray
+        The observed statistic, a scalar or an array of shape S.
+    null : numpy.ndarray
+        Draws of the statistic under the null: shape (R,) or S + (R,).
+    alternative : {"two-sided", "greater", "less", "absolute"}, default "two-sided"
+        Which values count as extreme (see above).
+    exact : bool, default False
+        True when ``null`` enumerates every assignment of the design, the
+        observed one included.
+
     Returns
     -------
     (p_value, mc_error, n_undefined)

@@ -76,7 +76,21 @@ class MissingPackageError(GeoexpError, ImportError):
 
 
 def describe_rows(rows: Iterable[object], limit: int = 10) -> str:
-    """Return ``"a, b, c (and 7 more)"`` for at most ``limit`` offending rows."""
+    """Return ``"a, b, c (and 7 more)"`` for at most ``limit`` offending rows.
+
+    Parameters
+    ----------
+    rows : iterable
+        The offending rows (ids or row numbers); text is shown quoted.
+    limit : int, default 10
+        How many rows to name before counting the rest.
+
+    Returns
+    -------
+    str
+        The first ``limit`` rows joined by commas, followed by
+        ``" (and N more)"`` (N with thousands separators) when there are more.
+    """
     rows = list(rows)
     shown = ", ".join(repr(r) if isinstance(r, str) else str(r) for r in rows[:limit])
     rest = len(rows) - limit

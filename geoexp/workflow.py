@@ -165,6 +165,19 @@ def report_outputs(report: PathLike, result_map: PathLike | None = None) -> dict
 
     The results map is ``results_map.html`` beside ``report.html`` (as in the
     demo), and ``<stem>_results_map.html`` beside a report of another name.
+
+    Parameters
+    ----------
+    report : str or os.PathLike
+        The HTML report's path.
+    result_map : str or os.PathLike, optional
+        The results map's path, if not the default one beside the report.
+
+    Returns
+    -------
+    dict of str to pathlib.Path
+        Keys ``report`` (HTML), ``report_md``, ``report_pdf`` (same name, other
+        suffixes) and ``result_map``.
     """
     report = Path(report)
     name = "results_map.html" if report.stem == "report" else f"{report.stem}_results_map.html"

@@ -139,6 +139,13 @@ def analyse(
     floor
         Positivity floor (default: the spec's ``positivity_floor`` if it has one,
         else :data:`geoexp.estimate.DEFAULT_FLOOR`).
+
+    Returns
+    -------
+    Analysis
+        One row per contrast (estimate in incidents per unit, standard error,
+        intervals, p-values, verdict), the trial-wide Fisher test and the
+        fingerprints of the design and outcomes analysed.
     """
     tf = trial if isinstance(trial, TrialFile) else TrialFile.open(trial)
     integrity = verify_trial(tf)  # refuses a trial whose design or outcomes changed
@@ -574,6 +581,27 @@ def save_results(
     new count in between). The results record the design and outcomes
     fingerprints they were computed from; earlier results are kept in
     ``superseded_results``.
+
+    Parameters
+    ----------
+    trial : TrialFile, str or pathlib.Path
+        The trial file (or its path) the analysis was computed from.
+    analysis : Analysis
+        The analysis, from :func:`analyse`.
+    wait_s : float, optional
+        Seconds to wait for another writer of the same trial.
+    notify : callable, optional
+        Receives plain-words notes (a wait for another writer, say).
+
+    Returns
+    -------
+    TrialFile
+        The trial file, opened again after the write.
+
+    Raises
+    ------
+    geoexp.errors.TrialIntegrityError
+        The trial's design or outcomes changed since the analysis.
     """
     path = trial.path if isinstance(trial, TrialFile) else trial
     table = analysis.to_frame().reset_index()

@@ -79,7 +79,23 @@ class PageLayout:
 
 
 def page_layout(paper: str) -> PageLayout:
-    """Return the layout of a paper size (``"a4"`` or ``"letter"``)."""
+    """Return the layout of a paper size (``"a4"`` or ``"letter"``).
+
+    Parameters
+    ----------
+    paper : {"a4", "letter"}
+        The paper size, in any letter case.
+
+    Returns
+    -------
+    PageLayout
+        The layout, with the page's width and height in inches.
+
+    Raises
+    ------
+    geoexp.errors.InputError
+        ``paper`` is not a known size.
+    """
     key = str(paper).lower()
     if key not in PAPER_INCHES:
         raise InputError(f"paper must be one of {sorted(PAPER_INCHES)}, got {paper!r}")

@@ -36,6 +36,17 @@ def units_for(spec: DesignSpec) -> UnitSet:
     """Read the unit layer named by ``spec`` (``[units]``), relative to the spec's folder.
 
     A ``postgresql://`` path reads the table named by ``layer`` or the rows of ``query``.
+
+    Parameters
+    ----------
+    spec : DesignSpec
+        The design spec; its ``[units]`` table gives the path (or database URL),
+        layer or query, id column and CRS.
+
+    Returns
+    -------
+    UnitSet
+        Every unit of the layer (eligibility rules not yet applied).
     """
     u = spec.units
     id_column = None if u.number_rows else u.id_column
@@ -52,6 +63,19 @@ def eligible_for(spec: DesignSpec, units: UnitSet) -> UnitSet:
 
     Exclusion zones come before the top-k/top-share cut, so that hot spots
     are picked among the places that may be treated at all.
+
+    Parameters
+    ----------
+    spec : DesignSpec
+        The design spec; its ``[eligible]`` table gives the rules.
+    units : UnitSet
+        The units read by :func:`units_for`.
+
+    Returns
+    -------
+    UnitSet
+        The units kept by every rule, in their original order (``units`` is
+        not changed).
     """
     e = spec.eligible
     out = units

@@ -190,6 +190,31 @@ def check_design(
     contrasted conditions divided by the covariate's standard deviation among
     the eligible units (for treated vs pure control, compared among eligible
     units) or among all units (for spillover bands vs pure control).
+
+    Parameters
+    ----------
+    design : Design
+        The design to check.
+    n_draws : int, optional
+        Draws of the design's sampler (default: the spec's ``draws``).
+    assignment : Assignment, optional
+        A drawn assignment, whose condition sizes are shown beside the
+        expected ones.
+    balance_columns : list of str, optional
+        Covariates to check balance on (default: the hot-spot column and
+        rerandomization covariates, else up to six numeric columns that are not
+        identifiers).
+
+    Returns
+    -------
+    DesignCheck
+        Expected number of units per condition, exposure probabilities,
+        positivity, standardised balance differences and the verdict.
+
+    Raises
+    ------
+    geoexp.errors.DesignError
+        A balance column is missing from the unit layer or has missing values.
     """
     cols = _balance_columns(design, balance_columns)
     frame = design.units.frame

@@ -53,7 +53,13 @@ _NAME = re.compile(r"`([^`]+)`|([A-Za-z_][A-Za-z0-9_]*)")
 
 
 def tool_version() -> str:
-    """The running geoexp version."""
+    """The running geoexp version.
+
+    Returns
+    -------
+    str
+        ``geoexp.__version__`` of the installed package, as text.
+    """
     import geoexp
 
     return str(geoexp.__version__)
@@ -72,7 +78,20 @@ def _canonical_json(value: Any) -> str:
 
 
 def spec_identity(spec: DesignSpec) -> dict[str, Any]:
-    """The spec's canonical dict without file paths (their contents are fingerprinted apart)."""
+    """The spec's canonical dict without file paths (their contents are fingerprinted apart).
+
+    Parameters
+    ----------
+    spec : DesignSpec
+        The design spec.
+
+    Returns
+    -------
+    dict
+        The spec as plain JSON values with the unit layer's ``path``, ``layer``
+        and ``query`` removed, and the exclusion-zone list replaced by its
+        length.
+    """
     data = json.loads(_canonical_json(spec.to_dict()))
     units = data.get("units", {})
     units.pop("path", None)
@@ -89,6 +108,21 @@ def used_columns(spec: DesignSpec, columns: Sequence[str]) -> tuple[str, ...]:
 
     The eligibility rule is a pandas expression; every column name it mentions
     (plain or in backticks) counts as used.
+
+    Parameters
+    ----------
+    spec : DesignSpec
+        The design spec: its eligibility rule, hot-spot column, block, cluster
+        and bridge columns, rerandomization covariates and field-sheet columns
+        are read.
+    columns : sequence of str
+        The columns the unit layer has.
+
+    Returns
+    -------
+    tuple of str
+        The named columns present in ``columns`` (never ``geometry``), without
+        repeats, sorted by name.
     """
     present = set(columns)
     names: list[str] = []
@@ -141,7 +175,20 @@ def _values_bytes(values: pd.Series | pd.Index) -> bytes:
 
 
 def frame_digest(frame: pd.DataFrame, *, index: bool = True) -> str:
-    """SHA-256 of a table's column names and values (and its index), in order."""
+    """SHA-256 of a table's column names and values (and its index), in order.
+
+    Parameters
+    ----------
+    frame : pandas.DataFrame
+        The table.
+    index : bool, default True
+        Whether the index values are part of the digest.
+
+    Returns
+    -------
+    str
+        The SHA-256 digest, 64 hexadecimal digits.
+    """
     chunks = [_canonical_json([str(c) for c in frame.columns]).encode("utf-8")]
     if index:
         chunks.append(_values_bytes(frame.index))
@@ -165,7 +212,20 @@ def _wkb(units: UnitSet) -> np.ndarray:
 
 
 def zone_digest(path: str | os.PathLike[str]) -> str | None:
-    """SHA-256 of an exclusion-zone file's CRS and geometries; None if the file is gone."""
+    """SHA-256 of an exclusion-zone file's CRS and geometries; None if the file is gone.
+
+    Parameters
+    ----------
+    path : str or os.PathLike
+        The exclusion-zone file (any format pyogrio reads).
+
+    Returns
+    -------
+    str or None
+        The SHA-256 digest of its CRS (authority code, else WKT) and its
+        geometries as WKB, 64 hexadecimal digits; None if ``path`` does not
+        exist.
+    """
     import pyogrio
 
     path = Path(path)
@@ -245,6 +305,11 @@ def design_fingerprint(
         the files now; see :func:`zone_digest`).
     version : str, optional
         Tool version to record (default: the running geoexp's).
+
+    Returns
+    -------
+    DesignFingerprint
+        The SHA-256 digest of the parts and the parts themselves.
     """
     if zone_digests is None:
         zone_digests = [zone_digest(spec.resolve(z)) for z in spec.eligible.exclude]
@@ -271,6 +336,20 @@ def unit_digests(units: UnitSet, columns: Sequence[str]) -> pd.DataFrame:
 
     Kept beside the fingerprint so that a check can name the units that changed
     (the fingerprint itself is a SHA-256 over the whole layer).
+
+    Parameters
+    ----------
+    units : UnitSet
+        The units.
+    columns : sequence of str
+        The columns to hash (those the layer lacks are skipped).
+
+    Returns
+    -------
+    pandas.DataFrame
+        Indexed by unit id, with ``geometry_hash`` and ``columns_hash`` as
+        signed 64-bit integers (``columns_hash`` is 0 when no column is
+        present).
     """
     geometry = pd.util.hash_array(np.asarray(_wkb(units), dtype=object))
     present = [c for c in columns if c in units.frame.columns]

@@ -58,7 +58,20 @@ def monte_carlo_bytes(n_draws: int, n_treated: int, n_units: int, n_conditions: 
 
 
 def memory_cap_bytes() -> int:
-    """The memory a Monte Carlo run may use: ``GEOEXP_MEMORY_CAP_GB``, else half the machine's."""
+    """The memory a Monte Carlo run may use: ``GEOEXP_MEMORY_CAP_GB``, else half the machine's.
+
+    Returns
+    -------
+    int
+        The cap in bytes: ``GEOEXP_MEMORY_CAP_GB`` gigabytes (GiB, 1024**3
+        bytes) if set, else half the machine's physical memory, else 4 GiB
+        when the memory cannot be read.
+
+    Raises
+    ------
+    geoexp.errors.DesignError
+        ``GEOEXP_MEMORY_CAP_GB`` is not a positive number.
+    """
     text = os.environ.get("GEOEXP_MEMORY_CAP_GB")
     if text:
         try:

@@ -56,7 +56,19 @@ class Sampler(Protocol):
 
 
 def fixed_treated(sampler: object) -> int | None:
-    """Number of units every draw of ``sampler`` treats, or None when it varies."""
+    """Number of units every draw of ``sampler`` treats, or None when it varies.
+
+    Parameters
+    ----------
+    sampler : object
+        A sampler; one that wraps another (a ``base`` attribute) is looked
+        through.
+
+    Returns
+    -------
+    int or None
+        Its ``n_treated``, or None if it has none.
+    """
     count = getattr(sampler, "n_treated", None)
     if count is None and hasattr(sampler, "base"):
         return fixed_treated(sampler.base)

@@ -129,6 +129,36 @@ def weighted_displacement_quotient(
 
     Counts of incidents before and after in the target area, its buffer and a
     control area. The control counts must be positive.
+
+    Parameters
+    ----------
+    target_before, target_after : float
+        Incidents in the target (treated) area before and after, counts >= 0.
+    buffer_before, buffer_after : float
+        Incidents in the buffer around it before and after, counts >= 0.
+    control_before, control_after : float
+        Incidents in the control area before and after, counts > 0.
+    buffer : str, default "buffer"
+        Name of the buffer, carried into the result.
+    direct_effect_clear : bool, optional
+        Whether the randomization test shows a clear reduction in the target
+        area; False withholds the reading (None: not known).
+    buffer_effect_clear : bool, optional
+        Whether the buffer's own test shows clear spillover; False withholds
+        the reading (None: not known).
+
+    Returns
+    -------
+    DisplacementIndex
+        The counts, the success measure (target after/control after minus
+        target before/control before), the buffer's measure likewise, the
+        quotient (buffer measure over success measure; NaN when the success
+        measure is 0), the total net effect in incidents, and the reading.
+
+    Raises
+    ------
+    geoexp.errors.InputError
+        A count is negative, or a control count is not positive.
     """
     values = [
         target_before,

@@ -330,6 +330,18 @@ def estimate_contrast(
     units_words
         The units in words, repeated in the result.
 
+    Returns
+    -------
+    ContrastEstimate
+        The estimate of mu(k) - mu(l) (in the unit of ``y``, e.g. incidents per
+        unit), its conservative standard error and normal interval, the two
+        condition means, unit counts and positivity exclusions.
+
+    Raises
+    ------
+    geoexp.errors.InputError
+        ``y`` has missing values, or ``estimator`` is not one of the two.
+
     Notes
     -----
     The result carries Kish's (1965) effective sample size (sum w)^2 / sum w^2 of

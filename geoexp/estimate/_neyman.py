@@ -19,6 +19,30 @@ def difference_in_means(
     error of the treatment coefficient in an OLS regression of y on the
     treatment indicator. Valid under complete randomization when units do not
     affect each other; with spillover, use the exposure-contrast estimators.
+
+    Parameters
+    ----------
+    y : numpy.ndarray
+        The outcome of every unit (e.g. incidents per unit in the follow-up
+        period).
+    treated : numpy.ndarray of bool
+        The observed assignment, aligned with ``y``: True for treated units.
+    level : float, default 0.95
+        Confidence level of the normal-approximation interval, a probability.
+    outcome : str, default "outcome"
+        Name of the outcome, carried into the result.
+
+    Returns
+    -------
+    ContrastEstimate
+        Treated mean minus control mean (in the unit of ``y``), its standard
+        error and interval, the two arm means and sizes.
+
+    Raises
+    ------
+    geoexp.errors.InputError
+        ``y`` and ``treated`` differ in length, or an arm has fewer than two
+        units.
     """
     y = np.asarray(y, dtype=float)
     z = np.asarray(treated, dtype=bool)

@@ -28,6 +28,19 @@ def saturation_effects(
         Index into ``saturations`` of each unit's cluster's drawn level.
     saturations
         The design's saturation levels; one must be 0 (pure-control clusters).
+
+    Returns
+    -------
+    pandas.DataFrame
+        Indexed by saturation (share of a cluster's units treated, 0 to 1):
+        ``n_treated``, ``n_untreated``, ``n_pure_control_clusters_units`` and
+        the ``direct``, ``spillover`` and ``total`` effects in the unit of ``y``
+        (NaN where a group is empty).
+
+    Raises
+    ------
+    geoexp.errors.InputError
+        No saturation is 0, or no cluster drew saturation 0.
     """
     y = np.asarray(y, dtype=float)
     treated = np.asarray(treated, dtype=bool)

@@ -196,6 +196,18 @@ def unpack_bits(words: np.ndarray, dtype: type = np.uint8) -> np.ndarray:
 
     Bit ``r % 64`` of word ``r // 64`` is draw ``r`` (the layout of
     :class:`ConditionBits`).
+
+    Parameters
+    ----------
+    words : numpy.ndarray
+        A (rows, n_words) array of 64-bit words (read as little-endian uint64).
+    dtype : numpy dtype, default numpy.uint8
+        The type of the indicators returned.
+
+    Returns
+    -------
+    numpy.ndarray
+        A (rows, 64 * n_words) array of 0 and 1, column ``r`` for draw ``r``.
     """
     words = np.ascontiguousarray(words, dtype="<u8")
     flat = np.unpackbits(
@@ -219,6 +231,27 @@ def condition_bits(
     and ``n_draws`` as :func:`exposure_probabilities` to get the same draws.
     The kernel visits only the treated units' neighbour lists and sets the
     treated and band bits directly; the pure-control bits are the complement.
+
+    Parameters
+    ----------
+    sampler : DrawSource
+        The design's assignment sampler.
+    graph : ExposureGraph
+        Distances (metres) between units within the outermost band.
+    mapping : ExposureMapping
+        The exposure conditions (treated, distance bands, pure control).
+    n_draws : int, default 10000
+        Number of assignments to draw.
+    rng : int, numpy.random.Generator or None
+        Seed or generator for the draws.
+    units : numpy.ndarray, optional
+        Positions of the units to hold (default: every unit).
+
+    Returns
+    -------
+    ConditionBits
+        For each condition and held unit, one bit per draw (64 draws to a
+        uint64 word).
     """
     return _condition_bits(sampler, graph, mapping, n_draws, rng, units=units)
 
@@ -301,6 +334,30 @@ def dependence_pairs(
     block quotas), which makes them negatively associated. Returns both
     orders of every linked pair, without self pairs, as int32 (int64 beyond
     2**31 units) positions.
+
+    Parameters
+    ----------
+    graph : ExposureGraph
+        Distances (metres) between units within the outermost band.
+    mapping : ExposureMapping
+        The exposure conditions; its outermost band sets the reach.
+    eligible : numpy.ndarray of bool
+        Which units may be treated, one per unit.
+    gap : float, optional
+        The least distance in metres between two treated units in a kept-apart
+        design; no larger than the graph's longest pair.
+    clusters : numpy.ndarray, optional
+        A cluster label per unit, for randomized-saturation designs.
+
+    Returns
+    -------
+    tuple of numpy.ndarray
+        ``(i, j)`` positions of the linked pairs.
+
+    Raises
+    ------
+    geoexp.errors.InputError
+        ``gap`` exceeds the longest distance the graph holds.
     """
     import scipy.sparse as sp
 

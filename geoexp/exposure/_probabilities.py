@@ -53,6 +53,24 @@ def condition_sums(
     ``draws`` has ``indptr`` and ``indices`` (treated positions per draw);
     ``weights`` is (n_units, q). Returns (R, K+2, q) with the pure-control
     column left at zero (it is the total minus the other columns).
+
+    Parameters
+    ----------
+    draws : DrawSource or object
+        The draws: ``indptr`` and ``indices`` in CSR form, the treated
+        positions of draw r in ``indices[indptr[r]:indptr[r + 1]]``.
+    reach : BandedReach
+        Pairs of units within the outermost band, distances in metres.
+    weights : numpy.ndarray
+        (n_units, q) weights to sum (e.g. covariates, or ones to count units).
+    engine : {"auto", "numba", "numpy"}, default "auto"
+        The kernel to run; both give the same sums.
+
+    Returns
+    -------
+    numpy.ndarray
+        (R, K + 2, q) sums over R draws and K + 2 conditions (treated, K bands,
+        pure control); the pure-control column is zero.
     """
     _, _, sums = scatter_counts(
         draws.indptr,
@@ -331,6 +349,20 @@ def assign_conditions(
     ``treated`` holds the positions (or a boolean mask) of the treated units.
     Returns an int8 array of codes: 0 treated, k for spillover band k, and
     ``mapping.pure_control`` for the rest.
+
+    Parameters
+    ----------
+    graph : ExposureGraph
+        Distances (metres) between units within the outermost band.
+    mapping : ExposureMapping
+        The exposure conditions (treated, distance bands, pure control).
+    treated : numpy.ndarray
+        Positions of the treated units, or a boolean mask over every unit.
+
+    Returns
+    -------
+    numpy.ndarray of int8
+        One code per unit (see above).
     """
     treated = np.asarray(treated)
     if treated.dtype == bool:

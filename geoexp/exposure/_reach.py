@@ -35,6 +35,19 @@ def band_codes(distances: np.ndarray, edges: np.ndarray) -> np.ndarray:
     reached). The code is monotone in the distance, so the nearest treated
     unit's band is the smallest code among the treated neighbours: the kernels
     take minima of these one-byte codes instead of float distances.
+
+    Parameters
+    ----------
+    distances : numpy.ndarray
+        Distances in metres.
+    edges : numpy.ndarray
+        The outer edges of the bands in metres, increasing.
+
+    Returns
+    -------
+    numpy.ndarray of int8
+        The band code of each distance, from 1 (first band) to
+        ``edges.size + 1`` (beyond every band), same shape as ``distances``.
     """
     edges = np.asarray(edges, dtype=np.float64)
     return (np.searchsorted(edges, distances, side="left") + 1).astype(np.int8)

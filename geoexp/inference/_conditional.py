@@ -81,6 +81,21 @@ def default_focal_units(design: Design, probabilities: np.ndarray, band: int) ->
     band and pure controls. Their own assignment is always "control", so the
     conditioning of the test is automatic and the test is exact under any
     design.
+
+    Parameters
+    ----------
+    design : Design
+        The design: its eligible units and exposure conditions.
+    probabilities : numpy.ndarray
+        (n_units, n_conditions) exposure probabilities of the design.
+    band : int
+        Condition code of the spillover band tested.
+
+    Returns
+    -------
+    numpy.ndarray
+        Positions, ascending, of the units not eligible whose probabilities of
+        the band and of pure control are both above 0.
     """
     pc = design.mapping.pure_control
     ok = (~design.eligible) & (probabilities[:, band] > 0) & (probabilities[:, pc] > 0)
@@ -113,6 +128,49 @@ def spillover_test(
     that can never be treated (:func:`default_focal_units`), for which the
     conditioning is automatic; eligible focal units are supported for
     complete randomization, where the conditional design is exact.
+
+    Parameters
+    ----------
+    design : Design
+        The design the assignment was drawn from.
+    observed : numpy.ndarray
+        Observed condition code of every unit.
+    treated : numpy.ndarray
+        The observed assignment (fixes the eligible focal units' own
+        treatment).
+    y : numpy.ndarray
+        Outcome per unit (e.g. incidents per unit).
+    probabilities : numpy.ndarray
+        (n_units, n_conditions) exposure probabilities of the design.
+    band : int
+        Condition code of the spillover band tested.
+    focal : numpy.ndarray, optional
+        Positions of the focal units (default: :func:`default_focal_units`);
+        at least 10.
+    n_draws : int, default 2000
+        Draws of the conditional design under the null.
+    rng : int, numpy.random.Generator or None
+        Seed or generator of the draws (default: the design's own stream for
+        this test and band).
+    estimator : {"hajek", "horvitz-thompson"}, default "hajek"
+        The contrast used as test statistic.
+    alternative : {"two-sided", "greater", "less", "absolute"}, default "two-sided"
+        Which values count as extreme (see :func:`significance`).
+    keep_null : bool, default False
+        Keep the statistic of every draw in the result.
+
+    Returns
+    -------
+    RandomizationTest
+        The observed contrast (band minus pure control among focal units), its
+        p-value with Monte Carlo error, the draws and the number of focal
+        units.
+
+    Raises
+    ------
+    geoexp.errors.InputError
+        Fewer than 10 focal units, or eligible focal units under a design other
+        than complete randomization.
     """
     y = np.asarray(y, dtype=float)
     pc = design.mapping.pure_control

@@ -35,6 +35,36 @@ def fisher_test(
     come from the design's sampler, so rerandomization rules, gaps and floors
     are respected. Rejecting "no effect at all" is not evidence of spillover
     in particular; see :func:`spillover_test`.
+
+    Parameters
+    ----------
+    design : geoexp.design.Design
+        The trial's design; its sampler gives the randomization distribution.
+    observed : numpy.ndarray
+        Observed exposure condition code of every unit.
+    y : numpy.ndarray
+        Outcome per unit (e.g. incidents in the post-period, or the change).
+    probabilities : numpy.ndarray
+        (n_units, n_conditions) exposure probabilities of the design.
+    contrast : ContrastSpec
+        Condition codes ``k`` and ``l`` and the mask of the units compared; the
+        contrast is the test statistic.
+    n_draws : int, default 2000
+        Draws of the design under the null.
+    rng : None, int, SeedSequence or Generator
+        Default: the design's own stream for this test.
+    estimator : {"hajek", "horvitz-thompson"}, default "hajek"
+        The contrast estimator used as statistic.
+    alternative : {"two-sided", "greater", "less", "absolute"}, default "two-sided"
+        Which values count as extreme (see :func:`significance`).
+    keep_null : bool, default False
+        Keep the statistic of every draw in the result.
+
+    Returns
+    -------
+    RandomizationTest
+        The observed statistic (in the outcome's units), its p-value with
+        Monte Carlo error and the number of draws.
     """
     labels = design.mapping.labels
     return contrast_test(

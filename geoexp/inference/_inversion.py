@@ -266,6 +266,47 @@ def invert_constant_effect(
     inversion with the equal-tailed two-sided rule of the one significance
     routine). Returns (low, high); an end is infinite where no rejection is
     found within a wide search range.
+
+    Parameters
+    ----------
+    design : geoexp.design.Design
+        The trial's design; its sampler gives the randomization distribution.
+    observed : numpy.ndarray
+        Observed exposure condition code of every unit.
+    y : numpy.ndarray
+        Outcome per unit (e.g. incidents in the post-period, or the change).
+    probabilities : numpy.ndarray
+        (n_units, n_conditions) exposure probabilities of the design.
+    contrast : ContrastSpec
+        Condition codes ``k`` and ``l`` and the mask of the units compared.
+    effects : numpy.ndarray
+        Constant additive effect of every condition against the reference, one
+        per condition code (in the outcome's units), held fixed for the
+        conditions other than ``k``.
+    n_draws : int, default 2000
+        Draws of the design for the interval.
+    rng : None, int, SeedSequence or Generator
+        Default: the design's stream for test inversion of condition ``k``.
+    level : float, default 0.95
+        Confidence level of the interval, a probability.
+    estimator : {"hajek"}, default "hajek"
+        The statistic; only the Hajek contrast is supported.
+    center : float, default 0.0
+        Where the search for the interval's ends starts.
+    scale : float, default 1.0
+        Typical size of the effect (e.g. the estimate's standard error): the
+        search starts 8 times this either side of ``center``.
+
+    Returns
+    -------
+    tuple of float
+        ``(low, high)`` in the outcome's units; an end is infinite where no
+        rejection is found.
+
+    Raises
+    ------
+    ValueError
+        ``estimator`` is not ``"hajek"``.
     """
     if estimator != "hajek":
         raise ValueError("test inversion is implemented for the Hajek statistic")

@@ -74,7 +74,14 @@ def _find_bundle() -> _Bundle | None:
 
 
 def offline_assets_available() -> bool:
-    """True if the shipped copies of Leaflet and Leaflet.draw can be inlined."""
+    """True if the shipped copies of Leaflet and Leaflet.draw can be inlined.
+
+    Returns
+    -------
+    bool
+        True when the shipped ``leaflet.js``, ``leaflet.css`` and
+        ``leaflet.draw.js`` are all present.
+    """
     return _find_bundle() is not None
 
 

@@ -21,7 +21,24 @@ DISTRICTS_DRAWN = "district outlines drawn around their units"
 
 
 def metres_per_unit(frame: gpd.GeoDataFrame | gpd.GeoSeries) -> float:
-    """Metres per unit of the frame's projected (or local planar) CRS; refuses a geographic CRS."""
+    """Metres per unit of the frame's projected (or local planar) CRS; refuses a geographic CRS.
+
+    Parameters
+    ----------
+    frame : geopandas.GeoDataFrame or geopandas.GeoSeries
+        A layer with a CRS.
+
+    Returns
+    -------
+    float
+        Metres in one unit of the CRS's first axis (1.0 for metres, 0.3048 for
+        international feet).
+
+    Raises
+    ------
+    geoexp.errors.CRSError
+        The CRS is geographic (degrees have no fixed length in metres).
+    """
     crs = pyproj.CRS(frame.crs)
     if not (crs.is_projected or crs.is_engineering):
         raise CRSError(f"map layers must be in a projected CRS to draw distances; got {crs.name}")
@@ -62,9 +79,25 @@ def district_outlines(
     The web maps, the result maps and the briefing pack all call this, so they
     draw the same districts.
 
+    Parameters
+    ----------
+    units : geopandas.GeoDataFrame
+        The units, in a projected or local planar CRS.
+    column : str or None
+        The units' district column (also the name column looked for in
+        ``districts``).
+    districts : str, os.PathLike or geopandas.GeoDataFrame, optional
+        District polygons to draw instead of outlines grown from the units.
+
     Returns
     -------
-    (GeoDataFrame with a ``name`` column, in the units' CRS, or None; str)
+    outlines : geopandas.GeoDataFrame or None
+        One polygon per district with a ``name`` column, in the units' CRS
+        (given districts reprojected to it); None when neither ``districts``
+        nor a ``column`` the units have is given.
+    note : str
+        Where they came from: :data:`DISTRICTS_GIVEN` or
+        :data:`DISTRICTS_DRAWN`, empty with no outlines.
     """
     if districts is not None:
         out = read_polygons(districts, "districts", units.crs)

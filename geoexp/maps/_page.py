@@ -388,7 +388,22 @@ def add_eligible(page: Page, n_eligible: int) -> None:
 
 
 def map_html(m) -> tuple[str, list[str]]:
-    """Render a folium map to a page with its scripts inlined; also return remaining remote URLs."""
+    """Render a folium map to a page with its scripts inlined; also return remaining remote URLs.
+
+    Parameters
+    ----------
+    m : folium.Map
+        The map.
+
+    Returns
+    -------
+    html : str
+        The page, with Leaflet and Leaflet.draw inlined when the shipped copies
+        are found (see :func:`inline_assets`).
+    remote : list of str
+        Script and style URLs the page still loads from the network (empty when
+        it is self-contained).
+    """
     return inline_assets(m.get_root().render())
 
 

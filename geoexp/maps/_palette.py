@@ -127,7 +127,19 @@ def condition_style(code: str) -> ConditionStyle:
 
 
 def condition_order(codes) -> list[str]:
-    """Sort condition codes as maps list them: treated, spillover bands outwards, pure control."""
+    """Sort condition codes as maps list them: treated, spillover bands outwards, pure control.
+
+    Parameters
+    ----------
+    codes : iterable of str
+        Condition codes, repeats allowed.
+
+    Returns
+    -------
+    list of str
+        Each code once: ``"treated"``, then ``"spillover_<k>"`` by increasing k,
+        then ``"pure_control"``, then any other code.
+    """
 
     def key(code: str) -> tuple[int, int]:
         if code == "treated":

@@ -147,6 +147,17 @@ def change_limit(change: np.ndarray) -> float:
 
     The 95th percentile of the absolute change, rounded up, so that units
     beyond it take the end colours and the scale says "or more".
+
+    Parameters
+    ----------
+    change : numpy.ndarray
+        Change in incidents per unit (after minus before); NaN where a unit has
+        no value, ignored.
+
+    Returns
+    -------
+    float
+        The limit in incidents per unit; 1.0 when no value is finite.
     """
     finite = np.abs(change[np.isfinite(change)])
     if finite.size == 0:

@@ -333,5 +333,24 @@ def save_result_map(
     tiles: str | None = "auto",
     districts: str | os.PathLike | gpd.GeoDataFrame | None = None,
 ) -> Path:
-    """Make :func:`result_map` and write it with :func:`~geoexp.maps.save_map`; return the path."""
+    """Make :func:`result_map` and write it with :func:`~geoexp.maps.save_map`; return the path.
+
+    Parameters
+    ----------
+    analysis : geoexp.analysis.Analysis
+        The analysis to map.
+    trial : TrialFile, str or os.PathLike
+        The trial file it was computed from.
+    path : str or os.PathLike
+        The HTML page to write.
+    tiles : str or None, default "auto"
+        Background tiles, as for :func:`result_map`.
+    districts : str, os.PathLike or geopandas.GeoDataFrame, optional
+        District polygons to draw instead of outlines around the units.
+
+    Returns
+    -------
+    pathlib.Path
+        The page written.
+    """
     return save_map(result_map(analysis, trial, tiles=tiles, districts=districts), Path(path))

@@ -57,7 +57,21 @@ class PrintLineStyle:
 
 
 def line_style(code: str) -> PrintLineStyle:
-    """The project's style of a condition (:func:`geoexp.maps.condition_style`), sized for paper."""
+    """The project's style of a condition (:func:`geoexp.maps.condition_style`), sized for paper.
+
+    Parameters
+    ----------
+    code : str
+        A condition code: ``"treated"``, ``"spillover_<k>"`` (band k) or any
+        other (control, ineligible).
+
+    Returns
+    -------
+    PrintLineStyle
+        Colour, line width in points, dash pattern and drawing order: treated on
+        top (6), the spillover bands below it, nearer bands higher, the rest
+        at 2.
+    """
     look = condition_style(code)
     if code == "treated":
         zorder = 6.0
@@ -69,7 +83,19 @@ def line_style(code: str) -> PrintLineStyle:
 
 
 def line_segments(geoms: np.ndarray) -> list[np.ndarray]:
-    """Coordinate arrays of the lines to draw: lines as they are, polygons by their boundaries."""
+    """Coordinate arrays of the lines to draw: lines as they are, polygons by their boundaries.
+
+    Parameters
+    ----------
+    geoms : numpy.ndarray
+        Shapely geometries (lines, polygons, points or collections of them).
+
+    Returns
+    -------
+    list of numpy.ndarray
+        One (n, 2) array of coordinates per line part, in the geometries' CRS;
+        points are left out. Empty when ``geoms`` is empty.
+    """
     if len(geoms) == 0:
         return []
     polygonal = np.isin(shapely.get_type_id(geoms), (3, 6))
@@ -91,6 +117,18 @@ def draw_units_by_condition(
 
     Treated units get a black casing, so they stay the darkest lines on a grey
     printout; point units are drawn as dots.
+
+    Parameters
+    ----------
+    ax : matplotlib.axes.Axes
+        The map's axes.
+    frame : geopandas.GeoDataFrame
+        The units, with a ``condition`` column of condition codes.
+    conditions : sequence of str, optional
+        The codes to draw, in drawing order (default: every code in ``frame``,
+        in order of first appearance).
+    alpha : float, default 1.0
+        Opacity, 0 (invisible) to 1 (opaque).
     """
     codes = conditions if conditions is not None else frame["condition"].unique()
     for code in codes:
@@ -133,7 +171,20 @@ def draw_units_by_condition(
 
 
 def condition_handle(code: str, label: str) -> Line2D:
-    """A legend handle for a condition's print line (with the treated casing)."""
+    """A legend handle for a condition's print line (with the treated casing).
+
+    Parameters
+    ----------
+    code : str
+        The condition code whose print line style the handle shows.
+    label : str
+        The legend text.
+
+    Returns
+    -------
+    matplotlib.lines.Line2D
+        An empty line carrying the style and label, for ``ax.legend``.
+    """
     style = line_style(code)
     casing = (
         [
@@ -155,7 +206,18 @@ def condition_handle(code: str, label: str) -> Line2D:
 
 
 def district_handle(label: str) -> Line2D:
-    """A legend handle for the district outlines."""
+    """A legend handle for the district outlines.
+
+    Parameters
+    ----------
+    label : str
+        The legend text.
+
+    Returns
+    -------
+    matplotlib.lines.Line2D
+        An empty line in the district outline's colour, width and dashes.
+    """
     return Line2D(
         [],
         [],
@@ -172,6 +234,20 @@ def draw_district_outlines(
     """District outlines (from :func:`geoexp.maps.district_outlines`) as dark dashed lines.
 
     The collection has the ``gid`` ``"districts"``. Returns a legend handle.
+
+    Parameters
+    ----------
+    ax : matplotlib.axes.Axes
+        The map's axes.
+    outlines : geopandas.GeoDataFrame or geopandas.GeoSeries
+        The outlines, in the map's CRS.
+    label : str, default "district"
+        The legend text of the handle.
+
+    Returns
+    -------
+    matplotlib.lines.Line2D
+        The legend handle (see :func:`district_handle`).
     """
     geoms = np.asarray(outlines.geometry.array if hasattr(outlines, "geometry") else outlines.array)
     lines = LineCollection(
@@ -192,6 +268,24 @@ def halo_text(ax: Axes, x: float, y: float, text: str, *, halo: float = 2.6, **k
     Matplotlib draws text that has path effects as outlines, which a PDF reader
     cannot search or copy; so the halo is a separate outline-only copy drawn
     underneath, and the text on top stays text.
+
+    Parameters
+    ----------
+    ax : matplotlib.axes.Axes
+        The axes to write on.
+    x, y : float
+        Position in data coordinates (or in the ``transform`` given).
+    text : str
+        The text.
+    halo : float, default 2.6
+        Width of the white halo in points.
+    **kwargs
+        Passed to :meth:`matplotlib.axes.Axes.text` for both copies.
+
+    Returns
+    -------
+    matplotlib.text.Text
+        The text on top (the halo copy is not returned).
     """
     ax.text(
         x,
@@ -204,7 +298,18 @@ def halo_text(ax: Axes, x: float, y: float, text: str, *, halo: float = 2.6, **k
 
 
 def nice_length(limit: float) -> float:
-    """Largest 1, 2 or 5 times a power of ten that does not exceed ``limit`` (> 0)."""
+    """Largest 1, 2 or 5 times a power of ten that does not exceed ``limit`` (> 0).
+
+    Parameters
+    ----------
+    limit : float
+        The upper bound, greater than 0 (e.g. metres).
+
+    Returns
+    -------
+    float
+        The length, in the unit of ``limit``.
+    """
     power = 10.0 ** math.floor(math.log10(limit))
     for step in (5.0, 2.0, 1.0):
         if step * power <= limit * (1 + 1e-12):
@@ -233,6 +338,25 @@ def scale_bar(
     international feet, 1200/3937 for US survey feet), so the bar is right in
     any projected CRS. The bar is the longest 1-2-5 length within ``fraction``
     of the map's width, in four alternating blocks.
+
+    Parameters
+    ----------
+    ax : matplotlib.axes.Axes
+        The map's axes.
+    metres_per_unit : float
+        Metres in one data unit of the map's CRS.
+    fraction : float, default 0.25
+        The longest the bar may be, as a share of the map's width.
+    anchor : tuple of float, default (0.03, 0.04)
+        Lower-left corner of the bar in axes fractions (0 to 1).
+    unit : {"m", "ft"}, default "m"
+        Label the bar in metres (kilometres from 1000 m) or in feet of the
+        layer's own kind.
+
+    Returns
+    -------
+    float
+        The bar's length in metres.
     """
     x0, x1 = ax.get_xlim()
     y0, y1 = ax.get_ylim()
@@ -298,6 +422,18 @@ def true_north_angle(crs, x: float, y: float) -> float:
     and projecting back. Local planar coordinates (an engineering CRS, no
     geographic reference) have no true north to find: the angle is 0, grid
     north, and the arrow says so (see :func:`scale_bar_and_north_arrow`).
+
+    Parameters
+    ----------
+    crs : pyproj.CRS, str or int
+        The map's CRS (anything :meth:`pyproj.CRS.from_user_input` accepts).
+    x, y : float
+        The point, in the map's CRS.
+
+    Returns
+    -------
+    float
+        The angle in degrees, counter-clockwise; 0 for local planar coordinates.
     """
     from pyproj import CRS, Transformer
 
@@ -379,6 +515,17 @@ def scale_bar_and_north_arrow(ax: Axes, *, crs, metres_per_unit: float, bounds) 
     extent the map shows. A layer in local planar coordinates gets an arrow to
     grid north labelled "grid N" and, when its unit is the foot, a scale bar
     in feet.
+
+    Parameters
+    ----------
+    ax : matplotlib.axes.Axes
+        The map's axes, with their final limits.
+    crs : pyproj.CRS, str or int
+        The map's CRS.
+    metres_per_unit : float
+        Metres in one data unit of the map's CRS.
+    bounds : tuple of float
+        ``(xmin, ymin, xmax, ymax)`` in the map's CRS.
     """
     from pyproj import CRS
 

@@ -277,6 +277,30 @@ def report_context(
 
     ``report_path`` is where the report will be written (links are relative to
     it). See :func:`geoexp.report.write_report` for the other parameters.
+
+    Parameters
+    ----------
+    analysis : geoexp.analysis.Analysis
+        The analysis to report.
+    report_path : str or pathlib.Path
+        Where the report will be written.
+    trial : TrialFile, optional
+        The trial file, for the static result map.
+    extra_figures : dict of str to callable, optional
+        Further figures: title to ``f(ax)``, each drawn on a 7 by 7 inch
+        figure.
+    result_map_html : str or pathlib.Path, optional
+        The interactive result map to link to.
+    static_map : bool, default True
+        Include the static result map (when ``trial`` is given).
+    districts : str, os.PathLike or geopandas.GeoDataFrame, optional
+        District polygons for the static result map.
+
+    Returns
+    -------
+    ReportContext
+        Everything the HTML, Markdown and PDF reports show, figures rendered
+        as PNG.
     """
     figures = [
         ReportFigure(

@@ -15,6 +15,20 @@ def distance_decay_plot(analysis: Analysis, ax=None):
     """Spillover estimate with its interval for each distance band (and the direct effect).
 
     Returns the matplotlib Axes.
+
+    Parameters
+    ----------
+    analysis : geoexp.analysis.Analysis
+        The analysis: its effects (incidents per unit), intervals and band
+        edges.
+    ax : matplotlib.axes.Axes, optional
+        The axes to draw on (default: a new 6.4 by 3.6 inch figure).
+
+    Returns
+    -------
+    matplotlib.axes.Axes
+        The axes: distance to the nearest treated unit (metres or feet, as the
+        analysis) across, effect in incidents per unit up.
     """
     if ax is None:
         import matplotlib.pyplot as plt  # interactive use only; reports draw on plain Figures

@@ -46,6 +46,25 @@ def render_report(
     """The report as text: ``"html"`` (figures embedded) or ``"md"``.
 
     ``figure_files`` names, for Markdown, the image file of each figure in order.
+
+    Parameters
+    ----------
+    context : ReportContext
+        The report's sections, numbers and figures.
+    kind : {"html", "md"}
+        HTML with the figures embedded as PNG, or Markdown.
+    figure_files : sequence of str, default ()
+        For Markdown, the image file name of each figure, in order.
+
+    Returns
+    -------
+    str
+        The report's text.
+
+    Raises
+    ------
+    ValueError
+        ``kind`` is neither ``"html"`` nor ``"md"``.
     """
     if kind not in ("html", "md"):
         raise ValueError(f"report kind must be 'html' or 'md', not {kind!r}")
@@ -78,6 +97,31 @@ def write_report(
     one-page summary for command staff first (:func:`write_pdf_report`).
     Returns (html_path, markdown_path); the Markdown's figures are PNG files
     beside it.
+
+    Parameters
+    ----------
+    analysis : geoexp.analysis.Analysis
+        The analysis to report.
+    path : str or pathlib.Path
+        The HTML report to write; the Markdown twin gets the same name with
+        ``.md``.
+    trial : TrialFile, optional
+        The trial file, for the static result map.
+    extra_figures : dict of str to callable, optional
+        Further figures: title to ``f(ax)``.
+    result_map_html : str or pathlib.Path, optional
+        The interactive result map to link to.
+    static_map : bool, default True
+        Embed the static result map (when ``trial`` is given).
+    districts : str, os.PathLike or geopandas.GeoDataFrame, optional
+        District polygons for the static result map.
+    pdf_path : str or pathlib.Path, optional
+        Also write the A4 PDF report here.
+
+    Returns
+    -------
+    tuple of pathlib.Path
+        ``(html_path, markdown_path)``.
     """
     path = Path(path)
     md_path = path.with_suffix(".md")

@@ -203,7 +203,21 @@ def load_sample_region(path: str | Path | None = None) -> SampleRegion:
 
 
 def write_sample_region(region: SampleRegion, path: str | Path) -> Path:
-    """Write ``region`` to a GeoPackage, one layer per frame, atomically."""
+    """Write ``region`` to a GeoPackage, one layer per frame, atomically.
+
+    Parameters
+    ----------
+    region : SampleRegion
+        The invented region (the fictional city of Quillmere), one frame per
+        layer.
+    path : str or pathlib.Path
+        The GeoPackage to write (replaced atomically if it exists).
+
+    Returns
+    -------
+    pathlib.Path
+        ``path``.
+    """
     path = Path(path)
     with atomic_path(path) as tmp:
         for layer in LAYERS:

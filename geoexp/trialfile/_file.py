@@ -385,6 +385,11 @@ def write_trial(
     notify : callable, optional
         Receives notes such as "waiting for another geoexp command ...".
 
+    Returns
+    -------
+    TrialFile
+        The trial file, opened again after the write.
+
     Raises
     ------
     geoexp.errors.LockedTrialError
@@ -519,6 +524,34 @@ def export_assignment_csv(
     from the unit layer. Only eligible units are listed, treated ones first: the
     field team must know where to deliver the intervention and which eligible
     places to leave as they are.
+
+    Parameters
+    ----------
+    trial : TrialFile, str or pathlib.Path
+        The trial file (or its path).
+    path : str or pathlib.Path
+        The CSV file to write (UTF-8, written atomically).
+    district_column : str, optional
+        Unit column giving the district (default: the spec's
+        ``district_column``).
+    description_column : str, optional
+        Unit column describing the place, e.g. the street and cross streets
+        (default: the spec's ``description_column``).
+    instructions_column : str, optional
+        Unit column with instructions for the field team (default: the spec's
+        ``instructions_column``).
+
+    Returns
+    -------
+    pandas.DataFrame
+        The rows written, indexed by unit id: the named columns, ``condition``
+        (its label) and ``treated``; eligible units only, treated first, then
+        by condition.
+
+    Raises
+    ------
+    geoexp.errors.InputError
+        A named column is not in the unit layer.
     """
     trial = trial if isinstance(trial, TrialFile) else TrialFile.open(trial)
     spec = trial.spec()

@@ -45,6 +45,21 @@ def outcomes_fingerprint(
     ``pre`` and ``post`` are ``(start, end)`` dates or the ``"start/end"`` text
     stored in trial files. Counts that are not whole numbers give a fingerprint
     that matches no saved table.
+
+    Parameters
+    ----------
+    counts : pandas.DataFrame
+        Incident counts per unit, indexed by unit id; a ``geometry`` column, if
+        any, is left out of the fingerprint.
+    pre : tuple of datetime.date or str
+        The period before treatment, ``(start, end)`` or ``"start/end"``.
+    post : tuple of datetime.date or str
+        The period after treatment, in the same form.
+
+    Returns
+    -------
+    str
+        The SHA-256 digest, 64 hexadecimal digits.
     """
     from geoexp.design import frame_digest
 
@@ -58,7 +73,19 @@ def outcomes_fingerprint(
 
 
 def results_fingerprint(table: pd.DataFrame) -> str:
-    """SHA-256 of a results table as stored."""
+    """SHA-256 of a results table as stored.
+
+    Parameters
+    ----------
+    table : pandas.DataFrame
+        The results table, as written to the trial file.
+
+    Returns
+    -------
+    str
+        The SHA-256 digest of its values in order (index left out), 64
+        hexadecimal digits.
+    """
     from geoexp.design import frame_digest
 
     return frame_digest(pd.DataFrame(table), index=False)

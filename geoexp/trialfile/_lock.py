@@ -30,7 +30,19 @@ log = logging.getLogger("geoexp.trialfile")
 
 
 def lock_path(trial: str | os.PathLike[str]) -> Path:
-    """The lock file of a trial: ``<trial>.lock`` beside it."""
+    """The lock file of a trial: ``<trial>.lock`` beside it.
+
+    Parameters
+    ----------
+    trial : str or os.PathLike
+        The trial GeoPackage (it need not exist).
+
+    Returns
+    -------
+    pathlib.Path
+        The lock file: the trial's file name with ``.lock`` appended, in the
+        same folder.
+    """
     trial = Path(trial)
     return trial.with_name(trial.name + ".lock")
 

@@ -50,6 +50,32 @@ def store_outcomes(
     writing. ``meta`` must hold ``outcomes_pre`` and ``outcomes_post``
     (``"start/end"``); the outcomes fingerprint, the draw number and the time
     are added. Earlier outcomes and any results go to the superseded layers.
+
+    Parameters
+    ----------
+    trial : TrialFile, str or os.PathLike
+        The trial file (or its path).
+    counts : pandas.DataFrame
+        Incident counts per unit, indexed by unit id, one row for every unit
+        the trial holds.
+    meta : dict of str to str
+        ``outcomes_*`` meta entries, with ``outcomes_pre`` and
+        ``outcomes_post`` as ``"start/end"`` dates.
+    wait_s : float, optional
+        Seconds to wait for another writer of the same trial.
+    notify : callable, optional
+        Receives plain-words notes (a wait for another writer, say).
+
+    Returns
+    -------
+    TrialFile
+        The trial file, opened again after the write.
+
+    Raises
+    ------
+    geoexp.errors.InputError
+        ``counts`` names ids the trial lacks or misses some of its units (the
+        message names both counts and the first rows).
     """
     path = Path(trial.path if isinstance(trial, TrialFile) else trial)
 
@@ -113,6 +139,38 @@ def store_results(
     the results were computed from; otherwise the trial changed since the
     analysis (a redraw, new counts) and the results would be filed under the
     wrong design. Earlier results go to ``superseded_results``.
+
+    Parameters
+    ----------
+    trial : TrialFile, str or os.PathLike
+        The trial file (or its path).
+    table : pandas.DataFrame
+        The results table to store.
+    meta : dict of str to str
+        ``results_*`` meta entries.
+    design_fingerprint : str, default ""
+        Design fingerprint (64 hex digits) the results were computed for;
+        empty to check ``spec_hash`` instead.
+    outcomes_fingerprint : str, default ""
+        Fingerprint of the outcomes the results were computed from; empty to
+        skip that check.
+    spec_hash : str, default ""
+        Spec hash, checked only when ``design_fingerprint`` is empty.
+    wait_s : float, optional
+        Seconds to wait for another writer of the same trial.
+    notify : callable, optional
+        Receives plain-words notes (a wait for another writer, say).
+
+    Returns
+    -------
+    TrialFile
+        The trial file, opened again after the write.
+
+    Raises
+    ------
+    geoexp.errors.TrialIntegrityError
+        The trial's design or stored outcomes are not those the results were
+        computed from.
     """
     path = Path(trial.path if isinstance(trial, TrialFile) else trial)
 

@@ -56,6 +56,23 @@ def planar_crs(unit: Planar) -> pyproj.CRS:
 
     Its name, "local planar coordinates in metres (no CRS)" (or feet), is what
     every output shows; it carries no EPSG code and no datum.
+
+    Parameters
+    ----------
+    unit : {"m", "ft", "us-ft"}
+        The unit of the layer's coordinates: metres, international feet
+        (0.3048 m) or US survey feet (1200/3937 m).
+
+    Returns
+    -------
+    pyproj.CRS
+        A two-axis Cartesian engineering CRS (easting, northing) in ``unit``,
+        with no datum and no EPSG code.
+
+    Raises
+    ------
+    geoexp.errors.CRSError
+        ``unit`` is not one of the three above.
     """
     if unit not in _PLANAR:
         raise CRSError(
@@ -71,7 +88,19 @@ def planar_crs(unit: Planar) -> pyproj.CRS:
 
 
 def is_planar(crs: object) -> bool:
-    """True for local planar coordinates: an engineering CRS with no geographic reference."""
+    """True for local planar coordinates: an engineering CRS with no geographic reference.
+
+    Parameters
+    ----------
+    crs : pyproj.CRS, str, int or None
+        Anything :meth:`pyproj.CRS.from_user_input` accepts, or None (no CRS).
+
+    Returns
+    -------
+    bool
+        True if ``crs`` is an engineering CRS (local planar coordinates); False
+        for a geographic or projected CRS and for None.
+    """
     if crs is None:
         return False
     return bool(pyproj.CRS.from_user_input(crs).is_engineering)
@@ -147,6 +176,18 @@ def describe_crs(crs: pyproj.CRS) -> str:
 
     Local planar coordinates are described by their name alone (a declared
     layer: "local planar coordinates in metres (no CRS)"), never with a code.
+
+    Parameters
+    ----------
+    crs : pyproj.CRS
+        The CRS to describe.
+
+    Returns
+    -------
+    str
+        The CRS's name and its authority code in brackets (``"no EPSG code"``
+        when it has none); for local planar coordinates the name alone, or the
+        name followed by "(local planar coordinates)".
     """
     if crs.is_engineering:
         if crs.name.startswith(_PLANAR_PREFIX):
