@@ -278,3 +278,21 @@ def test_every_row_is_about_one_set_of_units_and_its_interval_agrees_with_its_te
             assert d.reading.startswith("not read")
     frame = analysis.rows_frame()
     assert {"units", "left_out", "rate_ratio", "ess_exposure", "finding"} <= set(frame)
+
+
+def test_total_net_effect_printed_only_when_every_part_is_clear(analysis):
+    from dataclasses import replace
+
+    text = str(analysis)
+    clear = all(d.direct_effect_clear and d.buffer_effect_clear for d in analysis.displacement)
+    assert ("incidents prevented" in text) == clear
+    assert ("Total net effect not given" in text) == (not clear)
+    # With every part marked clear the sum is printed, labelled descriptive.
+    marked = replace(
+        analysis,
+        displacement=tuple(
+            replace(d, direct_effect_clear=True, buffer_effect_clear=True)
+            for d in analysis.displacement
+        ),
+    )
+    assert "Total net effect (descriptive, no interval" in str(marked)

@@ -208,11 +208,17 @@ class Analysis:
         if self.displacement:
             lines.append("")
             lines += [f"  {d}" for d in self.displacement]
-            if np.isfinite(self.total_net_effect):
+            clear = all(d.direct_effect_clear and d.buffer_effect_clear for d in self.displacement)
+            if np.isfinite(self.total_net_effect) and clear:
                 lines.append(
-                    f"  Total net effect (treated area counted once, every band added): "
-                    f"{self.total_net_effect:+.1f} incidents prevented; control trend "
-                    f"(pure controls after / before) {self.control_trend:.3f}"
+                    f"  Total net effect (descriptive, no interval; treated area counted once, "
+                    f"every band added): {self.total_net_effect:+.1f} incidents prevented; "
+                    f"control trend (pure controls after / before) {self.control_trend:.3f}"
+                )
+            elif np.isfinite(self.total_net_effect):
+                lines.append(
+                    "  Total net effect not given: the treated change or a band's own test is "
+                    "not clear, so a sum of incidents 'prevented' would read chance as an effect."
                 )
         if self.notes:
             lines.append("")
