@@ -10,7 +10,7 @@ import numpy as np
 
 from geoexp._rng import RngLike, Stream
 from geoexp._significance import Alternative, RandomizationTest
-from geoexp.design import CompleteSampler, Draws
+from geoexp.design import CompleteSampler, Draws, Sampler
 from geoexp.errors import InputError
 from geoexp.inference._draws import ContrastSpec, contrast_test
 
@@ -40,6 +40,8 @@ class FixedFocalSampler:
         """Condition a complete design on the assignment of the focal units."""
         focal = np.asarray(focal)
         fixed = np.intersect1d(focal, np.flatnonzero(treated))
+        # a constructed CompleteSampler always holds its eligible positions
+        assert sampler.eligible is not None
         rest = np.setdiff1d(sampler.eligible, focal)
         m = sampler.n_treated - fixed.size
         if m < 1 or m > rest.size:
@@ -125,7 +127,7 @@ def spillover_test(
     mask = np.zeros(design.units.n, dtype=bool)
     mask[focal] = True
     spec = ContrastSpec(band, pc, mask)
-    sampler = design.sampler
+    sampler: Sampler | FixedFocalSampler = design.sampler
     if design.eligible[focal].any():
         if not isinstance(sampler, CompleteSampler):
             raise InputError(
