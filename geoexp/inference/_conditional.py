@@ -13,6 +13,7 @@ from geoexp._significance import Alternative, RandomizationTest
 from geoexp.design import CompleteSampler, Draws, Sampler
 from geoexp.errors import InputError
 from geoexp.inference._draws import ContrastSpec, contrast_test
+from geoexp.inference._statistic import Statistic
 
 if TYPE_CHECKING:
     from geoexp.design import Design
@@ -100,7 +101,7 @@ def spillover_test(
     focal: np.ndarray | None = None,
     n_draws: int = 2000,
     rng: RngLike = None,
-    estimator: str = "hajek",
+    estimator: Statistic = "hajek",
     alternative: Alternative = "two-sided",
     keep_null: bool = False,
 ) -> RandomizationTest:
