@@ -4,6 +4,7 @@ from __future__ import annotations
 
 from collections.abc import Callable
 from pathlib import Path
+from typing import Any
 
 import geopandas as gpd
 import pandas as pd
@@ -24,7 +25,7 @@ def demo_spec(
     region_path: str | Path, out: str | Path, *, exclusion: str | None = None
 ) -> DesignSpec:
     """Return the demo design: 40 of the top 150 hot-spot segments, kept 150 m apart, bands 150/300 m."""
-    data = {
+    data: dict[str, Any] = {
         "name": "Quillmere hot-spot foot patrols (demo)",
         "seed": 20261202,
         "draws": 2000,
@@ -69,7 +70,7 @@ def run_demo(out: str | Path, *, n_draws: int = 2000, echo: Callable[[str], None
     out = Path(out)
     out.mkdir(parents=True, exist_ok=True)
     region = load_sample_region()
-    region_path = region.path
+    region_path: str | Path | None = region.path
     if region_path is None:
         from geoexp.sampleregion import write_sample_region
 

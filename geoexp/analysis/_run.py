@@ -2,9 +2,9 @@
 
 from __future__ import annotations
 
+import os
 from collections.abc import Callable
 from dataclasses import replace
-from pathlib import Path
 from typing import Literal
 
 import numpy as np
@@ -80,7 +80,7 @@ def _near_pairs(design: Design) -> tuple[np.ndarray, np.ndarray]:
 
 
 def analyse(
-    trial: TrialFile | str | Path,
+    trial: TrialFile | str | os.PathLike[str],
     outcomes: OutcomeTable | None = None,
     *,
     outcome: Outcome = "change",
@@ -568,7 +568,7 @@ def _saturation_table(design: Design, assignment: Assignment, y: np.ndarray) -> 
 
 
 def save_results(
-    trial: TrialFile | str | Path,
+    trial: TrialFile | str | os.PathLike[str],
     analysis: Analysis,
     *,
     wait_s: float | None = None,

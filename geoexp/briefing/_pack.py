@@ -104,6 +104,8 @@ def briefing_pack(
 def _figures(data, plan, district_polygons) -> Iterator[Figure]:
     printed_at = human_time(dt.datetime.now(dt.UTC).replace(microsecond=0))
     found, _ = district_outlines(data.frame, "district", district_polygons)
+    # the loaded frame always has a "district" column, so outlines are always found
+    assert found is not None
     # The series' name is the outlines' legend label: exact boundaries, or outlines drawn
     # around each district's units.
     outlines = gpd.GeoSeries(

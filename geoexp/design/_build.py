@@ -138,6 +138,8 @@ def _quotas(spec: DesignSpec, blocks: np.ndarray) -> dict[str, int]:
         return {str(k): int(a.block_quotas.get(k, 0)) for k in labels}
     if a.block_treated is not None:
         return {k: int(a.block_treated) for k in labels}
+    # the spec holds exactly one of quotas, a count or a share per block
+    assert a.block_share is not None
     # round half up, so a share of 0.5 of 3 units treats 2 (stated in the check report)
     return dict(zip(labels, _round_half_up(a.block_share * sizes).tolist(), strict=True))
 
@@ -155,6 +157,7 @@ def _separated(
     inputs: SamplerInputs, m: int | None, blocks: np.ndarray | None, quotas: dict | None
 ) -> SeparatedSampler:
     gap = inputs.spec.assignment.gap_m
+    assert gap is not None  # only designs with a gap are kept apart
     gap_indptr, gap_indices = _gap_csr(inputs.graph, gap)
     return SeparatedSampler(
         inputs.units.n,
@@ -171,7 +174,11 @@ def _complete(inputs: SamplerInputs) -> Sampler:
     """Complete randomization (kept apart when ``gap_m`` is given)."""
     a = inputs.spec.assignment
     n_e = int(inputs.eligible.sum())
-    m = int(a.treated) if a.treated is not None else int(_round_half_up(a.share * n_e))
+    if a.treated is not None:
+        m = int(a.treated)
+    else:
+        assert a.share is not None  # the spec holds exactly one of treated and share
+        m = int(_round_half_up(a.share * n_e))
     if a.gap_m is not None:
         return _separated(inputs, m, None, None)
     return CompleteSampler(inputs.units.n, inputs.positions, m)
@@ -180,6 +187,7 @@ def _complete(inputs: SamplerInputs) -> Sampler:
 def _blocked(inputs: SamplerInputs) -> Sampler:
     """Blocked randomization with a fixed number per block (kept apart when ``gap_m`` is given)."""
     a = inputs.spec.assignment
+    assert a.block_column is not None  # the spec requires it of a blocked design
     blocks = _labels(inputs.units, a.block_column, inputs.eligible, "block")
     quotas = _quotas(inputs.spec, blocks)
     if a.gap_m is not None:
@@ -190,6 +198,7 @@ def _blocked(inputs: SamplerInputs) -> Sampler:
 def _saturation(inputs: SamplerInputs) -> Sampler:
     """Randomized saturation over clusters (Baird, Bohren, McIntosh & Özler 2018)."""
     a = inputs.spec.assignment
+    assert a.cluster_column is not None  # the spec requires it of a saturation design
     clusters = _labels(inputs.units, a.cluster_column, inputs.eligible, "cluster")
     return SaturationSampler(
         inputs.units.n,

@@ -3,14 +3,19 @@
 from __future__ import annotations
 
 from collections.abc import Iterator
-from dataclasses import dataclass
+from dataclasses import dataclass, field
+from typing import TYPE_CHECKING
 
 import numpy as np
 
 from geoexp._rng import RngLike, as_seed_sequence, child_sequence
 from geoexp.design._draws import Draws
+from geoexp.design._protocol import Sampler
 from geoexp.errors import InfeasibleDesignError
 from geoexp.exposure import BandedReach, ExposureMapping, condition_sums
+
+if TYPE_CHECKING:
+    from geoexp.graph import ExposureGraph
 
 _PILOT = 400
 _BATCH = 1_000
@@ -28,11 +33,13 @@ class PureControlFloor:
     design are those of this conditioned procedure, estimated by Monte Carlo.
     """
 
-    base: object
-    graph: object
+    base: Sampler
+    graph: ExposureGraph
     mapping: ExposureMapping
     eligible: np.ndarray
     floor: int
+    _reach: BandedReach = field(init=False, repr=False)
+    _pilot_rate: float = field(init=False, repr=False)
 
     def __post_init__(self) -> None:
         # the graph and its band codes, prepared once for every batch of draws

@@ -17,6 +17,7 @@ from typing import TYPE_CHECKING
 import numpy as np
 import pandas as pd
 
+from geoexp._engine import Engine
 from geoexp._progress import tracked
 from geoexp._rng import RngLike, as_seed_sequence
 from geoexp.errors import InputError
@@ -264,7 +265,7 @@ def _condition_bits(
     rng: RngLike,
     *,
     units: np.ndarray | None = None,
-    engine: str = "auto",
+    engine: Engine = "auto",
 ) -> ConditionBits:
     """:func:`condition_bits` with a choice of engine (numba or the numpy twin: identical bits)."""
     positions = np.arange(graph.n) if units is None else np.asarray(units, dtype=np.int64)

@@ -35,6 +35,16 @@ class DrawSource(Protocol):
         ...
 
 
+class TreatedRows(Protocol):
+    """Draws as CSR rows of treated positions (``indptr``, ``indices``)."""
+
+    @property
+    def indptr(self) -> np.ndarray: ...
+
+    @property
+    def indices(self) -> np.ndarray: ...
+
+
 def reach_csr(graph: ExposureGraph, mapping: ExposureMapping) -> tuple[np.ndarray, ...]:
     """CSR arrays (indptr, indices, distances) of the design's banded reach graph."""
     reach = BandedReach.of(graph, mapping)
@@ -42,7 +52,7 @@ def reach_csr(graph: ExposureGraph, mapping: ExposureMapping) -> tuple[np.ndarra
 
 
 def condition_sums(
-    draws: DrawSource | object,
+    draws: TreatedRows,
     reach: BandedReach,
     weights: np.ndarray,
     *,
@@ -84,6 +94,8 @@ def condition_sums(
         engine=engine,
         g_code=reach.codes,
     )
+    # weights were given, so the sums are there
+    assert sums is not None
     return sums
 
 
@@ -297,7 +309,8 @@ def exposure_probabilities(
         names = tuple(map(str, covariates.columns))
     seq = as_seed_sequence(rng)
     counts = np.zeros((graph.n, mapping.n_conditions), dtype=np.int64)
-    sizes, sums = [], []
+    sizes: list[np.ndarray] = []
+    sums: list[np.ndarray] = []
     seen = 0
     advance = tracked("draws of the design", n_draws)
     for chunk in sampler.iter_chunks(n_draws, seq):
@@ -317,12 +330,15 @@ def exposure_probabilities(
         seen += chunk.indptr.size - 1
         advance(chunk.indptr.size - 1)
         if cov is not None:
+            # covariates were given, so the kernel returned their sizes and sums
+            assert s is not None and x is not None
             sizes.append(s)
             sums.append(x)
     if seen != n_draws:
         raise RuntimeError(f"the sampler produced {seen} draws, {n_draws} were asked for")
     counts[:, mapping.pure_control] = n_draws - counts[:, : mapping.pure_control].sum(axis=1)
-    cond_sizes = cov_sums = None
+    cond_sizes: np.ndarray | None = None
+    cov_sums: np.ndarray | None = None
     if cov is not None:
         cond_sizes = np.concatenate(sizes)
         cov_sums = np.concatenate(sums)

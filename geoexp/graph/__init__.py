@@ -534,7 +534,11 @@ class ExposureGraph:
         path : str or path-like
             Target file.
         """
-        meta = {"max_distance": self.max_distance, "metric": self.metric, "crs": self.crs}
+        meta: dict[str, object] = {
+            "max_distance": self.max_distance,
+            "metric": self.metric,
+            "crs": self.crs,
+        }
         if self.network is not None:
             meta["network"] = self.network.to_dict()
         _io.save_npz(path, self.ids, self.indptr, self.indices, self.distances, meta)

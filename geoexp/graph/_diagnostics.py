@@ -17,6 +17,7 @@ import numpy as np
 import pandas as pd
 from scipy.sparse.csgraph import connected_components
 
+from geoexp._engine import Engine
 from geoexp.graph import _euclidean, _network, _noding
 from geoexp.graph._noding import NetworkInfo
 
@@ -116,7 +117,7 @@ def diagnose(
     *,
     split_at_crossings: bool,
     grade_separated: np.ndarray | None,
-    engine: str,
+    engine: Engine,
     network_pairs: tuple[np.ndarray, np.ndarray] | None = None,
 ) -> NetworkDiagnostics:
     """Diagnose the network of ``geoms`` (lines in CRS units, ``scale`` metres per unit).

@@ -56,28 +56,35 @@ def euclidean_pairs(
             jobs.append((src, dst, p == q, reach))
 
     context = (geoms, centre, half, d_crs + slack, scale, max_distance)
-    tasks = []
+    tasks: list[tuple[cKDTree, np.ndarray, np.ndarray, bool, float]] = []
     for src, dst, same, reach in jobs:
         tree = cKDTree(centre[dst])
         for start, stop in _chunks(tree, centre[src], reach):
             tasks.append((tree, src[start:stop], dst, same, reach))
 
+    def measure(
+        task: tuple[cKDTree, np.ndarray, np.ndarray, bool, float],
+    ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        return _measure_chunk(*task, context)
+
     # the KD-tree traversal and GEOS distances release the GIL: one worker thread per core
     with compute_threads() as n_threads:
         if n_threads > 1 and len(tasks) > 1:
             with ThreadPoolExecutor(n_threads) as pool:
-                parts = list(pool.map(lambda t: _measure_chunk(*t, context), tasks))
+                parts = list(pool.map(measure, tasks))
         else:
-            parts = [_measure_chunk(*t, context) for t in tasks]
+            parts = [measure(t) for t in tasks]
     if not parts:
         return empty
     # Concatenate one column at a time, dropping each column's chunks as it goes,
     # so that the chunks and the result are never both held in full.
+    columns = [list(column) for column in zip(*parts, strict=True)]
+    del parts
     out = []
     for k in range(3):
-        out.append(np.concatenate([p[k] for p in parts]))
-        parts = [p[:k] + (None,) + p[k + 1 :] for p in parts]
-    return tuple(out)
+        out.append(np.concatenate(columns[k]))
+        columns[k] = []
+    return out[0], out[1], out[2]
 
 
 def _size_buckets(radius: np.ndarray) -> list[np.ndarray]:

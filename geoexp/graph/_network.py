@@ -153,7 +153,8 @@ def network_pairs(
                     parts = list(pool.map(lambda f: f(), work))
             else:
                 parts = [f() for f in work]
-        return tuple(np.concatenate([p[k] for p in parts]) for k in range(3))
+        first, second, third = (np.concatenate([p[k] for p in parts]) for k in range(3))
+        return first, second, third
     return _scipy_walks(seg_node, net["graph"], inc_ptr, inc_seg, float(max_distance))
 
 

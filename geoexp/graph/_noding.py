@@ -32,6 +32,7 @@ from dataclasses import asdict, dataclass
 import numpy as np
 import shapely
 
+from geoexp._engine import Engine
 from geoexp.graph import _network
 
 # Warn when at least this share of the points where lines meet lies away from
@@ -297,7 +298,7 @@ def noded_pairs(
     max_distance: float,
     scale: float,
     snap_tolerance: float,
-    engine: str,
+    engine: Engine,
     *,
     split_at_crossings: bool,
     grade_separated: np.ndarray | None = None,

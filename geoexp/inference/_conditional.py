@@ -10,9 +10,10 @@ import numpy as np
 
 from geoexp._rng import RngLike, Stream
 from geoexp._significance import Alternative, RandomizationTest
-from geoexp.design import CompleteSampler, Draws
+from geoexp.design import CompleteSampler, Draws, Sampler
 from geoexp.errors import InputError
 from geoexp.inference._draws import ContrastSpec, contrast_test
+from geoexp.inference._statistic import Statistic
 
 if TYPE_CHECKING:
     from geoexp.design import Design
@@ -40,6 +41,8 @@ class FixedFocalSampler:
         """Condition a complete design on the assignment of the focal units."""
         focal = np.asarray(focal)
         fixed = np.intersect1d(focal, np.flatnonzero(treated))
+        # a constructed CompleteSampler always holds its eligible positions
+        assert sampler.eligible is not None
         rest = np.setdiff1d(sampler.eligible, focal)
         m = sampler.n_treated - fixed.size
         if m < 1 or m > rest.size:
@@ -113,7 +116,7 @@ def spillover_test(
     focal: np.ndarray | None = None,
     n_draws: int = 2000,
     rng: RngLike = None,
-    estimator: str = "hajek",
+    estimator: Statistic = "hajek",
     alternative: Alternative = "two-sided",
     keep_null: bool = False,
 ) -> RandomizationTest:
@@ -183,7 +186,7 @@ def spillover_test(
     mask = np.zeros(design.units.n, dtype=bool)
     mask[focal] = True
     spec = ContrastSpec(band, pc, mask)
-    sampler = design.sampler
+    sampler: Sampler | FixedFocalSampler = design.sampler
     if design.eligible[focal].any():
         if not isinstance(sampler, CompleteSampler):
             raise InputError(

@@ -7,10 +7,11 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
+from geoexp._engine import Engine
 from geoexp._rng import RngLike
 from geoexp._significance import Alternative, RandomizationTest, significance
 from geoexp.exposure import exposure_probabilities
-from geoexp.inference._statistic import contrast_statistic
+from geoexp.inference._statistic import Statistic, contrast_statistic
 
 
 @dataclass(frozen=True)
@@ -54,7 +55,7 @@ def weight_columns(
     return cols
 
 
-def statistic_from_sums(sk: np.ndarray, sl: np.ndarray, estimator: str, n: int) -> np.ndarray:
+def statistic_from_sums(sk: np.ndarray, sl: np.ndarray, estimator: Statistic, n: int) -> np.ndarray:
     """The contrast from sums over the units in k (``sk``) and in l (``sl``), per row.
 
     The columns are those of :func:`weight_columns`; the statistic itself is
@@ -69,13 +70,15 @@ def observed_sums(cols: np.ndarray, observed: np.ndarray, code: int) -> np.ndarr
 
 
 def draw_sums(
-    sampler, graph, mapping, cols: np.ndarray, n_draws: int, rng: RngLike, engine: str = "auto"
+    sampler, graph, mapping, cols: np.ndarray, n_draws: int, rng: RngLike, engine: Engine = "auto"
 ) -> np.ndarray:
     """Per-draw sums of every column over the units in each condition: (R, C, q)."""
     frame = pd.DataFrame(cols, index=graph.ids)
     probs = exposure_probabilities(
         sampler, graph, mapping, n_draws, rng, covariates=frame, engine=engine
     )
+    # covariates were given, so the sums are there
+    assert probs.covariate_sums is not None
     return probs.covariate_sums
 
 
@@ -89,7 +92,7 @@ def contrast_test(
     spec: ContrastSpec,
     *,
     null: str,
-    estimator: str,
+    estimator: Statistic,
     n_draws: int,
     rng: RngLike,
     alternative: Alternative,

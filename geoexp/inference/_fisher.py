@@ -9,6 +9,7 @@ import numpy as np
 from geoexp._rng import RngLike, Stream
 from geoexp._significance import Alternative, RandomizationTest
 from geoexp.inference._draws import ContrastSpec, contrast_test
+from geoexp.inference._statistic import Statistic
 
 if TYPE_CHECKING:
     from geoexp.design import Design
@@ -23,7 +24,7 @@ def fisher_test(
     *,
     n_draws: int = 2000,
     rng: RngLike = None,
-    estimator: str = "hajek",
+    estimator: Statistic = "hajek",
     alternative: Alternative = "two-sided",
     keep_null: bool = False,
 ) -> RandomizationTest:

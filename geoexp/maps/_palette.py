@@ -13,6 +13,7 @@ from __future__ import annotations
 
 import re
 from dataclasses import dataclass
+from typing import Literal
 
 from geoexp.errors import InputError
 
@@ -72,7 +73,7 @@ class ConditionStyle:
         return " ".join(f"{d:g}" for d in self.dash) if self.dash else None
 
     @property
-    def mpl_linestyle(self) -> str | tuple[float, tuple[float, ...]]:
+    def mpl_linestyle(self) -> Literal["solid"] | tuple[float, tuple[float, ...]]:
         """Dash pattern as a matplotlib linestyle (``"solid"`` or ``(0, dashes)``).
 
         matplotlib scales dashes by the line width, so the lengths are divided

@@ -16,7 +16,8 @@ from geoexp.maps._page import NEVER_COLOUR
 from geoexp.maps._palette import condition_order
 
 if TYPE_CHECKING:
-    from geoexp.analysis import Analysis
+    from geoexp.analysis import Analysis, Verdict
+    from geoexp.estimate import ContrastEstimate
     from geoexp.trialfile import TrialFile
 
 # Diverging colours for the change: ColorBrewer's RdBu (Harrower & Brewer,
@@ -61,7 +62,7 @@ class ResultData:
     labels: dict[str, str]  # code -> label
     counts: dict[str, int]  # code -> number of units
     bands: tuple[float, ...]  # outer band distances, metres
-    rows: tuple[tuple[str, object, object], ...]  # (code, ContrastEstimate, Verdict)
+    rows: tuple[tuple[str, ContrastEstimate, Verdict], ...]  # (code, ContrastEstimate, Verdict)
     description_column: str | None
     district_column: str | None
     title: str

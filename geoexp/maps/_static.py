@@ -19,6 +19,7 @@ import shapely
 from matplotlib import patheffects
 from matplotlib.axes import Axes
 from matplotlib.collections import LineCollection
+from matplotlib.figure import Figure
 from matplotlib.lines import Line2D
 from matplotlib.patches import Rectangle
 from matplotlib.text import Text
@@ -52,7 +53,7 @@ class PrintLineStyle:
 
     color: str
     linewidth: float
-    linestyle: str | tuple[float, tuple[float, ...]]
+    linestyle: Literal["solid"] | tuple[float, tuple[float, ...]]
     zorder: float
 
 
@@ -471,6 +472,8 @@ def north_arrow(
         Text at the arrow's tip.
     """
     fig = ax.figure
+    # a figure's own axes: a subfigure has no size of its own
+    assert isinstance(fig, Figure)
     bbox = ax.get_position()
     width_in = bbox.width * fig.get_figwidth()
     height_in = bbox.height * fig.get_figheight()

@@ -82,7 +82,7 @@ def unit_dataset(
     as_int = shapely.transform(geoms, lambda c: np.round(c * 10**DECIMALS) - origin.astype(float))
     text = shapely.to_geojson(as_int)
     types = shapely.get_type_id(geoms)
-    coords = [_COORDS.search(t).group(1) for t in text]
+    coords = [_coordinates_text(t) for t in text]
     out: dict = {
         "origin": origin.tolist(),
         "scale": 10.0**-DECIMALS,
@@ -138,3 +138,10 @@ def dump(value) -> str:
 def script_safe(text: str) -> str:
     """JSON text safe inside an inline script: "</" cannot appear there; JSON allows "<\\/"."""
     return text.replace("</", "<\\/")
+
+
+def _coordinates_text(geojson: str) -> str:
+    # shapely.to_geojson always writes a "coordinates" member last for these geometry types
+    found = _COORDS.search(geojson)
+    assert found is not None
+    return found.group(1)

@@ -113,6 +113,7 @@ class IncidentRows(InputRows):
 
     @property
     def n(self) -> int:
+        assert self.x is not None
         return len(self.x)
 
 
@@ -192,6 +193,8 @@ def read_incidents(
                 f"{describe_crs(parse_crs(crs, 'crs='))}; for projected coordinates use x=/y="
             )
         src_crs = pyproj.CRS(4326)
+        # lon= and lat= come together (checked on entry)
+        assert lat is not None
         px, py = _numbers(frame[lon]), _numbers(frame[lat])
         _check_lon_lat(named, px, py, lon, lat)
     elif isinstance(frame, gpd.GeoDataFrame):

@@ -21,7 +21,7 @@ simulations or draws.
 from __future__ import annotations
 
 from dataclasses import dataclass, field
-from typing import TYPE_CHECKING
+from typing import TYPE_CHECKING, Literal
 
 import numpy as np
 import pandas as pd
@@ -360,7 +360,7 @@ def _simulate(
     floor = _floor(design, floor)
     for k in range(pc):
         # the very units of the analysis's row (geoexp.estimate.contrast_units)
-        group = "eligible" if k == 0 else "never-eligible"
+        group: Literal["eligible", "never-eligible"] = "eligible" if k == 0 else "never-eligible"
         estimand = contrast_units(
             probs, design.eligible, k, pc, labels=mapping.labels, group=group, floor=floor
         )

@@ -98,8 +98,8 @@ def _parcels(
             sel = np.flatnonzero((nu == cu) & (nv == cv))
             if len(sel) == 0:
                 continue
-            uu, vv = np.meshgrid(np.arange(cu), np.arange(cv))
-            uu, vv = uu.ravel(), vv.ravel()
+            grid_u, grid_v = np.meshgrid(np.arange(cu), np.arange(cv))
+            uu, vv = grid_u.ravel(), grid_v.ravel()
             cell = np.repeat(sel, len(uu))
             u = np.tile(uu, len(sel))
             v = np.tile(vv, len(sel))

@@ -339,11 +339,15 @@ def _edge_stubs(g: _Graph, layout: _Layout, rng: np.random.Generator) -> _Graph:
     node = np.arange(nx * ny).reshape(ny, nx)
     ii, jj = np.meshgrid(np.arange(nx), np.arange(ny))
     inside = layout.inside.reshape(ny, nx)
-    present = np.zeros(len(g.xy), bool)
-    present[g.a] = True
-    present[g.b] = True
-    present = present[: nx * ny].reshape(ny, nx)
-    new_a, new_b, street, order, tips = [], [], [], [], []
+    ends = np.zeros(len(g.xy), bool)
+    ends[g.a] = True
+    ends[g.b] = True
+    present = ends[: nx * ny].reshape(ny, nx)
+    new_a: list[np.ndarray] = []
+    new_b: list[np.ndarray] = []
+    street: list[np.ndarray] = []
+    order: list[np.ndarray] = []
+    tips: list[np.ndarray] = []
     # (di, dj): direction of travel outwards; the stub continues the street
     for di, dj in ((1, 0), (-1, 0), (0, 1), (0, -1)):
         back = np.zeros((ny, nx), bool)

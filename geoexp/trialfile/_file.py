@@ -3,6 +3,7 @@ from __future__ import annotations
 import contextlib
 import datetime as dt
 import json
+import os
 import shutil
 import sqlite3
 from collections.abc import Callable, Iterator
@@ -127,7 +128,7 @@ class TrialFile:
     meta: dict[str, str]
 
     @classmethod
-    def open(cls, path: str | Path) -> TrialFile:
+    def open(cls, path: str | os.PathLike[str]) -> TrialFile:
         """Open an existing trial file, checking that it is one."""
         path = Path(path)
         if not path.exists():

@@ -13,6 +13,7 @@ import json
 import os
 from dataclasses import dataclass
 from pathlib import Path
+from typing import cast
 
 import numpy as np
 import pandas as pd
@@ -33,7 +34,7 @@ __all__ = ["TrialIntegrity", "outcomes_fingerprint", "results_fingerprint", "ver
 def _period_text(period: object) -> str:
     if isinstance(period, str):
         return period
-    start, end = period  # type: ignore[misc]
+    start, end = cast("tuple[object, object]", period)
     return f"{start}/{end}"
 
 

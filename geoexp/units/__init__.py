@@ -14,6 +14,7 @@ from __future__ import annotations
 
 import dataclasses
 import os
+from collections.abc import Sequence
 from dataclasses import dataclass
 from typing import Literal
 
@@ -205,6 +206,8 @@ class UnitSet:
                 from_file=False,
                 planar=planar,
             )
+        # database_source() returns a DatabaseSource for every database path
+        assert not isinstance(path, DatabaseSource)
         text = os.fspath(path)
         frame = read_layer(text, layer, "units")
         label = text if layer is None else f"{text} (layer {layer})"
@@ -331,7 +334,7 @@ class UnitSet:
         )
 
     # ------------------------------------------------------------ eligibility
-    def _keep(self, positions: np.ndarray, rule: str, extra: list[str] = ()) -> UnitSet:
+    def _keep(self, positions: np.ndarray, rule: str, extra: Sequence[str] = ()) -> UnitSet:
         if len(positions) == 0:
             raise InputError(f"no units of '{self.source}' would be left ({rule})")
         note = f"kept {len(positions):,} of {self.n:,} units: {rule}"

@@ -19,7 +19,7 @@ from __future__ import annotations
 import math
 import numbers
 import os
-from typing import Literal
+from typing import Any, Literal
 
 import geopandas as gpd
 import numpy as np
@@ -44,21 +44,22 @@ def select_mask(frame: gpd.GeoDataFrame, where: object, source: str) -> tuple[np
         # Our own grammar, never pandas' eval: a rule can name columns, nothing else.
         return Rule.parse(where).mask(frame, source), f"rule {where!r}"
     if isinstance(where, pd.Series):
-        if not where.index.equals(ids):
-            missing = ids.difference(where.index)
-            extra = where.index.difference(ids)
-            if len(missing) or len(extra) or where.index.has_duplicates:
+        series = where
+        if not series.index.equals(ids):
+            missing = ids.difference(series.index)
+            extra = series.index.difference(ids)
+            if len(missing) or len(extra) or series.index.has_duplicates:
                 raise InputError(
                     "a mask given as a Series must be indexed by the unit ids, once each; "
                     f"ids without a value: {describe_rows(missing) or 'none'}; "
                     f"values for unknown ids: {describe_rows(extra) or 'none'}"
                 )
-            where = where.reindex(ids)
-        if where.isna().any():
-            raise InputError(f"the mask has no value for ids {describe_rows(ids[where.isna()])}")
-        if not pd.api.types.is_bool_dtype(where.dtype):
-            raise InputError(f"the mask must be true/false, got dtype {where.dtype}")
-        return where.to_numpy(dtype=bool), "a boolean mask"
+            series = series.reindex(ids)
+        if series.isna().any():
+            raise InputError(f"the mask has no value for ids {describe_rows(ids[series.isna()])}")
+        if not pd.api.types.is_bool_dtype(series.dtype):
+            raise InputError(f"the mask must be true/false, got dtype {series.dtype}")
+        return series.to_numpy(dtype=bool), "a boolean mask"
     array = np.asarray(where)
     if array.dtype != bool or array.shape != (n,):
         raise InputError(
@@ -218,7 +219,7 @@ def exclude_mask(
     return ~hit, rule, notes
 
 
-def subset_positions(frame: gpd.GeoDataFrame, ids: object) -> np.ndarray:
+def subset_positions(frame: gpd.GeoDataFrame, ids: Any) -> np.ndarray:
     """Positions of ``ids`` in the order given; unknown or repeated ids are refused."""
     wanted = pd.Index([ids] if np.ndim(ids) == 0 else list(ids))
     if len(wanted) == 0:

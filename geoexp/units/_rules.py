@@ -148,6 +148,8 @@ def _tokenize(text: str) -> list[_Token]:
             continue
         if ch.isdigit() or (ch == "." and i + 1 < n and text[i + 1].isdigit()):
             match = _NUMBER.match(text, i)
+            # a digit, or a point before a digit, always starts a number
+            assert match is not None
             end = match.end()
             if end < n and (text[end].isalnum() or text[end] in "_."):
                 tail = _NAME.match(text, end)
@@ -368,9 +370,11 @@ class _Parser:
         tok = self.tok
         if tok.kind == "name":
             self.take()
+            assert isinstance(tok.value, str)
             return Column(tok.value, tok.pos, len(tok.text))
         if tok.kind == "column":
             self.take()
+            assert isinstance(tok.value, str)
             return Column(tok.value, tok.pos, len(tok.text))
         return self.literal()
 
@@ -385,6 +389,7 @@ class _Parser:
             if num.kind != "number":
                 raise self.fail("expected a number after '-'")
             self.take()
+            assert isinstance(num.value, int | float)
             return Constant(-num.value, "number", tok.pos, num.pos + len(num.text) - tok.pos)
         if tok.kind == "string":
             self.take()
@@ -478,6 +483,7 @@ class _Context:
     def values(self, node: Column | Constant) -> _Values:
         if isinstance(node, Constant):
             if node.kind == "number":
+                assert isinstance(node.value, int | float)
                 values = np.full(self.n, float(node.value))
             elif node.kind == "bool":
                 values = np.full(self.n, bool(node.value))

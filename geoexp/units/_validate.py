@@ -23,7 +23,7 @@ import pandas as pd
 import shapely
 
 from geoexp.errors import GeometryError, InputError, describe_rows
-from geoexp.units._crs import resolve_crs
+from geoexp.units._crs import Planar, resolve_crs
 
 Kind = Literal["segment", "parcel"]
 
@@ -197,7 +197,7 @@ def prepare(
     source: str,
     kind: Kind | None,
     from_file: bool,
-    planar: str | None = None,
+    planar: Planar | None = None,
 ) -> Prepared:
     """Validate ``frame`` and return a private, projected, id-indexed copy with its report."""
     if not isinstance(frame, gpd.GeoDataFrame):
