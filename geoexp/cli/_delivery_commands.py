@@ -200,6 +200,12 @@ def monitor_command(
     record: Annotated[
         bool, typer.Option(help="Append the week's rows to the trial file (layer delivery_weekly).")
     ] = True,
+    map_png: Annotated[
+        Path | None,
+        typer.Option(
+            "--map", help="PNG: map of the under-served treated places and visited control places."
+        ),
+    ] = None,
     device: DeviceOpt = "device",
     time: TimeOpt = "time",
     unit_column: UnitColOpt = None,
@@ -232,7 +238,9 @@ def monitor_command(
         raise typer.BadParameter("must be > 0", param_hint="'--planned-minutes'")
     inputs = {"--pings": pings, "--visits": visits}
     check_outputs(
-        {"--chart": chart, "--lists": lists}, {k: v for k, v in inputs.items() if v}, trial=trial
+        {"--chart": chart, "--lists": lists, "--map": map_png},
+        {k: v for k, v in inputs.items() if v},
+        trial=trial,
     )
     tf, stays = load_stays(
         trial,
@@ -280,9 +288,31 @@ def monitor_command(
             ax.figure.savefig(tmp, format="png", dpi=120, bbox_inches="tight")
         plt.close(ax.figure)
         console.print(f"Chart written to {chart}")
+    if map_png is not None:
+        _monitor_map(tf, summary, map_png)
     if record:
         append_record(trial, RECORD_LAYER, summary.record())
         console.print(f"Week of {summary.week} recorded in {trial} (layer {RECORD_LAYER})")
+
+
+def _monitor_map(tf, summary, path: Path) -> None:
+    import matplotlib
+
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+
+    from geoexp._atomic import atomic_path
+    from geoexp.maps import delivery_map_static
+
+    units = tf.units()
+    column = tf.spec().field.district_column
+    ax = delivery_map_static(
+        units, summary, district_column=column if column in units.columns else None
+    )
+    with writing(path, "map"), atomic_path(path) as tmp:
+        ax.figure.savefig(tmp, format="png", dpi=150, bbox_inches="tight")
+    plt.close(ax.figure)
+    console.print(f"Map written to {path}")
 
 
 @app.command("received")
