@@ -300,6 +300,7 @@ def _monitor_map(tf, summary, path: Path) -> None:
 
     matplotlib.use("Agg")
     import matplotlib.pyplot as plt
+    from matplotlib.figure import Figure
 
     from geoexp._atomic import atomic_path
     from geoexp.maps import delivery_map_static
@@ -309,9 +310,10 @@ def _monitor_map(tf, summary, path: Path) -> None:
     ax = delivery_map_static(
         units, summary, district_column=column if column in units.columns else None
     )
+    figure = cast(Figure, ax.figure)  # the map's own figure, never a subfigure
     with writing(path, "map"), atomic_path(path) as tmp:
-        ax.figure.savefig(tmp, format="png", dpi=150, bbox_inches="tight")
-    plt.close(ax.figure)
+        figure.savefig(tmp, format="png", dpi=150, bbox_inches="tight")
+    plt.close(figure)
     console.print(f"Map written to {path}")
 
 

@@ -199,11 +199,19 @@ def period_effects(
     if floor is None:
         floor = getattr(design.spec, "positivity_floor", None) if hasattr(design, "spec") else None
     floor = DEFAULT_FLOOR if floor is None else float(floor)
-    common = dict(labels=labels, floor=floor)
-    rows = [(0, contrast_units(probs, design.eligible, 0, pc, group="eligible", **common))]
+    rows = [
+        (
+            0,
+            contrast_units(
+                probs, design.eligible, 0, pc, labels=labels, group="eligible", floor=floor
+            ),
+        )
+    ]
     notes: list[str] = []
     if bands and pc > 1:
-        band = contrast_units(probs, design.eligible, 1, pc, group="never-eligible", **common)
+        band = contrast_units(
+            probs, design.eligible, 1, pc, labels=labels, group="never-eligible", floor=floor
+        )
         seen = band.units & (observed == 1)
         if band.n_units >= MIN_FOCAL and seen.any() and (band.units & (observed == pc)).any():
             rows.append((1, band))
