@@ -209,6 +209,7 @@ def test_trial_file_effects_by_period_on_the_demo(demo, tmp_path):
     )
     window = ("2025-07-01", "2025-12-31")
     result = effects_by_period(path, counts, window, n_draws=99)
+    assert result.table["contrast"].iloc[0].startswith("treated")  # the treated rows first
     months = result.table["period"].unique()
     assert len(months) == 6 and pd.Timestamp(months.min()) == pd.Timestamp("2025-07-01")
     assert (result.table["ci_low"] <= result.table["estimate"]).all()

@@ -266,7 +266,13 @@ def period_effects(
             lambda s: pd.Series(holm(s.to_numpy()), index=s.index)
         ),
     )
-    table = table.sort_values(["contrast", "period"], kind="stable", ignore_index=True)
+    # the treated contrast first, then the band's, each in time order
+    first = table["contrast"].map({c: i for i, c in enumerate(dict.fromkeys(table["contrast"]))})
+    table = (
+        table.assign(_order=first)
+        .sort_values(["_order", "period"], kind="stable", ignore_index=True)
+        .drop(columns="_order")
+    )
     words = "change from the pre-trial mean per period" if baseline is not None else "count"
     return PeriodEffects(table, float(level), freq, words, tuple(notes))
 
