@@ -80,6 +80,8 @@ def test_monitor_command_appends_dated_records_and_keeps_the_assignment(
         str(tmp_path / "chart.png"),
         "--lists",
         str(tmp_path / "lists.csv"),
+        "--map",
+        str(tmp_path / "map.png"),
     ]
     for _ in range(2):
         result = CliRunner().invoke(app, args)
@@ -95,6 +97,36 @@ def test_monitor_command_appends_dated_records_and_keeps_the_assignment(
     assert (tmp_path / "chart.png").read_bytes()[:4] == b"\x89PNG"
     lists = pd.read_csv(tmp_path / "lists.csv")
     assert set(lists["issue"]) <= {"under-served", "control visited"}
+    assert (tmp_path / "map.png").read_bytes()[:4] == b"\x89PNG"
+
+
+def test_monitor_map_draws_exactly_the_listed_places(trial_copy, pings_file):
+    import matplotlib
+
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+    import shapely
+
+    from geoexp.maps import delivery_map_static
+
+    path, crs = pings_file
+    tf = TrialFile.open(trial_copy)
+    units_frame = tf.units()
+    weekly = stays_from_pings(path, UnitSet.from_frame(units_frame, None), x="x", y="y", crs=crs)
+    week = delivery_week(tf.assignment(), weekly.dosage("week"), "2025-01-06", planned_minutes=30)
+    assert len(week.under_served) and len(week.visited_controls)  # both lists have places
+    ax = delivery_map_static(units_frame, week)
+    drawn = ax.collections[1:]  # the first is the grey street grid
+    vertices = {tuple(p) for c in drawn for seg in c.get_segments() for p in np.round(seg, 6)}
+    listed = list(week.under_served.index) + list(week.visited_controls.index)
+    # [L] shapely's coordinates of the listed units: the map draws their vertices and no others
+    expected = shapely.get_coordinates(units_frame.geometry.loc[listed].to_numpy())
+    assert vertices == {tuple(p) for p in np.round(expected, 6)}
+    labels = [t.get_text() for t in ax.get_legend().get_texts()]
+    assert f"treated, under-served ({len(week.under_served)})" in labels
+    n_visited = sum(int(t.rsplit("(", 1)[1].rstrip(")")) for t in labels if "visited" in t)
+    assert n_visited == len(week.visited_controls)
+    plt.close(ax.figure)
 
 
 def test_presence_command_writes_minutes_per_unit_and_week(trial_copy, pings_file, tmp_path):

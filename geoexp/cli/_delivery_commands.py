@@ -200,6 +200,12 @@ def monitor_command(
     record: Annotated[
         bool, typer.Option(help="Append the week's rows to the trial file (layer delivery_weekly).")
     ] = True,
+    map_png: Annotated[
+        Path | None,
+        typer.Option(
+            "--map", help="PNG: map of the under-served treated places and visited control places."
+        ),
+    ] = None,
     device: DeviceOpt = "device",
     time: TimeOpt = "time",
     unit_column: UnitColOpt = None,
@@ -232,7 +238,9 @@ def monitor_command(
         raise typer.BadParameter("must be > 0", param_hint="'--planned-minutes'")
     inputs = {"--pings": pings, "--visits": visits}
     check_outputs(
-        {"--chart": chart, "--lists": lists}, {k: v for k, v in inputs.items() if v}, trial=trial
+        {"--chart": chart, "--lists": lists, "--map": map_png},
+        {k: v for k, v in inputs.items() if v},
+        trial=trial,
     )
     tf, stays = load_stays(
         trial,
@@ -280,9 +288,33 @@ def monitor_command(
             ax.figure.savefig(tmp, format="png", dpi=120, bbox_inches="tight")
         plt.close(ax.figure)
         console.print(f"Chart written to {chart}")
+    if map_png is not None:
+        _monitor_map(tf, summary, map_png)
     if record:
         append_record(trial, RECORD_LAYER, summary.record())
         console.print(f"Week of {summary.week} recorded in {trial} (layer {RECORD_LAYER})")
+
+
+def _monitor_map(tf, summary, path: Path) -> None:
+    import matplotlib
+
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+    from matplotlib.figure import Figure
+
+    from geoexp._atomic import atomic_path
+    from geoexp.maps import delivery_map_static
+
+    units = tf.units()
+    column = tf.spec().field.district_column
+    ax = delivery_map_static(
+        units, summary, district_column=column if column in units.columns else None
+    )
+    figure = cast(Figure, ax.figure)  # the map's own figure, never a subfigure
+    with writing(path, "map"), atomic_path(path) as tmp:
+        figure.savefig(tmp, format="png", dpi=150, bbox_inches="tight")
+    plt.close(figure)
+    console.print(f"Map written to {path}")
 
 
 @app.command("received")
@@ -418,8 +450,25 @@ def timeline_command(
     y: YOpt = None,
     crs: CrsOpt = None,
     tolerance: TolOpt = 30.0,
+    effects: Annotated[
+        Path | None,
+        typer.Option(
+            help="PNG: the effect in each post period with its interval (also printed; "
+            "Holm-adjusted p-values beside the unadjusted ones)."
+        ),
+    ] = None,
+    effects_out: Annotated[
+        Path | None, typer.Option(help="CSV of the effects per post period.")
+    ] = None,
+    draws: Annotated[
+        int, typer.Option(help="Randomization draws per period's test.", min=1, max=1_000_000)
+    ] = 2000,
 ) -> None:
-    """Incidents per unit by exposure condition over time, the trial window shaded; pre-trend."""
+    """Incidents per unit by exposure condition over time, the trial window shaded; pre-trend.
+
+    With --effects or --effects-out, also the treated (and band-1) effect in each post period,
+    each with its own randomization test and interval; the pooled effect stays the primary result.
+    """
     import matplotlib
 
     matplotlib.use("Agg")
@@ -434,7 +483,11 @@ def timeline_command(
         raise typer.BadParameter(f"must be week or month; got {freq!r}", param_hint="'--freq'")
     period = cast(Literal["week", "month"], freq)  # checked just above
     first, last = _window(window)
-    check_outputs({"--chart": chart, "--out": out}, {"--incidents": incidents}, trial=trial)
+    check_outputs(
+        {"--chart": chart, "--out": out, "--effects": effects, "--effects-out": effects_out},
+        {"--incidents": incidents},
+        trial=trial,
+    )
     tf = TrialFile.open(trial)
     units = UnitSet.from_frame(tf.units(), None, source=str(trial))
     counts = incidents_by_period(
@@ -467,3 +520,31 @@ def timeline_command(
         with writing(out, "table"), atomic_path(out) as tmp:
             series.to_csv(tmp, encoding="utf-8")
         console.print(f"Mean incidents per unit by condition and {freq} written to {out}")
+    if effects is not None or effects_out is not None:
+        _period_effects(trial, counts, (first, last), effects, effects_out, draws)
+
+
+def _period_effects(trial, counts, window, chart, table, draws) -> None:
+    import matplotlib.pyplot as plt
+
+    from geoexp._atomic import atomic_path
+    from geoexp.delivery import effects_by_period, plot_period_effects
+
+    try:
+        result = effects_by_period(trial, counts, window, n_draws=draws)
+    except InputError as err:
+        if "before the trial window" not in str(err):
+            raise
+        console.print(f"No period before the window ({err}); counts used as they are")
+        result = effects_by_period(trial, counts, window, outcome="post", n_draws=draws)
+    console.print(str(result), markup=False)
+    if chart is not None:
+        ax = plot_period_effects(result)
+        with writing(chart, "chart"), atomic_path(chart) as tmp:
+            ax.figure.savefig(tmp, format="png", dpi=120, bbox_inches="tight")
+        plt.close(ax.figure)
+        console.print(f"Effects per period written to {chart}")
+    if table is not None:
+        with writing(table, "table"), atomic_path(table) as tmp:
+            result.to_frame().to_csv(tmp, index=False, encoding="utf-8")
+        console.print(f"Effects per period (table) written to {table}")

@@ -11,7 +11,9 @@ gives the effect of treatment received beside the intention-to-treat result
 (Angrist, Imbens & Rubin 1996), with the design's randomization test and an
 interval by test inversion (Imbens & Rosenbaum 2005). :func:`delivery_week`
 is the weekly delivery monitor: dose per exposure condition, under-served
-treated places and visited controls.
+treated places and visited controls. :func:`effects_by_period` gives the
+treated (and band-1) effect in each post period with its own randomization
+test and test-inversion interval, Holm-adjusted across periods (Holm 1979).
 """
 
 from geoexp.delivery._complier import ComplierEffect, complier_effect
@@ -23,6 +25,14 @@ from geoexp.delivery._monitor import (
     delivery_week,
     plot_weekly_delivery,
     weekly_delivery,
+)
+from geoexp.delivery._periods import (
+    MULTIPLICITY_NOTE,
+    PeriodEffects,
+    effects_by_period,
+    holm,
+    period_effects,
+    plot_period_effects,
 )
 from geoexp.delivery._received import received_inputs, treatment_received
 from geoexp.delivery._snap import UnitIndex, snap_points
@@ -78,4 +88,10 @@ __all__ = [
     "plot_over_time",
     "pre_trend",
     "unit_index",
+    "MULTIPLICITY_NOTE",
+    "PeriodEffects",
+    "effects_by_period",
+    "holm",
+    "period_effects",
+    "plot_period_effects",
 ]

@@ -24,6 +24,22 @@ DEFAULT_CHUNK_ROWS = 1_000_000
 # Pieces of the units' outlines in the snapping index, in metres: short enough that few
 # pieces are near a ping, long enough that the index stays small.
 _PIECE_M = 25.0
+# Points snapped at a time within a chunk (bounds the snapping's temporary arrays).
+_SNAP_BLOCK = 250_000
+
+
+def _snap_in_blocks(index: UnitIndex, x: np.ndarray, y: np.ndarray, tolerance: float):
+    """Snap a chunk in blocks of ``_SNAP_BLOCK`` points: the same answer, a smaller peak.
+
+    The exact snapping holds a few candidate pieces per point with their
+    coordinates and distances (about 400 bytes a point at its peak); blocks keep
+    that bounded whatever the chunk size.
+    """
+    unit = np.empty(len(x), dtype=np.int64)
+    for start in range(0, len(x), _SNAP_BLOCK):
+        stop = start + _SNAP_BLOCK
+        unit[start:stop] = snap_points(index, x[start:stop], y[start:stop], tolerance)[0]
+    return unit
 
 
 def unit_index(units) -> UnitIndex:
@@ -133,29 +149,33 @@ def stays_from_pings(
     builder: StayBuilder | None = None
     found: list[dict] = []
     n = no_position = snapped = 0
-    pending = next(chunks, None)
-    while pending is not None:
-        chunk = pending
-        pending = next(chunks, None)
+    # One chunk at a time: a stay still open at a chunk's end is carried into the next, and
+    # closed by finish() after the last, so no chunk is read ahead.
+    for chunk in chunks:
         if builder is None:
             builder = StayBuilder(
                 rules, units.metres_per_unit, "line" if chunk["row"][0] == 2 else "row"
             )
-        labels, uniques = pd.factorize(chunk["device"])
-        lookup = np.array([codes.setdefault(u, len(codes)) for u in uniques], dtype=np.int64)
-        unit, _ = snap_points(index, chunk["x"], chunk["y"], tolerance)
+        lookup = np.array(
+            [codes.setdefault(u, len(codes)) for u in chunk["device_names"]], dtype=np.int64
+        )
+        unit = _snap_in_blocks(index, chunk["x"], chunk["y"], tolerance)
         n += len(unit)
         no_position += int((~(np.isfinite(chunk["x"]) & np.isfinite(chunk["y"]))).sum())
         snapped += int((unit >= 0).sum())
         arrays = {
-            "dev": lookup[labels],
+            "dev": lookup[chunk["device_code"]],
             "t": chunk["t"],
             "x": chunk["x"],
             "y": chunk["y"],
             "unit": unit,
             "row": chunk["row"],
         }
-        found.append(builder.feed(arrays, last=pending is None))
+        del chunk
+        found.append(builder.feed(arrays))
+        del arrays, unit
+    if builder is not None:
+        found.append(builder.finish())
     names = np.array(list(codes), dtype=object)
     parts = {
         k: np.concatenate([f[k] for f in found]) if found else np.empty(0, np.int64)

@@ -136,7 +136,8 @@ def read_ping_chunks(
     crs: object,
     chunk_rows: int,
 ) -> Iterator[dict[str, np.ndarray]]:
-    """Yield chunks of pings as arrays: device (text), t (seconds), x, y (units' CRS), row."""
+    """Yield chunks of pings as arrays: device_code (int64 index into device_names, the chunk's
+    distinct device ids), t (seconds), x, y (units' CRS), row."""
     path = Path(pings)
     columns, cx, cy = _columns(device, time, x, y, lon, lat)
     if x is not None:
@@ -178,8 +179,12 @@ def read_ping_chunks(
             px, py = np.where(off, np.nan, px), np.where(off, np.nan, py)
         if transform is not None:
             px, py = transform.transform(px, py)
+        # Device ids as codes into this chunk's distinct ids: a million Python strings per
+        # chunk (and hashing them) cost more than the rest of the reading.
+        coded = pc.dictionary_encode(dev.cast(pa.string()))
         yield {
-            "device": dev.cast(pa.string()).to_numpy(zero_copy_only=False),
+            "device_code": coded.indices.to_numpy(zero_copy_only=False).astype(np.int64),
+            "device_names": coded.dictionary.to_numpy(zero_copy_only=False),
             "t": t,
             "x": np.asarray(px, dtype=np.float64),
             "y": np.asarray(py, dtype=np.float64),

@@ -133,6 +133,13 @@ class StayBuilder:
 
     _FIELDS = ("dev", "t", "x", "y", "unit", "row")
 
+    def finish(self) -> dict[str, np.ndarray]:
+        """Close the stays still open after the last chunk (those carried forward)."""
+        if self.carry is None:
+            empty = np.empty(0, dtype=np.int64)
+            return {"dev": empty, "unit": empty, "start": empty, "end": empty, "pings": empty}
+        return self.feed({k: v[:0] for k, v in self.carry.items()}, last=True)
+
     def feed(self, chunk: dict[str, np.ndarray], last: bool = False) -> dict[str, np.ndarray]:
         """Add a chunk (arrays dev, t, x, y, unit, row); return the stays it finished."""
         if self.carry is not None:

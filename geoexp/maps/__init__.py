@@ -13,6 +13,8 @@ condition that every geoexp map (web or print) uses, and
 After the analysis, :func:`result_map` (interactive) and
 :func:`result_map_static` (matplotlib, for the report) map the observed change
 per unit by condition with the spillover bands, estimates and verdicts.
+:func:`delivery_map_static` maps a week's under-served treated places and
+visited control places for the delivery monitor.
 
 The static renderer shared with the briefing pack: :data:`PRINT_RC` (the one
 print style), :func:`line_style`, :func:`draw_units_by_condition`,
@@ -22,6 +24,7 @@ print style), :func:`line_style`, :func:`draw_units_by_condition`,
 """
 
 from geoexp.maps._assets import OfflineAssetWarning, offline_assets_available
+from geoexp.maps._delivery_static import delivery_map_static
 from geoexp.maps._drawing import drawing_map
 from geoexp.maps._geometry import district_outlines, metres_per_unit
 from geoexp.maps._page import ZONES_FILENAME, map_html, save_map
@@ -48,6 +51,7 @@ from geoexp.maps._static import (
 )
 
 __all__ = [
+    "delivery_map_static",
     "OKABE_ITO",
     "PRINT_RC",
     "ZONES_FILENAME",
