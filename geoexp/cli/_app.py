@@ -420,12 +420,12 @@ def count_command(
     from geoexp.workflow import count_and_store
 
     periods = _period(pre, "--pre"), _period(post, "--post")
-    incidents = incidents_input(incidents)
-    check_outputs({"--dropped": dropped}, {"--incidents": incidents}, trial=trial)
+    source = incidents_input(incidents)
+    check_outputs({"--dropped": dropped}, {"--incidents": source}, trial=trial)
     keep = _types(types, type_column)
     table = count_and_store(
         trial,
-        incidents,
+        source,
         pre=periods[0],
         post=periods[1],
         date_column=date_column,
@@ -544,7 +544,7 @@ def analyse_command(
 
     draws = renamed_option(test_draws, draws, "--draws", "--test-draws")
     outs = report_outputs(report)
-    incidents = incidents_input(incidents)
+    source = incidents_input(incidents)
     check_outputs(
         {
             "--report": outs["report"],
@@ -552,17 +552,17 @@ def analyse_command(
             "--report (its PDF twin)": outs["report_pdf"],
             "--report (its results map)": outs["result_map"],
         },
-        {"--incidents": incidents},
+        {"--incidents": source},
         trial=trial,
     )
-    if incidents is not None:
+    if source is not None:
         if pre is None or post is None:
             raise typer.BadParameter(
                 "--incidents needs --pre and --post", param_hint="'--incidents'"
             )
         table = count_and_store(
             trial,
-            incidents,
+            source,
             pre=_period(pre, "--pre"),
             post=_period(post, "--post"),
             date_column=date_column,
