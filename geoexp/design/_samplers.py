@@ -207,6 +207,9 @@ class Rerandomized(_Chunked):
     acceptance: float
     covariate_names: Sequence[str] | None = None
 
+    # the layer and eligible positions of the base sampler
+    n_units: int = field(init=False, repr=False)
+    eligible: np.ndarray | None = field(init=False, repr=False)
     threshold: float = field(init=False, repr=False)
     _chol: np.ndarray = field(init=False, repr=False)
     _local: np.ndarray = field(init=False, repr=False)
@@ -218,6 +221,8 @@ class Rerandomized(_Chunked):
                 "rerandomization needs a base sampler with a fixed number of treated units "
                 "(complete, blocked or kept-apart)"
             )
+        object.__setattr__(self, "n_units", base.n_units)
+        object.__setattr__(self, "eligible", base.positions)
         names = self.covariate_names
         if isinstance(self.covariates, pd.DataFrame) and names is None:
             names = [str(c) for c in self.covariates.columns]
@@ -273,16 +278,6 @@ class Rerandomized(_Chunked):
                 + "; drop one of them"
             )
         return np.linalg.cholesky(np.atleast_2d(np.cov(x, rowvar=False)))
-
-    @property
-    def n_units(self) -> int:  # type: ignore[override]
-        """Units in the full layer (from the base sampler)."""
-        return self.base.n_units
-
-    @property
-    def eligible(self) -> np.ndarray:  # type: ignore[override]
-        """Eligible positions (from the base sampler)."""
-        return self.base.eligible
 
     @property
     def n_treated(self) -> int:
