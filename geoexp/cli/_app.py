@@ -451,9 +451,9 @@ def count_command(
     allow_dropped: AllowDroppedOpt = 0.5,
 ) -> None:
     """Count incidents per unit for the pre- and post-periods and store them in the trial file."""
+    options = dict(locals())  # first: the parameters alone
     from geoexp.workflow import count_and_store
 
-    options = dict(locals())  # first: the parameters alone
     periods = _period(pre, "--pre"), _period(post, "--post")
     source = incidents_input(incidents)
     check_outputs({"--dropped": dropped}, {"--incidents": source}, trial=trial)
