@@ -14,6 +14,7 @@ from geoexp.briefing import briefing_pack, field_list, save_field_list
 from geoexp.cautions import CAUTION
 from geoexp.design import Design, DesignSpec, check_design, unit_flow
 from geoexp.maps import ZONES_FILENAME, planning_map, save_map
+from geoexp.outcomes import ObservedIncidents
 from geoexp.power import NegativeBinomialOutcome, power_curve, simulate_power
 from geoexp.report import save_check_figures, save_power_figure
 from geoexp.sampleregion import DEMO_MULTIPLIERS, load_sample_region, simulate_trial_incidents
@@ -176,18 +177,17 @@ def run_demo(out: str | Path, *, n_draws: int = 2000, echo: Callable[[str], None
     )
     incidents_path = out / "incidents.csv"
     table.to_csv(incidents_path, index=False)
-    outcomes = count_and_store(
-        trial_path,
+    observed = ObservedIncidents(
         incidents_path,
+        pre=("2025-01-01", "2025-12-31"),
+        post=("2026-01-01", "2026-12-31"),
         date_column="date",
         type_column="incident_type",
         lon="lon",
         lat="lat",
         tolerance_m=30.0,
-        pre=("2025-01-01", "2025-12-31"),
-        post=("2026-01-01", "2026-12-31"),
-        dropped_path=out / "incidents_not_counted.csv",
     )
+    outcomes = count_and_store(trial_path, observed, dropped_path=out / "incidents_not_counted.csv")
     echo(str(outcomes.drops))
     run = analyse_trial(
         trial_path,

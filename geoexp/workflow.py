@@ -1,6 +1,7 @@
 """The steps after a trial, as one call each: count incidents, then analyse and report.
 
-:func:`count_and_store` reads incident points, counts them per unit and period
+:func:`count_and_store` reads incident points (one
+:class:`~geoexp.outcomes.ObservedIncidents`), counts them per unit and period
 (stopping on counts that would mislead, see
 :func:`geoexp.outcomes.count_incidents`) and stores them in the trial file.
 :func:`analyse_trial` runs the analysis of a trial file, stores the results in
@@ -22,33 +23,18 @@ from typing import Literal
 
 from geoexp._paths import check_outputs, writing
 from geoexp.analysis import Analysis
-from geoexp.outcomes import MAX_DROPPED_SHARE, OutcomeTable
+from geoexp.outcomes import MAX_DROPPED_SHARE, ObservedIncidents, OutcomeTable
 from geoexp.trialfile import TrialFile
 
 __all__ = ["AnalysisRun", "analyse_trial", "count_and_store", "report_outputs"]
 
 PathLike = str | os.PathLike
-Period = tuple[object, object]
 
 
 def count_and_store(
     trial: PathLike,
-    incidents: PathLike,
+    observed: ObservedIncidents,
     *,
-    pre: Period,
-    post: Period,
-    date_column: str = "date",
-    date_format: str | None = None,
-    type_column: str | None = None,
-    by_type: bool = False,
-    keep_types: tuple[str, ...] | None = None,
-    lon: str | None = None,
-    lat: str | None = None,
-    x: str | None = None,
-    y: str | None = None,
-    crs: object = None,
-    layer: str | None = None,
-    tolerance_m: float = 30.0,
     dropped_path: PathLike | None = None,
     max_dropped_share: float | None = MAX_DROPPED_SHARE,
 ) -> OutcomeTable:
@@ -58,15 +44,8 @@ def count_and_store(
     ----------
     trial : path
         The trial GeoPackage (written: its outcomes layer is replaced).
-    incidents : path
-        A CSV (with ``lon``/``lat`` or ``x``/``y`` and ``crs``) or a point layer.
-    pre, post : (start, end)
-        The periods, both days included.
-    date_column, date_format, type_column, by_type, keep_types, lon, lat, x, y, crs, layer
-        As in :func:`geoexp.outcomes.count_incidents`.
-    tolerance_m : float
-        Snapping tolerance in metres; 30 m is a common choice for street
-        segments (common practice).
+    observed : geoexp.outcomes.ObservedIncidents
+        The incidents, the pre- and post-period and how to read them.
     dropped_path : path, optional
         CSV of the incidents not counted, with a ``reason`` column.
     max_dropped_share : float or None
@@ -86,28 +65,13 @@ def count_and_store(
         Bad inputs, an output naming the trial file or the incidents, or
         counts that would mislead; nothing is written in these cases.
     """
-    from geoexp.outcomes import count_incidents, save_outcomes
+    from geoexp.outcomes import save_outcomes
 
-    check_outputs({"dropped_path": dropped_path}, {"the incidents": incidents}, trial=trial)
-    table = count_incidents(
-        TrialFile.open(trial),
-        incidents,
-        date_column=date_column,
-        date_format=date_format,
-        type_column=type_column,
-        by_type=by_type,
-        keep_types=keep_types,
-        lon=lon,
-        lat=lat,
-        x=x,
-        y=y,
-        crs=crs,
-        layer=layer,
-        tolerance_m=tolerance_m,
-        pre=pre,
-        post=post,
-        dropped_path=dropped_path,
-        max_dropped_share=max_dropped_share,
+    incidents = observed.incidents
+    inputs = {"the incidents": incidents} if isinstance(incidents, str | os.PathLike) else {}
+    check_outputs({"dropped_path": dropped_path}, inputs, trial=trial)
+    table = observed.count(
+        TrialFile.open(trial), dropped_path=dropped_path, max_dropped_share=max_dropped_share
     )
     with writing(trial, "trial file"):
         stored = save_outcomes(trial, table)

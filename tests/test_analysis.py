@@ -268,6 +268,7 @@ def test_every_row_is_about_one_set_of_units_and_its_interval_agrees_with_its_te
         "spillover_2",
     ]
     assert {r.reference_code for r in analysis.rows} == {"pure_control"}
+    assert analysis.codes == ("treated", "spillover_1", "spillover_2")
     # the total net effect counts the treated area once (Bowers & Johnson 2003 parts)
     parts = analysis.displacement[0].target_part + sum(d.buffer_part for d in analysis.displacement)
     assert analysis.total_net_effect == pytest.approx(parts)
@@ -296,3 +297,19 @@ def test_total_net_effect_printed_only_when_every_part_is_clear(analysis):
         ),
     )
     assert "Total net effect (descriptive, no interval" in str(marked)
+
+
+def test_observed_bundle_derives_the_outcome():
+    # Source: the definitions: the change is post minus pre; "post" is the post-period counts.
+    from geoexp.analysis._observed import Observed
+
+    pre, post = np.array([3.0, 0.0, 5.0]), np.array([1.0, 2.0, 5.0])
+    conditions = np.array([0, 1, 2])
+    change = Observed(pre, post, conditions, "change")
+    np.testing.assert_array_equal(change.y, [-2.0, 2.0, 0.0])
+    assert change.period == "pre-period and post-period"
+    only_post = Observed(pre, post, conditions, "post")
+    np.testing.assert_array_equal(only_post.y, post)
+    assert only_post.words == "incidents in the post-period"
+    with pytest.raises(ValueError, match="outcome must be 'change' or 'post'"):
+        Observed(pre, post, conditions, "ratio")

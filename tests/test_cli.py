@@ -136,3 +136,22 @@ def test_analyse_counts_with_the_date_format_given(tmp_path, demo_outputs):
     stored = TrialFile.open(trial).read("outcomes")
     expected = TrialFile.open(demo_outputs["trial"]).read("outcomes")
     pd.testing.assert_series_equal(stored["post"], expected["post"])
+
+
+def test_every_command_that_counts_passes_on_every_reading_option():
+    # The bug this guards against: 'analyse --incidents' once dropped --date-format on its way
+    # to counting. Both commands build the same ObservedIncidents from their own parameters.
+    import inspect
+
+    from geoexp.cli._app import _observed_incidents, analyse_command, count_command
+
+    passed = ("date_column", "date_format", "lon", "lat", "x", "y", "crs")
+    for command in (count_command, analyse_command):
+        options = {name: f"{name} given" for name in inspect.signature(command).parameters}
+        options.update(type_column="kind", types="burglary,theft", tolerance=12.5)
+        observed = _observed_incidents("in.csv", (("a", "b"), ("c", "d")), options)
+        for name in passed:
+            assert getattr(observed, name) == f"{name} given", (command.__name__, name)
+        assert observed.tolerance_m == 12.5 and observed.type_column == "kind"
+        assert observed.by_type and observed.keep_types == ("burglary", "theft")
+        assert (observed.pre, observed.post) == (("a", "b"), ("c", "d"))

@@ -192,7 +192,7 @@ def test_received_command_prints_the_itt_and_the_complier_effect(demo, pings_fil
             "y",
             "--crs",
             crs,
-            "--draws",
+            "--test-draws",
             "99",
             "--section",
             str(section),

@@ -236,7 +236,7 @@ def test_timeline_command_writes_the_effects_per_period(demo, tmp_path):
     args += ["--x", "x", "--y", "y", "--crs", frame.crs.to_string(), "--freq", "month"]
     args += ["--window", "2025-07-01:2025-12-31", "--chart", str(tmp_path / "t.png")]
     args += ["--effects", str(tmp_path / "e.png"), "--effects-out", str(tmp_path / "e.csv")]
-    result = CliRunner().invoke(app, [*args, "--draws", "49"])
+    result = CliRunner().invoke(app, [*args, "--test-draws", "49"])
     assert result.exit_code == 0, result.output
     assert "Holm" in result.output and "primary result" in result.output
     assert (tmp_path / "e.png").read_bytes()[:4] == b"\x89PNG"

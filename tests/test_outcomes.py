@@ -18,6 +18,7 @@ from hypothesis import strategies as st
 from geoexp.errors import CRSError, GeometryError, InputError
 from geoexp.outcomes import (
     REASONS,
+    ObservedIncidents,
     OutcomeTable,
     load_outcomes,
     save_outcomes,
@@ -593,3 +594,43 @@ def test_save_and_load_in_trial_file(tmp_path, region, city_counts):
     )  # fmt: skip
     with pytest.raises(InputError, match="do(es)? not match"):
         save_outcomes(saved, wrong)
+
+
+def test_observed_incidents_count_as_count_incidents_does(units, region, city_counts):
+    # Identity: the bundle passes every field on to count_incidents, so its counts are the
+    # city counts above (themselves checked against geopandas sjoin_nearest).
+    observed = ObservedIncidents(
+        region.incidents, pre=YEAR_2024, post=YEAR_2025, type_column="incident_type",
+        by_type=True,
+    )  # fmt: skip
+    assert observed.tolerance_m == 30.0 and observed.date_column == "date"  # the defaults
+    table = observed.count(units, max_dropped_share=None)
+    pd.testing.assert_frame_equal(table.counts, city_counts.counts)
+    assert table.drops.counts() == city_counts.drops.counts()
+    assert (table.pre, table.post, table.types) == (
+        city_counts.pre, city_counts.post, city_counts.types,
+    )  # fmt: skip
+
+
+def test_observed_incidents_keep_types_and_tolerance_reach_the_count(units, region):
+    # Source: analytic: counting one type only gives, unit by unit, that type's own columns
+    # of the count by type (snapping and dating are per incident).
+    some = str(pd.Series(region.incidents["incident_type"]).dropna().iloc[0])
+    observed = ObservedIncidents(
+        region.incidents, pre=YEAR_2024, post=YEAR_2025, type_column="incident_type",
+        keep_types=[some],
+    )  # fmt: skip
+    assert observed.keep_types == (some,)  # frozen as a tuple
+    kept = observed.count(units, max_dropped_share=None)
+    full = ObservedIncidents(
+        region.incidents, pre=YEAR_2024, post=YEAR_2025, type_column="incident_type",
+        by_type=True,
+    ).count(units, max_dropped_share=None)  # fmt: skip
+    pre_column, post_column = full.type_columns[some]
+    assert kept.counts["pre"].sum() > 0
+    np.testing.assert_array_equal(kept.counts["pre"], full.counts[pre_column])
+    np.testing.assert_array_equal(kept.counts["post"], full.counts[post_column])
+    with pytest.raises(InputError, match="tolerance_m must be a number of metres"):
+        ObservedIncidents(region.incidents, pre=YEAR_2024, post=YEAR_2025, tolerance_m=-1).count(
+            units
+        )

@@ -274,3 +274,16 @@ def test_report_without_a_trial_is_as_before(analysis, tmp_path):
 def test_demo_writes_the_interactive_map_beside_the_report(demo):
     assert (demo / "results_map.html").is_file()
     assert "href='results_map.html'" in (demo / "report.html").read_text(encoding="utf-8")
+
+
+def test_effects_are_matched_to_conditions_by_the_rows_codes(analysis):
+    # The results map pairs each effect with its row's condition code, whatever the order
+    # of the per-unit table's columns or the wording of the labels.
+    from geoexp.maps._result_data import contrast_codes
+
+    assert contrast_codes(analysis) == analysis.codes
+    assert analysis.codes[0] == "treated"
+    shuffled = analysis.per_unit[list(reversed(analysis.per_unit.columns))]
+    assert contrast_codes(dataclasses.replace(analysis, per_unit=shuffled)) == analysis.codes
+    with pytest.raises(InputError, match="condition codes"):
+        contrast_codes(dataclasses.replace(analysis, rows=analysis.rows[:1]))

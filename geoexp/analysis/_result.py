@@ -137,6 +137,11 @@ class Analysis:
     design_fingerprint: str = ""
     outcomes_fingerprint: str = ""
 
+    @property
+    def codes(self) -> tuple[str, ...]:
+        """The exposed condition's code of each of ``effects`` (from its :class:`ContrastResult`)."""
+        return tuple(r.exposure_code for r in self.rows[: len(self.effects)])
+
     def to_frame(self) -> pd.DataFrame:
         """One row per main contrast: estimates, intervals, p-values and verdicts."""
         out = []

@@ -11,6 +11,7 @@ import numpy as np
 import pandas as pd
 
 from geoexp._rng import Stream
+from geoexp.analysis._observed import Observed, Outcome
 from geoexp.analysis._result import Analysis, ContrastResult
 from geoexp.analysis._verdict import approximation_supported, row_verdict
 from geoexp.design import Assignment, CompleteSampler, Design, SaturationSampler
@@ -45,11 +46,7 @@ from geoexp.trialfile import (
     verify_trial,
 )
 
-Outcome = Literal["change", "post"]
-OUTCOME_WORDS = {
-    "change": "change in incidents from the pre-period to the post-period",
-    "post": "incidents in the post-period",
-}
+Estimator = Literal["hajek", "horvitz-thompson"]
 # A row for the eligible units next to treated units is added when both of its sides have at
 # least this expected Kish effective sample size (see geoexp.estimate.Estimand).
 MIN_ROW_ESS = 10
@@ -84,7 +81,7 @@ def analyse(
     outcomes: OutcomeTable | None = None,
     *,
     outcome: Outcome = "change",
-    estimator: Literal["hajek", "horvitz-thompson"] = "hajek",
+    estimator: Estimator = "hajek",
     n_draws: int = 2000,
     level: float = 0.95,
     intervals: bool = True,
@@ -155,21 +152,10 @@ def analyse(
     if not outcomes_fp:
         counted = outcomes.counts.reindex(design.units.ids)
         outcomes_fp = outcomes_fingerprint(counted, outcomes.pre, outcomes.post)
-    if outcome not in OUTCOME_WORDS:
-        raise InputError(f"outcome must be 'change' or 'post', got {outcome!r}")
-    counts = outcomes.counts.reindex(design.units.ids)
-    missing = counts.index[counts["post"].isna()]
-    if len(missing):
-        raise InputError(
-            f"the outcome table has no counts for {len(missing)} units of the trial, e.g. "
-            f"{list(missing[:10])}"
-        )
-    post = counts["post"].to_numpy(dtype=float)
-    pre = counts["pre"].to_numpy(dtype=float)
-    y = post - pre if outcome == "change" else post
+    obs = Observed.of_trial(outcomes, design, assignment, outcome)
+    pre, post, y, observed = obs.pre, obs.post, obs.y, obs.conditions
     mapping = design.mapping
     pc = mapping.pure_control
-    observed = assignment.conditions.astype(np.int64)
     r_prob = design.spec.draws
     bits = condition_bits(
         design.sampler, design.graph, mapping, r_prob, design.stream(Stream.MONTE_CARLO)
@@ -200,12 +186,12 @@ def analyse(
         )
     floor = _floor(design, floor)
     unit = "incidents"
-    words = OUTCOME_WORDS[outcome]
+    words = obs.words
     alpha = 1 - level
     labels = mapping.labels
     plan = _plan_rows(design, probs, floor, notes)
 
-    def estimate(est: Estimand, which: str) -> ContrastEstimate:
+    def estimate(est: Estimand, which: Estimator) -> ContrastEstimate:
         return estimate_contrast(
             y,
             observed,
@@ -222,7 +208,7 @@ def analyse(
             units_words=est.who,
         )
 
-    other = "horvitz-thompson" if estimator == "hajek" else "hajek"
+    other: Estimator = "horvitz-thompson" if estimator == "hajek" else "hajek"
     effects = [(estimate(est, estimator), estimate(est, other)) for _, est, _ in plan]
     # the other conditions' effects in each test's model: the main rows' estimates
     plug = np.zeros(mapping.n_conditions)
@@ -230,8 +216,8 @@ def analyse(
     for (k, est, _), (e, _) in zip(plan, effects, strict=True):
         if est.group != "eligible" or k == 0:
             plug[k] = e.estimate if np.isfinite(e.estimate) else 0.0
-            r = _hajek(post, observed, probs, k, pc, est.units, pre)
-            ratios[k] = r if np.isfinite(r) and r > 0 else 1.0
+            ratio = _hajek_rate_ratio(obs, probs, k, pc, est.units)
+            ratios[k] = ratio if np.isfinite(ratio) and ratio > 0 else 1.0
     rows: list[ContrastResult] = []
     fisher0 = None
     for (k, est, focal), (e, e_other) in zip(plan, effects, strict=True):
@@ -271,7 +257,7 @@ def analyse(
             exact = spillover_test(
                 design, observed, assignment.treated, y, probs, k, focal=focal, n_draws=n_draws
             )
-        sensitivity = _sensitivity(outcome, pre, post, observed, probs, k, pc, est.units)
+        sensitivity = _sensitivity(obs, probs, k, pc, est.units)
         show = approximation_supported(e, k == 0) and estimator == "hajek"
         verdict = row_verdict(
             est,
@@ -290,7 +276,7 @@ def analyse(
                 exposure_code=mapping.codes[k],
                 reference_code=mapping.codes[pc],
                 estimand=est,
-                period="pre-period and post-period" if outcome == "change" else "post-period",
+                period=obs.period,
                 outcome=words,
                 effect=e,
                 effect_ht=e_other,
@@ -325,7 +311,7 @@ def analyse(
             notes.append(f"no displacement quotient for {mapping.labels[k]}: {err}")
     if displacement and intervals:
         displacement = _wdq_intervals(
-            design, observed, pre, post, ratios, displacement, n_draws=n_draws, level=level
+            design, obs, ratios, displacement, n_draws=n_draws, level=level
         )
     tne, trend = float("nan"), float("nan")
     if displacement:
@@ -343,15 +329,13 @@ def analyse(
         per_unit[f"p_{code}"] = probs[:, k]
     for r in main:
         per_unit[f"in_{r.exposure_code}"] = r.estimand.units
-    kept = getattr(outcomes, "kept_types", ())
-    if kept:
+    if outcomes.kept_types:
         notes.append(
-            f"only incidents of type {', '.join(kept)} (column "
-            f"{getattr(outcomes, 'type_column', None)!r}) were counted; other types were left out"
+            f"only incidents of type {', '.join(outcomes.kept_types)} (column "
+            f"{outcomes.type_column!r}) were counted; other types were left out"
         )
-    drops = getattr(outcomes, "drops", None)
-    if drops is not None and getattr(drops, "n_dropped", 0):
-        notes.append(f"incidents not counted: {drops}")
+    if outcomes.drops is not None and outcomes.drops.n_dropped:
+        notes.append(f"incidents not counted: {outcomes.drops}")
     return Analysis(
         name=design.spec.name,
         spec_hash=design.spec.hash,
@@ -384,9 +368,7 @@ def analyse(
 
 def _wdq_intervals(
     design: Design,
-    observed: np.ndarray,
-    pre: np.ndarray,
-    post: np.ndarray,
+    obs: Observed,
     ratios: np.ndarray,
     indices: list[DisplacementIndex],
     *,
@@ -408,8 +390,8 @@ def _wdq_intervals(
 
     mapping = design.mapping
     pc = mapping.pure_control
-    base = post / ratios[observed]
-    cols = pd.DataFrame({"pre": pre, "base": base}, index=design.graph.ids)
+    base = obs.post / ratios[obs.conditions]
+    cols = pd.DataFrame({"pre": obs.pre, "base": base}, index=design.graph.ids)
     sums = exposure_probabilities(
         design.sampler,
         design.graph,
@@ -418,6 +400,7 @@ def _wdq_intervals(
         design.stream(Stream.DISPLACEMENT),
         covariates=cols,
     ).covariate_sums
+    assert sums is not None  # covariates were given, so their sums per draw are returned
     before = sums[:, :, 0]
     after = sums[:, :, 1] * ratios[None, :]
     with np.errstate(invalid="ignore", divide="ignore"):
@@ -445,17 +428,33 @@ def _plan_rows(
     """The rows: (condition, units, focal units of the exact test or None), main rows first."""
     mapping = design.mapping
     pc, labels = mapping.pure_control, mapping.labels
-    common = dict(labels=labels, floor=floor)
-    plan = [(0, contrast_units(probs, design.eligible, 0, pc, group="eligible", **common), None)]
+    plan: list[tuple[int, Estimand, np.ndarray | None]] = [
+        (
+            0,
+            contrast_units(
+                probs, design.eligible, 0, pc, group="eligible", labels=labels, floor=floor
+            ),
+            None,
+        )
+    ]
     for k in range(1, pc):
-        est = contrast_units(probs, design.eligible, k, pc, group="never-eligible", **common)
+        est = contrast_units(
+            probs, design.eligible, k, pc, group="never-eligible", labels=labels, floor=floor
+        )
         focal = np.flatnonzero(est.units)
         if focal.size < MIN_FOCAL and isinstance(design.sampler, CompleteSampler):
             chosen = _random_focal_units(design, probs, k)
             within = np.zeros(design.units.n, dtype=bool)
             within[chosen] = True
             est = contrast_units(
-                probs, design.eligible, k, pc, group="all", within=within, **common
+                probs,
+                design.eligible,
+                k,
+                pc,
+                group="all",
+                within=within,
+                labels=labels,
+                floor=floor,
             )
             focal = np.flatnonzero(est.units)
             notes.append(
@@ -469,10 +468,13 @@ def _plan_rows(
                 f"{labels[k]}: only {focal.size} units that are never treated can be in this "
                 "band or pure controls; no exact spillover test"
             )
-            focal = None
-        plan.append((k, est, focal))
+            plan.append((k, est, None))
+        else:
+            plan.append((k, est, focal))
     for k in range(1, pc):
-        est = contrast_units(probs, design.eligible, k, pc, group="eligible", **common)
+        est = contrast_units(
+            probs, design.eligible, k, pc, group="eligible", labels=labels, floor=floor
+        )
         ess = min(est.expected_ess_exposure, est.expected_ess_reference)
         if est.n_units >= MIN_FOCAL and ess >= MIN_ROW_ESS:
             plan.append((k, est, None))
@@ -485,17 +487,10 @@ def _plan_rows(
     return plan
 
 
-def _hajek(
-    y: np.ndarray,
-    observed: np.ndarray,
-    probs: np.ndarray,
-    k: int,
-    l: int,
-    units: np.ndarray,
-    baseline: np.ndarray,
-) -> float:
-    """Rate ratio: each side's Hajek mean of ``y`` over its Hajek mean of ``baseline``."""
-    hk, hl = units & (observed == k), units & (observed == l)
+def _hajek_rate_ratio(obs: Observed, probs: np.ndarray, k: int, l: int, units: np.ndarray) -> float:
+    """Rate ratio: each side's Hajek mean of post-period counts over that of pre-period counts."""
+    y, baseline = obs.post, obs.pre
+    hk, hl = units & (obs.conditions == k), units & (obs.conditions == l)
     if not hk.any() or not hl.any():
         return float("nan")
     wk, wl = 1 / probs[hk, k], 1 / probs[hl, l]
@@ -506,16 +501,10 @@ def _hajek(
 
 
 def _sensitivity(
-    outcome: str,
-    pre: np.ndarray,
-    post: np.ndarray,
-    observed: np.ndarray,
-    probs: np.ndarray,
-    k: int,
-    l: int,
-    units: np.ndarray,
-) -> dict:
+    obs: Observed, probs: np.ndarray, k: int, l: int, units: np.ndarray
+) -> dict[str, float]:
     """The row's estimate under the other outcome definitions (same units, same weights)."""
+    pre, post, observed = obs.pre, obs.post, obs.conditions
 
     def hajek_difference(v: np.ndarray) -> float:
         hk, hl = units & (observed == k), units & (observed == l)
@@ -527,9 +516,9 @@ def _sensitivity(
         )
 
     out = {}
-    if outcome != "change":
+    if obs.outcome != "change":
         out["change from the pre-period"] = hajek_difference(post - pre)
-    if outcome != "post":
+    if obs.outcome != "post":
         out["post-period only"] = hajek_difference(post)
     out["post-period adjusted for the pre-period (Lin 2013)"] = adjusted_contrast(
         post, pre, observed, probs, k, l, units

@@ -3,7 +3,7 @@ from __future__ import annotations
 import sys
 import warnings
 from pathlib import Path
-from typing import Annotated
+from typing import TYPE_CHECKING, Annotated, Any
 
 import typer
 from rich.console import Console
@@ -22,6 +22,9 @@ from geoexp.cli._options import (
 )
 from geoexp.cli._progress_bars import progress_shown
 from geoexp.errors import InputError
+
+if TYPE_CHECKING:
+    from geoexp.outcomes import ObservedIncidents
 
 # The commands in the order of the job, under the heading of their step, as `geoexp --help`
 # lists them. Register a new command here (one name in its step); a command not listed is
@@ -383,6 +386,37 @@ def _period(text: str, what: str) -> tuple[str, str]:
     return parts[0].strip(), parts[1].strip()
 
 
+def _observed_incidents(
+    source: Path | str, periods: tuple[tuple[str, str], tuple[str, str]], options: dict[str, Any]
+) -> ObservedIncidents:
+    """The incidents to count, read as the reading options of a command say.
+
+    ``options`` holds the command's parameters (its ``locals()``): every command
+    that counts passes on every reading option (--date-column, --date-format,
+    --type-column, --types, --lon, --lat, --x, --y, --crs, --tolerance), so none
+    can be lost on the way.
+    """
+    from geoexp.outcomes import ObservedIncidents
+
+    type_column = options["type_column"]
+    return ObservedIncidents(
+        source,
+        pre=periods[0],
+        post=periods[1],
+        date_column=options["date_column"],
+        date_format=options["date_format"],
+        type_column=type_column,
+        by_type=type_column is not None,
+        keep_types=_types(options["types"], type_column),
+        lon=options["lon"],
+        lat=options["lat"],
+        x=options["x"],
+        y=options["y"],
+        crs=options["crs"],
+        tolerance_m=options["tolerance"],
+    )
+
+
 @app.command("count")
 def count_command(
     trial: Annotated[Path, typer.Argument(help="Trial file (GeoPackage).")],
@@ -417,31 +451,14 @@ def count_command(
     allow_dropped: AllowDroppedOpt = 0.5,
 ) -> None:
     """Count incidents per unit for the pre- and post-periods and store them in the trial file."""
+    options = dict(locals())  # first: the parameters alone
     from geoexp.workflow import count_and_store
 
     periods = _period(pre, "--pre"), _period(post, "--post")
-    incidents = incidents_input(incidents)
-    check_outputs({"--dropped": dropped}, {"--incidents": incidents}, trial=trial)
-    keep = _types(types, type_column)
-    table = count_and_store(
-        trial,
-        incidents,
-        pre=periods[0],
-        post=periods[1],
-        date_column=date_column,
-        date_format=date_format,
-        type_column=type_column,
-        by_type=type_column is not None,
-        keep_types=keep,
-        lon=lon,
-        lat=lat,
-        x=x,
-        y=y,
-        crs=crs,
-        tolerance_m=tolerance,
-        dropped_path=dropped,
-        max_dropped_share=allow_dropped,
-    )
+    source = incidents_input(incidents)
+    check_outputs({"--dropped": dropped}, {"--incidents": source}, trial=trial)
+    observed = _observed_incidents(source, periods, options)
+    table = count_and_store(trial, observed, dropped_path=dropped, max_dropped_share=allow_dropped)
     console.print(str(table))
     console.print(f"Outcomes stored in {trial}")
 
@@ -540,11 +557,12 @@ def analyse_command(
     With --incidents (and --pre, --post) the incidents are counted and stored
     first, so one command goes from the trial file and the incidents to the report.
     """
+    options = dict(locals())  # first: the parameters alone
     from geoexp.workflow import analyse_trial, count_and_store, report_outputs
 
     draws = renamed_option(test_draws, draws, "--draws", "--test-draws")
     outs = report_outputs(report)
-    incidents = incidents_input(incidents)
+    source = incidents_input(incidents)
     check_outputs(
         {
             "--report": outs["report"],
@@ -552,32 +570,17 @@ def analyse_command(
             "--report (its PDF twin)": outs["report_pdf"],
             "--report (its results map)": outs["result_map"],
         },
-        {"--incidents": incidents},
+        {"--incidents": source},
         trial=trial,
     )
-    if incidents is not None:
+    if source is not None:
         if pre is None or post is None:
             raise typer.BadParameter(
                 "--incidents needs --pre and --post", param_hint="'--incidents'"
             )
-        table = count_and_store(
-            trial,
-            incidents,
-            pre=_period(pre, "--pre"),
-            post=_period(post, "--post"),
-            date_column=date_column,
-            date_format=date_format,
-            type_column=type_column,
-            by_type=type_column is not None,
-            keep_types=_types(types, type_column),
-            lon=lon,
-            lat=lat,
-            x=x,
-            y=y,
-            crs=crs,
-            tolerance_m=tolerance,
-            max_dropped_share=allow_dropped,
-        )
+        periods = _period(pre, "--pre"), _period(post, "--post")
+        observed = _observed_incidents(source, periods, options)
+        table = count_and_store(trial, observed, max_dropped_share=allow_dropped)
         console.print(str(table))
     elif types is not None or type_column is not None:
         raise typer.BadParameter(

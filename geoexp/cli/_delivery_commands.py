@@ -2,13 +2,14 @@
 
 from __future__ import annotations
 
+from dataclasses import dataclass, fields
 from pathlib import Path
-from typing import Annotated, Literal, cast
+from typing import Annotated, Any, Literal, cast
 
 import typer
 
 from geoexp._paths import check_outputs, writing
-from geoexp.cli._app import app, console
+from geoexp.cli._app import TestDrawsOpt, app, console
 from geoexp.cli._options import positive_metres
 from geoexp.errors import InputError
 
@@ -46,70 +47,83 @@ MinStayOpt = Annotated[
 ]
 
 
-def load_stays(
-    trial,
-    pings,
-    visits,
-    *,
-    device,
-    time,
-    unit_column,
-    start,
-    end,
-    team,
-    activity,
-    lon,
-    lat,
-    x,
-    y,
-    crs,
-    tolerance,
-    max_gap,
-    max_speed,
-    min_stay,
-):
-    """Stays from pings or a visit log, snapped to the trial's units."""
-    from geoexp.delivery import read_visits, stays_from_pings
-    from geoexp.trialfile import TrialFile
-    from geoexp.units import UnitSet
+@dataclass(frozen=True)
+class StayOptions:
+    """The options that read presence (GPS pings or a visit log), shared by several commands."""
 
-    if (pings is None) == (visits is None):
-        raise InputError("give either --pings or --visits")
-    tf = TrialFile.open(trial)
-    units = UnitSet.from_frame(tf.units(), None, source=str(trial))
-    if pings is not None:
-        stays = stays_from_pings(
-            pings,
-            units,
-            device=device,
-            time=time,
-            x=x,
-            y=y,
-            lon=lon,
-            lat=lat,
-            crs=crs,
-            tolerance_m=tolerance,
-            max_gap_s=max_gap,
-            max_speed_kmh=max_speed,
-            min_minutes=min_stay,
-        )
-    else:
-        stays = read_visits(
-            visits,
-            units,
-            start=start,
-            end=end,
-            unit_column=unit_column,
-            x=x,
-            y=y,
-            lon=lon,
-            lat=lat,
-            crs=crs,
-            team_column=team,
-            activity_column=activity,
-            tolerance_m=tolerance,
-        )
-    return tf, stays
+    pings: Path | None
+    visits: Path | None
+    device: str
+    time: str
+    unit_column: str | None
+    start: str
+    end: str
+    team: str | None
+    activity: str | None
+    lon: str | None
+    lat: str | None
+    x: str | None
+    y: str | None
+    crs: str | None
+    tolerance: float
+    max_gap: float
+    max_speed: float
+    min_stay: float
+
+    @classmethod
+    def of(cls, options: dict[str, Any]) -> StayOptions:
+        """Pick these options out of a command's parameters (its ``locals()`` on entry)."""
+        return cls(**{f.name: options[f.name] for f in fields(cls)})
+
+    @property
+    def inputs(self) -> dict[str, Path]:
+        """The input file given, by its option (for the output guard)."""
+        given = {"--pings": self.pings, "--visits": self.visits}
+        return {k: v for k, v in given.items() if v}
+
+    def load(self, trial: Path):
+        """Stays from the pings or the visit log, snapped to the trial's units."""
+        from geoexp.delivery import read_visits, stays_from_pings
+        from geoexp.trialfile import TrialFile
+        from geoexp.units import UnitSet
+
+        if (self.pings is None) == (self.visits is None):
+            raise InputError("give either --pings or --visits")
+        tf = TrialFile.open(trial)
+        units = UnitSet.from_frame(tf.units(), None, source=str(trial))
+        if self.pings is not None:
+            stays = stays_from_pings(
+                self.pings,
+                units,
+                device=self.device,
+                time=self.time,
+                x=self.x,
+                y=self.y,
+                lon=self.lon,
+                lat=self.lat,
+                crs=self.crs,
+                tolerance_m=self.tolerance,
+                max_gap_s=self.max_gap,
+                max_speed_kmh=self.max_speed,
+                min_minutes=self.min_stay,
+            )
+        else:
+            stays = read_visits(
+                self.visits,
+                units,
+                start=self.start,
+                end=self.end,
+                unit_column=self.unit_column,
+                x=self.x,
+                y=self.y,
+                lon=self.lon,
+                lat=self.lat,
+                crs=self.crs,
+                team_column=self.team,
+                activity_column=self.activity,
+                tolerance_m=self.tolerance,
+            )
+        return tf, stays
 
 
 @app.command("presence")
@@ -143,33 +157,13 @@ def presence_command(
     min_stay: MinStayOpt = 2.0,
 ) -> None:
     """Minutes present and visits per unit and period, from GPS pings or a visit log."""
+    reading = StayOptions.of(locals())  # first: the parameters alone
     if freq not in ("day", "week", "period"):
         raise typer.BadParameter(
             f"must be day, week or period; got {freq!r}", param_hint="'--freq'"
         )
-    inputs = {"--pings": pings, "--visits": visits}
-    check_outputs({"--out": out}, {k: v for k, v in inputs.items() if v}, trial=trial)
-    _, stays = load_stays(
-        trial,
-        pings,
-        visits,
-        device=device,
-        time=time,
-        unit_column=unit_column,
-        start=start,
-        end=end,
-        team=team,
-        activity=activity,
-        lon=lon,
-        lat=lat,
-        x=x,
-        y=y,
-        crs=crs,
-        tolerance=tolerance,
-        max_gap=max_gap,
-        max_speed=max_speed,
-        min_stay=min_stay,
-    )
+    check_outputs({"--out": out}, reading.inputs, trial=trial)
+    _, stays = reading.load(trial)
     dosage = stays.dosage(freq, start=first_day, end=last_day)
     table = dosage.frame.rename(columns={"unit": stays.unit_ids.name or "unit"})
     with writing(out, "presence table"):
@@ -228,6 +222,7 @@ def monitor_command(
     Appends the week's summary to the trial file as a dated record (never
     touching the assignment) unless --no-record.
     """
+    reading = StayOptions.of(locals())  # first: the parameters alone
     import pandas as pd
 
     from geoexp._atomic import atomic_path
@@ -236,33 +231,10 @@ def monitor_command(
 
     if planned_minutes <= 0:
         raise typer.BadParameter("must be > 0", param_hint="'--planned-minutes'")
-    inputs = {"--pings": pings, "--visits": visits}
     check_outputs(
-        {"--chart": chart, "--lists": lists, "--map": map_png},
-        {k: v for k, v in inputs.items() if v},
-        trial=trial,
+        {"--chart": chart, "--lists": lists, "--map": map_png}, reading.inputs, trial=trial
     )
-    tf, stays = load_stays(
-        trial,
-        pings,
-        visits,
-        device=device,
-        time=time,
-        unit_column=unit_column,
-        start=start,
-        end=end,
-        team=team,
-        activity=activity,
-        lon=lon,
-        lat=lat,
-        x=x,
-        y=y,
-        crs=crs,
-        tolerance=tolerance,
-        max_gap=max_gap,
-        max_speed=max_speed,
-        min_stay=min_stay,
-    )
+    tf, stays = reading.load(trial)
     assignment = tf.assignment()
     weekly = stays.dosage("week")
     summary = delivery_week(assignment, weekly, week, planned_minutes=planned_minutes)
@@ -331,7 +303,7 @@ def received_command(
         ),
     ] = None,
     outcome: Annotated[str, typer.Option(help="'change' (post minus pre) or 'post'.")] = "change",
-    draws: Annotated[int, typer.Option(help="Randomization draws.", min=1, max=1_000_000)] = 2000,
+    test_draws: TestDrawsOpt = 2000,
     level: Annotated[float, typer.Option(help="Confidence level of the interval.")] = 0.95,
     section: Annotated[
         Path | None, typer.Option(help="Markdown file for the report's added section.")
@@ -361,6 +333,7 @@ def received_command(
 
     Needs stored outcomes (geoexp count). The dose is presence during the post-period.
     """
+    reading = StayOptions.of(locals())  # first: the parameters alone
     from geoexp._atomic import atomic_path
     from geoexp.delivery import treatment_received
 
@@ -371,35 +344,10 @@ def received_command(
     measure = cast(Literal["change", "post"], outcome)  # checked just above
     if not 0 < level < 1:
         raise typer.BadParameter("must be between 0 and 1", param_hint="'--level'")
-    inputs = {"--pings": pings, "--visits": visits}
-    check_outputs(
-        {"--section": section, "--dose-chart": dose_chart},
-        {k: v for k, v in inputs.items() if v},
-        trial=trial,
-    )
-    tf, stays = load_stays(
-        trial,
-        pings,
-        visits,
-        device=device,
-        time=time,
-        unit_column=unit_column,
-        start=start,
-        end=end,
-        team=team,
-        activity=activity,
-        lon=lon,
-        lat=lat,
-        x=x,
-        y=y,
-        crs=crs,
-        tolerance=tolerance,
-        max_gap=max_gap,
-        max_speed=max_speed,
-        min_stay=min_stay,
-    )
+    check_outputs({"--section": section, "--dose-chart": dose_chart}, reading.inputs, trial=trial)
+    tf, stays = reading.load(trial)
     result = treatment_received(
-        tf, stays, planned_minutes=planned_minutes, outcome=measure, n_draws=draws, level=level
+        tf, stays, planned_minutes=planned_minutes, outcome=measure, n_draws=test_draws, level=level
     )
     console.print(str(result), markup=False)
     if section is not None:
@@ -460,9 +408,7 @@ def timeline_command(
     effects_out: Annotated[
         Path | None, typer.Option(help="CSV of the effects per post period.")
     ] = None,
-    draws: Annotated[
-        int, typer.Option(help="Randomization draws per period's test.", min=1, max=1_000_000)
-    ] = 2000,
+    test_draws: TestDrawsOpt = 2000,
 ) -> None:
     """Incidents per unit by exposure condition over time, the trial window shaded; pre-trend.
 
@@ -521,7 +467,7 @@ def timeline_command(
             series.to_csv(tmp, encoding="utf-8")
         console.print(f"Mean incidents per unit by condition and {freq} written to {out}")
     if effects is not None or effects_out is not None:
-        _period_effects(trial, counts, (first, last), effects, effects_out, draws)
+        _period_effects(trial, counts, (first, last), effects, effects_out, test_draws)
 
 
 def _period_effects(trial, counts, window, chart, table, draws) -> None:

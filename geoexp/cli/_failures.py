@@ -20,6 +20,7 @@ import sys
 import tempfile
 import traceback
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import typer
 from typer.core import TyperGroup
@@ -27,9 +28,14 @@ from typer.core import TyperGroup
 from geoexp.cli._wording import command_keywords, in_option_words
 from geoexp.errors import GeoexpError
 
-# The click exception base as typer uses it (recent typer releases carry their own copy of
-# click, so the class is found from typer's own BadParameter rather than imported).
-ClickException = next(c for c in typer.BadParameter.__mro__ if c.__name__ == "ClickException")
+if TYPE_CHECKING:
+    # The type checker reads the class where the installed typer keeps it (its own copy of
+    # click); at run time it is found from typer's BadParameter, which works with every typer.
+    from typer._click.exceptions import ClickException
+else:
+    # The click exception base as typer uses it (recent typer releases carry their own copy
+    # of click, so the class is found from typer's own BadParameter rather than imported).
+    ClickException = next(c for c in typer.BadParameter.__mro__ if c.__name__ == "ClickException")
 
 USER_ERROR = 2
 UNEXPECTED = 1

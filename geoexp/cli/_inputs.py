@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 from pathlib import Path
+from typing import overload
 
 from geoexp.errors import InputError
 
@@ -49,6 +50,10 @@ def spec_inputs(path: Path, spec) -> dict[str, Path]:
     return found
 
 
+@overload
+def incidents_input(text: str) -> Path | str: ...
+@overload
+def incidents_input(text: None) -> None: ...
 def incidents_input(text: str | None) -> Path | str | None:
     """An ``--incidents`` value: a database URL stays text, anything else is a file path."""
     from geoexp.postgis import is_database_url

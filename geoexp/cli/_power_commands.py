@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 from pathlib import Path
-from typing import Annotated
+from typing import Annotated, Literal, TypedDict
 
 import typer
 
@@ -44,8 +44,18 @@ def _effects(items: list[str] | None, what: str) -> dict[str, float]:
     return out
 
 
-def _require_baseline(column: str | None, design, spec: Path) -> None:
-    """Refuse a missing --baseline-column, naming the units layer's numeric columns."""
+class _Simulation(TypedDict):
+    """The simulation settings shared by the power run, its curve and the design comparison."""
+
+    n_sims: int
+    n_draws: int
+    alpha: float
+    outcome: Literal["change", "post"]
+    rng: int | None
+
+
+def _require_baseline(column: str | None, design, spec: Path) -> str:
+    """Return --baseline-column, refusing a missing one and naming the layer's numeric columns."""
     frame = design.units.frame
     numeric = [str(c) for c in frame.columns if c != "geometry" and frame[c].dtype.kind in "iuf"]
     listed = ", ".join(numeric) if numeric else "none"
@@ -60,6 +70,7 @@ def _require_baseline(column: str | None, design, spec: Path) -> None:
             f"--baseline-column {column!r} is not a column of the units layer named in '{spec}'; "
             f"its numeric columns are: {listed}"
         )
+    return column
 
 
 @app.command("power")
@@ -162,13 +173,18 @@ def power_command(
     sims = renamed_option(simulated_trials, sims, "--sims", "--simulated-trials")
     draws = renamed_option(test_draws, draws, "--draws", "--test-draws")
     design = Design.from_spec(load_spec(spec))
-    _require_baseline(baseline_column, design, spec)
     model = NegativeBinomialOutcome(
-        baseline=baseline_column,
+        baseline=_require_baseline(baseline_column, design, spec),
         dispersion=dispersion,
         rate_ratios=ratios,
     )
-    common = dict(n_sims=sims, n_draws=draws, alpha=alpha, outcome=outcome.value, rng=seed)
+    common: _Simulation = {
+        "n_sims": sims,
+        "n_draws": draws,
+        "alpha": alpha,
+        "outcome": outcome.value,
+        "rng": seed,
+    }
     if figures is not None and not curve:
         raise typer.BadParameter("--figures needs --curve (the figure is the power curve)")
     if figures is not None:
@@ -206,7 +222,7 @@ def _warn_underpowered(result, target: float) -> None:
             )
 
 
-def _print_curve(design, model, common, ratios, treated, target, figures) -> None:
+def _print_curve(design, model, common: _Simulation, ratios, treated, target, figures) -> None:
     from geoexp.power import power_curve
 
     planted = dict(model.rate_ratios).get("treated")

@@ -7,7 +7,7 @@ sampler follows (chunk k of the draws uses child k of the seed sequence).
 from __future__ import annotations
 
 from collections.abc import Iterator, Mapping
-from typing import Any, ClassVar
+from typing import Any, ClassVar, cast
 
 import numpy as np
 import pandas as pd
@@ -150,7 +150,14 @@ class _Chunked:
 
     default_chunk: ClassVar[int] = DEFAULT_CHUNK
     n_units: int
-    eligible: np.ndarray
+    # As given: positions, a boolean mask or None (all units); each sampler's
+    # __post_init__ replaces it by ascending int64 positions (see _layer).
+    eligible: np.ndarray | None
+
+    @property
+    def positions(self) -> np.ndarray:
+        """Eligible positions: ascending int64, read-only (``eligible`` once normalised)."""
+        return cast(np.ndarray, self.eligible)
 
     def _draw_chunk(self, n_draws: int, seed: np.random.SeedSequence) -> Draws:
         raise NotImplementedError

@@ -92,13 +92,13 @@ class CompleteSampler(_Chunked):
 
     def _draw_chunk(self, n_draws: int, seed: np.random.SeedSequence) -> Draws:
         main, extension = _generators(seed, 2)
-        local = _subset_matrix(main, extension, self.eligible.size, self.n_treated, n_draws)
-        return Draws.from_rows(self.eligible[local], self.n_units)
+        local = _subset_matrix(main, extension, self.positions.size, self.n_treated, n_draws)
+        return Draws.from_rows(self.positions[local], self.n_units)
 
     def describe(self) -> str:
         """Return a plain sentence describing the procedure."""
         return (
-            f"Complete randomization: {self.n_treated:,} of {self.eligible.size:,} eligible "
+            f"Complete randomization: {self.n_treated:,} of {self.positions.size:,} eligible "
             "units are treated, every such set equally likely."
         )
 
@@ -162,12 +162,12 @@ class BlockedSampler(_Chunked):
                 local = _subset_matrix(main, extension, members.size, quota, n_draws)
                 parts.append(members[local])
         local = np.concatenate(parts, axis=1)
-        return Draws.from_rows(self.eligible[local], self.n_units)
+        return Draws.from_rows(self.positions[local], self.n_units)
 
     def describe(self) -> str:
         """Return a plain sentence describing the procedure."""
         return (
-            f"Blocked randomization: {self.n_treated:,} of {self.eligible.size:,} eligible units "
+            f"Blocked randomization: {self.n_treated:,} of {self.positions.size:,} eligible units "
             f"treated, a fixed number in each of {self.block_labels.size:,} blocks, every set "
             "within a block equally likely."
         )
@@ -207,6 +207,9 @@ class Rerandomized(_Chunked):
     acceptance: float
     covariate_names: Sequence[str] | None = None
 
+    # the layer and eligible positions of the base sampler
+    n_units: int = field(init=False, repr=False)
+    eligible: np.ndarray | None = field(init=False, repr=False)
     threshold: float = field(init=False, repr=False)
     _chol: np.ndarray = field(init=False, repr=False)
     _local: np.ndarray = field(init=False, repr=False)
@@ -218,13 +221,15 @@ class Rerandomized(_Chunked):
                 "rerandomization needs a base sampler with a fixed number of treated units "
                 "(complete, blocked or kept-apart)"
             )
+        object.__setattr__(self, "n_units", base.n_units)
+        object.__setattr__(self, "eligible", base.positions)
         names = self.covariate_names
         if isinstance(self.covariates, pd.DataFrame) and names is None:
             names = [str(c) for c in self.covariates.columns]
         x = np.array(self.covariates, dtype=np.float64)
         if x.ndim == 1:
             x = x[:, None]
-        n_e = base.eligible.size
+        n_e = base.positions.size
         if x.ndim != 2 or x.shape[0] != n_e:
             raise InputError(
                 f"covariates must have one row per eligible unit ({n_e}), got shape {x.shape}"
@@ -237,7 +242,7 @@ class Rerandomized(_Chunked):
         if bad_rows.size:
             raise InputError(
                 "covariates are missing or infinite for eligible units at positions "
-                + describe_rows(base.eligible[bad_rows].tolist())
+                + describe_rows(base.positions[bad_rows].tolist())
             )
         acceptance = float(self.acceptance)
         if not 0 < acceptance <= 1:
@@ -248,7 +253,7 @@ class Rerandomized(_Chunked):
         object.__setattr__(self, "_chol", _readonly(self._cholesky(x, names)))
         object.__setattr__(self, "threshold", float(scipy.stats.chi2.ppf(acceptance, k)))
         local = np.full(base.n_units, -1, dtype=np.int64)
-        local[base.eligible] = np.arange(n_e)
+        local[base.positions] = np.arange(n_e)
         object.__setattr__(self, "_local", _readonly(local))
 
     @staticmethod
@@ -273,16 +278,6 @@ class Rerandomized(_Chunked):
                 + "; drop one of them"
             )
         return np.linalg.cholesky(np.atleast_2d(np.cov(x, rowvar=False)))
-
-    @property
-    def n_units(self) -> int:  # type: ignore[override]
-        """Units in the full layer (from the base sampler)."""
-        return self.base.n_units
-
-    @property
-    def eligible(self) -> np.ndarray:  # type: ignore[override]
-        """Eligible positions (from the base sampler)."""
-        return self.base.eligible
 
     @property
     def n_treated(self) -> int:
@@ -345,7 +340,7 @@ class Rerandomized(_Chunked):
                     f"only {got} of {tried} draws of the base design met the balance rule "
                     f"M <= {self.threshold:.4g}, far below the planned acceptance "
                     f"{self.acceptance:g}: this base design cannot balance "
-                    f"{describe_rows(list(self.covariate_names))} that tightly; raise acceptance"
+                    f"{describe_rows(list(self.covariate_names or ()))} that tightly; raise acceptance"
                 )
         return Draws.concat(kept)
 
@@ -354,7 +349,7 @@ class Rerandomized(_Chunked):
         return (
             f"Rerandomization (Morgan & Rubin 2012) of: {self.base.describe()} Draws are kept "
             f"only when the Mahalanobis distance between treated and control means of "
-            f"{len(self.covariate_names)} covariates is at most {self.threshold:.4g} (planned acceptance "
+            f"{len(self.covariate_names or ())} covariates is at most {self.threshold:.4g} (planned acceptance "
             f"{self.acceptance:.0%})."
         )
 

@@ -137,7 +137,7 @@ class SaturationSampler(_Chunked):
                 continue
             rows, values = sample_subsets(main, extension, members.size, m_row)
             all_rows.append(rows)
-            all_pos.append(self.eligible[members[values]])
+            all_pos.append(self.positions[members[values]])
         rows = np.concatenate(all_rows) if all_rows else np.zeros(0, np.int64)
         pos = np.concatenate(all_pos) if all_pos else np.zeros(0, np.int64)
         key = np.sort(rows * self.n_units + pos)

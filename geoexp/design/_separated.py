@@ -276,7 +276,7 @@ class SeparatedSampler(_Chunked):
             retry=True,
             engine=self._engine,
         )
-        return Draws.from_rows(self.eligible[state.accepted], self.n_units)
+        return Draws.from_rows(self.positions[state.accepted], self.n_units)
 
     def with_engine(self, engine: Engine) -> SeparatedSampler:
         """Return the same design with another step-loop engine (identical draws)."""
@@ -300,7 +300,7 @@ class SeparatedSampler(_Chunked):
         )
         gap = f"{self.gap:g} m" if self.gap is not None else "the gap"
         return (
-            f"Treated units kept apart: {self.n_treated:,} of {self.eligible.size:,} eligible "
+            f"Treated units kept apart: {self.n_treated:,} of {self.positions.size:,} eligible "
             f"units treated{blocks}, no two closer than {gap}, by greedy packing in uniformly "
             f"random order, redrawn when it gets stuck ({self.pilot_success:.0%} of pilot "
             "packings reached the target)."

@@ -38,18 +38,17 @@ LEGEND_WIDTH_PX = 360
 def contrast_codes(analysis: Analysis) -> tuple[str, ...]:
     """The condition code of each contrast's exposed condition, in the order of the effects.
 
-    The analysis estimates one contrast per condition index k = 0, 1, ... of the
-    exposure mapping against pure control, and stores each condition's
-    probability as column ``p_<code>`` of its per-unit table in the mapping's
-    order; so contrast k belongs to the k-th ``p_`` column's code.
+    Each contrast row of the analysis carries its condition codes
+    (:attr:`geoexp.analysis.ContrastResult.exposure_code`); outputs match
+    effects to conditions by these codes, never by label text or column order.
     """
-    codes = tuple(c[2:] for c in analysis.per_unit.columns if str(c).startswith("p_"))
-    if len(codes) <= len(analysis.effects):
+    codes = analysis.codes
+    if len(codes) != len(analysis.effects):
         raise InputError(
-            f"the analysis has {len(analysis.effects)} contrasts but its per-unit table gives "
-            f"probabilities for {len(codes)} conditions (columns p_<code>); it cannot be mapped"
+            f"the analysis has {len(analysis.effects)} contrasts but only {len(codes)} contrast "
+            "rows carrying their condition codes; it cannot be mapped"
         )
-    return codes[: len(analysis.effects)]
+    return codes
 
 
 @dataclass(frozen=True, eq=False)

@@ -10,7 +10,8 @@ made elsewhere. :func:`save_outcomes` and :func:`load_outcomes` keep the table
 in the trial file. :func:`count_onto_units` counts incidents onto a units
 layer before any trial (one period or all time, dated or not, optionally some
 types only) and :func:`write_counted_layer` writes the layer with the new
-column, the baseline a design ranks hot spots by.
+column, the baseline a design ranks hot spots by. :class:`ObservedIncidents`
+bundles the incidents, the periods and how to read them as one value.
 """
 
 from geoexp.outcomes._baseline import BaselineCounts, count_onto_units, write_counted_layer
@@ -21,14 +22,17 @@ from geoexp.outcomes._counts import (
     save_outcomes,
 )
 from geoexp.outcomes._drops import MAX_DROPPED_SHARE, REASONS, DropReport
+from geoexp.outcomes._observed import DEFAULT_TOLERANCE_M, ObservedIncidents
 
 __all__ = [
     "BaselineCounts",
     "count_onto_units",
     "write_counted_layer",
+    "DEFAULT_TOLERANCE_M",
     "MAX_DROPPED_SHARE",
     "REASONS",
     "DropReport",
+    "ObservedIncidents",
     "OutcomeTable",
     "count_incidents",
     "load_outcomes",

@@ -13,7 +13,6 @@ with the count column added, so that a spec can name the written file.
 
 from __future__ import annotations
 
-import math
 import os
 import warnings
 from dataclasses import dataclass
@@ -22,13 +21,12 @@ from typing import Any
 
 import numpy as np
 import pandas as pd
-import shapely
 
 from geoexp._atomic import atomic_path
 from geoexp.errors import InputError
 from geoexp.outcomes._drops import _FIELDS, MAX_DROPPED_SHARE, REASONS, DropReport, parse_period
 from geoexp.outcomes._read import DATE_MISSING, DATE_UNPARSEABLE, read_incidents
-from geoexp.outcomes._snap import id_rank, snap
+from geoexp.outcomes._snap import checked_tolerance, snap_to_units
 from geoexp.units import ROW_ID, UnitSet, read_layer
 
 __all__ = ["BaselineCounts", "count_onto_units", "write_counted_layer"]
@@ -146,12 +144,7 @@ def count_onto_units(
         raise InputError("a period needs the column of incident dates (date_column=)")
     if types and type_column is None:
         raise InputError("counting only some incident types needs type_column=")
-    if isinstance(tolerance_m, bool) or not (
-        isinstance(tolerance_m, (int, float, np.integer, np.floating))
-        and math.isfinite(tolerance_m)
-        and tolerance_m >= 0
-    ):
-        raise InputError(f"tolerance_m must be a number of metres >= 0, got {tolerance_m!r}")
+    tolerance = checked_tolerance(tolerance_m)
     days = None if period is None else parse_period(period, "period")
     rows = read_incidents(
         incidents,
@@ -181,24 +174,14 @@ def count_onto_units(
                 f"{', '.join(repr(t) for t in sorted(found)[:20]) or 'none'}"
             )
     reason = np.zeros(rows.n, dtype=np.int8)
-    assert rows.x is not None and rows.y is not None  # read_incidents always sets them
     if days is not None:
-        assert rows.dates is not None  # read_incidents always sets them
         inside = (rows.dates >= np.datetime64(days[0])) & (rows.dates <= np.datetime64(days[1]))
         reason[~inside] = 4
         reason[rows.date_problem == DATE_UNPARSEABLE] = 3
         reason[rows.date_problem == DATE_MISSING] = 2
     reason[~(np.isfinite(rows.x) & np.isfinite(rows.y))] = 1
     candidates = np.flatnonzero((reason == 0) & wanted)
-    geometry = np.asarray(units.geometry.array, dtype=object)
-    snapped = snap(
-        rows.x[candidates],
-        rows.y[candidates],
-        geometry,
-        id_rank(units.ids),
-        float(tolerance_m) / units.metres_per_unit,
-        tree=shapely.STRtree(geometry),
-    )
+    snapped = snap_to_units(rows.x[candidates], rows.y[candidates], units, tolerance)
     reason[candidates[snapped.unit < 0]] = 5
     counted_units = snapped.unit[snapped.unit >= 0]
     counts = pd.Series(
@@ -213,7 +196,7 @@ def count_onto_units(
         n_incidents=n_wanted,
         **dropped,
         ties=int(snapped.tied[snapped.unit >= 0].sum()),
-        tolerance_m=float(tolerance_m),
+        tolerance_m=tolerance,
         source=rows.source,
         max_dropped_share=None if max_dropped_share is None else float(max_dropped_share),
     )

@@ -21,7 +21,6 @@ from __future__ import annotations
 
 import datetime as dt
 import json
-import math
 import os
 import re
 from collections.abc import Callable, Sequence
@@ -49,7 +48,7 @@ from geoexp.outcomes._drops import (
     parse_periods,
 )
 from geoexp.outcomes._read import DATE_MISSING, DATE_UNPARSEABLE, IncidentRows, read_incidents
-from geoexp.outcomes._snap import id_rank, snap
+from geoexp.outcomes._snap import checked_tolerance, snap_to_units
 from geoexp.postgis import DatabaseSource
 from geoexp.trialfile import TrialFile
 from geoexp.units import UnitSet
@@ -423,12 +422,7 @@ def count_incidents(
         raise InputError(
             f"max_dropped_share must be a share between 0 and 1, got {max_dropped_share!r}"
         )
-    if isinstance(tolerance_m, bool) or not (
-        isinstance(tolerance_m, (int, float, np.integer, np.floating))
-        and math.isfinite(tolerance_m)
-        and tolerance_m >= 0
-    ):
-        raise InputError(f"tolerance_m must be a number of metres >= 0, got {tolerance_m!r}")
+    tolerance = checked_tolerance(tolerance_m)
     if by_type and type_column is None:
         raise InputError("by_type=True needs type_column=, the column of incident types")
     if keep_types is not None:
@@ -472,15 +466,7 @@ def count_incidents(
         reason[~np.isin(rows.types.astype(object), np.array(keep_types, dtype=object))] = _SET_ASIDE
 
     candidates = np.flatnonzero(reason == 0)
-    geometry = np.asarray(units.geometry.array, dtype=object)
-    snapped = snap(
-        rows.x[candidates],
-        rows.y[candidates],
-        geometry,
-        id_rank(units.ids),
-        float(tolerance_m) / units.metres_per_unit,
-        tree=shapely.STRtree(geometry),
-    )
+    snapped = snap_to_units(rows.x[candidates], rows.y[candidates], units, tolerance)
     unit = np.full(rows.n, -1, dtype=np.int64)
     unit[candidates] = snapped.unit
     reason[candidates[snapped.unit < 0]] = 5
@@ -538,7 +524,7 @@ def count_incidents(
         **{f: int(n) for f, n in zip(_FIELDS, per_reason[: len(REASONS)], strict=True)},
         other_incident_type=int(per_reason[_SET_ASIDE - 1]),
         ties=int(snapped.tied[snapped.unit >= 0].sum()),
-        tolerance_m=float(tolerance_m),
+        tolerance_m=tolerance,
         source=rows.source,
         dropped_path=written,
         max_dropped_share=None if max_dropped_share is None else float(max_dropped_share),
@@ -547,7 +533,7 @@ def count_incidents(
         counts,
         pre_d,
         post_d,
-        float(tolerance_m),
+        tolerance,
         drops,
         types,
         rows.source,
@@ -741,6 +727,12 @@ def save_outcomes(
     return store_outcomes(path, table.counts, meta, wait_s=wait_s, notify=notify)
 
 
+def _stored_period(text: str) -> tuple[dt.date, dt.date]:
+    """A period as the trial file stores it, ``START/END`` in ISO dates."""
+    start, end = text.split("/")
+    return dt.date.fromisoformat(start), dt.date.fromisoformat(end)
+
+
 def load_outcomes(trial: TrialFile | str | os.PathLike) -> OutcomeTable:
     """Read the outcome table stored by :func:`save_outcomes`.
 
@@ -779,8 +771,7 @@ def load_outcomes(trial: TrialFile | str | os.PathLike) -> OutcomeTable:
             "them again, or restore the file from a copy"
         )
     counts = frame.astype(np.int64)
-    pre = tuple(dt.date.fromisoformat(s) for s in meta["outcomes_pre"].split("/"))
-    post = tuple(dt.date.fromisoformat(s) for s in meta["outcomes_post"].split("/"))
+    pre, post = (_stored_period(meta[f"outcomes_{name}"]) for name in ("pre", "post"))
     tol = float(meta["outcomes_tolerance_m"]) if meta.get("outcomes_tolerance_m") else None
     types = tuple(json.loads(meta["outcomes_types"]))
     stored = json.loads(meta["outcomes_drops"])

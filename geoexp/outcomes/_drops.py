@@ -74,7 +74,9 @@ def parse_period(period: Period, name: str) -> tuple[dt.date, dt.date]:
     return start, end
 
 
-def parse_periods(pre: Period, post: Period) -> tuple[tuple[dt.date, dt.date], ...]:
+def parse_periods(
+    pre: Period, post: Period
+) -> tuple[tuple[dt.date, dt.date], tuple[dt.date, dt.date]]:
     """Check both periods: each well formed, no day shared, the post-period after the pre."""
     pre_d, post_d = parse_period(pre, "pre"), parse_period(post, "post")
     if pre_d[0] <= post_d[1] and post_d[0] <= pre_d[1]:

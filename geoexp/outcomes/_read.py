@@ -105,15 +105,14 @@ class InputRows:
 class IncidentRows(InputRows):
     """Incidents as arrays, one entry per input row, in input order."""
 
-    x: np.ndarray | None = None  # float64, units' CRS; NaN where coordinates are missing
-    y: np.ndarray | None = None
-    dates: np.ndarray | None = None  # datetime64[D]; NaT where missing or unreadable
-    date_problem: np.ndarray | None = None  # int8: DATE_OK, DATE_MISSING, DATE_UNPARSEABLE
-    types: np.ndarray | None = None  # object array of type labels (None where missing)
+    x: np.ndarray  # float64, units' CRS; NaN where coordinates are missing
+    y: np.ndarray
+    dates: np.ndarray  # datetime64[D]; NaT where missing or unreadable
+    date_problem: np.ndarray  # int8: DATE_OK, DATE_MISSING, DATE_UNPARSEABLE
+    types: np.ndarray  # object array of type labels (None where missing or no type column)
 
     @property
     def n(self) -> int:
-        assert self.x is not None
         return len(self.x)
 
 
@@ -213,7 +212,7 @@ def read_incidents(
         problem = np.full(len(frame), DATE_OK, dtype=np.int8)
     else:
         dates, problem = parse_dates(frame[date_column], date_column, date_format, named)
-    types = None
+    types = np.full(len(frame), None, dtype=object)  # no type column: every type missing
     if type_column is not None:
         labels = frame[type_column].astype("str").str.strip()
         blank = labels.isna().to_numpy(dtype=bool) | labels.eq("").fillna(True).to_numpy(bool)

@@ -18,10 +18,14 @@ order of the layer, so the same data give the same counts on every machine.
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 
 import numpy as np
 import shapely
+
+from geoexp.errors import InputError
+from geoexp.units import UnitSet
 
 # Points are snapped in batches so that the candidate pairs of a dense layer
 # with a generous tolerance cannot exhaust memory.
@@ -41,6 +45,30 @@ def id_rank(ids) -> np.ndarray:
     rank = np.empty(len(order), dtype=np.int64)
     rank[order] = np.arange(len(order))
     return rank
+
+
+def checked_tolerance(tolerance_m: object) -> float:
+    """The snapping tolerance in metres, refusing anything but a finite number >= 0."""
+    if isinstance(tolerance_m, bool) or not (
+        isinstance(tolerance_m, (int, float, np.integer, np.floating))
+        and math.isfinite(tolerance_m)
+        and tolerance_m >= 0
+    ):
+        raise InputError(f"tolerance_m must be a number of metres >= 0, got {tolerance_m!r}")
+    return float(tolerance_m)
+
+
+def snap_to_units(x: np.ndarray, y: np.ndarray, units: UnitSet, tolerance_m: float) -> Snapped:
+    """Nearest unit of ``units`` within ``tolerance_m`` metres of each point (in the units' CRS)."""
+    geometry = np.asarray(units.geometry.array, dtype=object)
+    return snap(
+        x,
+        y,
+        geometry,
+        id_rank(units.ids),
+        tolerance_m / units.metres_per_unit,
+        tree=shapely.STRtree(geometry),
+    )
 
 
 def snap(
