@@ -345,7 +345,7 @@ def _layer_of(spec: SweepSpec):
 # --- the Dask back end -----------------------------------------------------------------
 
 
-def test_a_cluster_of_two_worker_processes_gives_identical_results(folder, spec):
+def test_a_cluster_of_two_worker_processes_gives_identical_results(folder, spec, capsys):
     from geoexp.inference import ContrastSpec, fisher_test
 
     one = {**SWEEP, "grid": {"treated": [12], "gap_m": [150]}}
@@ -367,7 +367,9 @@ def test_a_cluster_of_two_worker_processes_gives_identical_results(folder, spec)
     try:
         assert "2 worker" in backend.describe()
         remote = run_sweep(single, backend=backend)
-        chunked_remote = run_sweep(chunked, backend=backend)
+        capsys.readouterr()
+        chunked_remote = run_sweep(chunked, backend=backend, progress=True)
+        shown = capsys.readouterr().err
         [(_, remote_test)] = list(
             backend.run(apply_to_shared, [(fisher_test, args, options)], design)
         )
@@ -377,6 +379,9 @@ def test_a_cluster_of_two_worker_processes_gives_identical_results(folder, spec)
     pd.testing.assert_frame_equal(
         _rows(chunked_remote.table), _rows(chunked_local.table), check_exact=True
     )
+    # the progress bar counts the cluster's tasks as they finish: one for the probabilities and
+    # one per chunk of trials (3 chunks of 50 trials at 20 a chunk)
+    assert "4/4" in shown and "a local Dask cluster of 2" in shown
     assert remote_test.p_value == local_test.p_value
     assert remote_test.statistic == local_test.statistic
     np.testing.assert_array_equal(remote_test.null_draws, local_test.null_draws)

@@ -668,6 +668,14 @@ def _simulate(
             details[mapping.codes[k]].update(u=u, v=v, low=low, high=high)
             with np.errstate(invalid="ignore"):
                 covered = int(((low <= planted) & (planted <= high)).sum())
+            unbounded = int((np.isinf(low) | np.isinf(high)).sum())
+            if unbounded:
+                notes.append(
+                    f"{mapping.labels[k]} vs {mapping.labels[pc]}: the interval had an "
+                    f"unbounded end in {unbounded} of {n_sims} simulated trials (the test "
+                    f"rejected no effect on that side with {n_draws} draws), which covers "
+                    "trivially"
+                )
         by_code[k] = (
             test,
             power,

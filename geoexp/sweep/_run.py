@@ -309,10 +309,10 @@ class _progress_bar:
         )
         self._bar = bar
         bar.start()
-        task = bar.add_task(f"candidates on {self.where}", total=self.total)
+        task = bar.add_task(f"tasks on {self.where}", total=self.total)
 
         def advance(label: str) -> None:
-            bar.update(task, advance=1, description=f"done: {label}")
+            bar.update(task, advance=1, description=f"on {self.where}, done: {label}")
 
         return advance
 
