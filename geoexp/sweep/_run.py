@@ -309,10 +309,11 @@ class _progress_bar:
         )
         self._bar = bar
         bar.start()
-        task = bar.add_task(f"tasks on {self.where}", total=self.total)
+        bar.console.print(f"{self.total} task(s) on {self.where}")
+        task = bar.add_task("started", total=self.total)
 
         def advance(label: str) -> None:
-            bar.update(task, advance=1, description=f"on {self.where}, done: {label}")
+            bar.update(task, advance=1, description=f"done: {label}")
 
         return advance
 
