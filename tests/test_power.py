@@ -499,3 +499,28 @@ def test_power_simulates_the_analysis_rows_units(lattice):
         rows = details[lattice.mapping.codes[k]]["rows"]
         np.testing.assert_array_equal(details["used"][rows], np.flatnonzero(est.units))
         assert result.contrasts[k].n_units == est.n_units
+
+
+def test_outcomes_do_not_depend_on_the_number_of_threads(lattice, monkeypatch):
+    from geoexp._engine import limit_threads
+    from geoexp.power import _simulate as engine
+
+    # blocks of 16 units, so that the 144 units of the lattice make several blocks and threads
+    monkeypatch.setattr(engine, "_OUTCOME_BLOCK", 16)
+    model = NegativeBinomialOutcome("past", 0.5, {"treated": 0.7})
+    common = dict(
+        n_sims=12,
+        n_draws=20,
+        alpha=0.05,
+        outcome="change",
+        alternative="two-sided",
+        n_draws_probabilities=None,
+        rng=8,
+    )
+    _, many = _simulate(lattice, model, **common)
+    with limit_threads(1):
+        _, one = _simulate(lattice, model, **common)
+    np.testing.assert_array_equal(many["outcomes"], one["outcomes"])
+    # [A] the blocks are independent streams: no two blocks repeat each other's draws
+    y = one["outcomes"]
+    assert not any(np.array_equal(y[0:16], y[b : b + 16]) for b in range(16, y.shape[0] - 15, 16))

@@ -20,13 +20,14 @@ simulations or draws.
 
 from __future__ import annotations
 
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
 from typing import TYPE_CHECKING, Literal
 
 import numpy as np
 import pandas as pd
 
-from geoexp._engine import matrix_threads
+from geoexp._engine import matrix_threads, thread_count
 from geoexp._rng import RngLike, Stream, as_seed_sequence, child_sequence
 from geoexp.errors import InputError
 from geoexp.estimate import DEFAULT_FLOOR, contrast_units
@@ -365,6 +366,50 @@ def inverted_intervals(
     return low, high
 
 
+# units per block of simulated outcomes; each block draws from its own child stream, so the
+# outcomes do not depend on how many threads draw them
+_OUTCOME_BLOCK = 4096
+
+
+def _sample_outcomes(
+    model: OutcomeModel,
+    means: np.ndarray,
+    effects: np.ndarray,
+    cond: np.ndarray,
+    outcome: OutcomeMeasure,
+    seed: np.random.SeedSequence,
+) -> np.ndarray:
+    """Outcomes (n_units, n_sims) of every simulated trial, drawn block by block of units.
+
+    Block b of :data:`_OUTCOME_BLOCK` units draws its post-period (and, for
+    ``"change"``, then its pre-period) from the child stream b of ``seed``;
+    blocks run on :func:`geoexp._engine.thread_count` threads (numpy's
+    generators release the interpreter lock), with the same result on any
+    number of threads.
+    """
+    y = np.empty(cond.shape)
+
+    def block(b: int) -> None:
+        rows = slice(b * _OUTCOME_BLOCK, (b + 1) * _OUTCOME_BLOCK)
+        gen = np.random.default_rng(child_sequence(seed, b))
+        base = means[rows, None]
+        c = cond[rows]
+        out = model.sample(model.expected(base, effects, c), gen)
+        if outcome == "change":
+            out -= model.sample(np.broadcast_to(base, c.shape), gen)
+        y[rows] = out
+
+    n_blocks = -(-cond.shape[0] // _OUTCOME_BLOCK)
+    n_threads = min(thread_count(), n_blocks)
+    if n_threads <= 1:
+        for b in range(n_blocks):
+            block(b)
+    else:
+        with ThreadPoolExecutor(n_threads) as pool:
+            list(pool.map(block, range(n_blocks)))
+    return y
+
+
 def _hajek_each(
     y: np.ndarray, cond: np.ndarray, rows: np.ndarray, k: int, l: int, probs: np.ndarray
 ) -> np.ndarray:
@@ -617,11 +662,7 @@ def _simulate(
             units=used,
         ).bits
         cond = _sim_conditions(bits, n_sims)
-        gen = np.random.default_rng(child_sequence(seed, 1))
-        base = means[used][:, None]
-        y = model.sample(model.expected(base, effects, cond), gen)
-        if outcome == "change":
-            y -= model.sample(np.broadcast_to(base, cond.shape), gen)
+        y = _sample_outcomes(model, means[used], effects, cond, outcome, child_sequence(seed, 1))
         details.update(conditions=cond, outcomes=y)
     # each trial's estimate of every row (the intervals hold the other rows' effects at them)
     plug = np.zeros((pc + 1, n_sims))
