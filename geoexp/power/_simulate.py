@@ -14,8 +14,10 @@ for outcome vector y_s is
 so the numerators and denominators of every (draw, simulation) pair are the
 product of an unpacked block of bits (draws x units) with one weight matrix
 holding every simulation's column y_s / pi plus the column 1 / pi. That is a
-matrix product per block of draws and contrast, never a loop over
-simulations or draws.
+matrix product per block of units and contrast, accumulated over the
+blocks, never a loop over simulations or draws. The interval the analysis
+prints (inverting the test of a constant additive effect) needs two more
+columns per simulation in the same products (:func:`inverted_intervals`).
 """
 
 from __future__ import annotations
