@@ -194,3 +194,17 @@ def compute_threads() -> Iterator[int]:
             yield n_threads
         finally:
             numba.set_num_threads(before)
+
+
+@contextmanager
+def matrix_threads() -> Iterator[int]:
+    """BLAS on :func:`thread_count` threads for a few large matrix products; yields that number.
+
+    For a section of large products only (each thousands of rows on a side),
+    where BLAS's own threads pay off and nothing else runs beside them; in a
+    worker held to one thread by :func:`limit_threads` it is one thread.
+    Restored on exit, also inside :func:`compute_threads`.
+    """
+    n_threads = thread_count()
+    with _blas_controller().limit(limits=n_threads, user_api="blas"):
+        yield n_threads

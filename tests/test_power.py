@@ -175,6 +175,141 @@ def test_engine_statistics_equal_a_direct_hajek_computation(lattice):
     assert result.contrasts[1].n_units == spill_units.size
 
 
+def _two_sided_p(t: float, draws: np.ndarray) -> float:
+    # [A] equal-tailed two-sided Monte Carlo p-value: min(1, 2 min((1 + #{T >= t}) / (R + 1),
+    # (1 + #{T <= t}) / (R + 1))), Lehmann & Romano (2005) section 5.8, written out here
+    r = draws.size
+    upper = (1 + (draws >= t).sum()) / (r + 1)
+    lower = (1 + (draws <= t).sum()) / (r + 1)
+    return min(1.0, 2 * min(upper, lower))
+
+
+def _hajek_of(values, d, k, pc, pk, pl):
+    # [A] Aronow & Samii (2017) Hajek contrast over the units of each condition
+    a, b = d == k, d == pc
+    return (values[a] / pk[a]).sum() / (1 / pk[a]).sum() - (values[b] / pl[b]).sum() / (
+        1 / pl[b]
+    ).sum()
+
+
+def _imputed_draws(shifted, d_s, x, reference, k, pc, pk, pl):
+    # Y_i(pure control) = y_i - tau_{d_i} - x 1[d_i = k], the Hajek contrast under each draw
+    imputed = shifted - x * (d_s == k)
+    return np.array([_hajek_of(imputed, d, k, pc, pk, pl) for d in reference])
+
+
+def test_inverted_intervals_of_the_simulated_trials(lattice):
+    # [A] Rosenbaum (2002) inversion under constant additive effects: with tau_c held at the
+    # trial's estimates for the other conditions (0 for the reference), each draw r imputes
+    # Y_i(pure control) = y_i - tau_{d_i} - x 1[d_i = k] and recomputes the Hajek contrast; the
+    # interval is the set of x whose test does not reject. Recomputed here one draw at a time
+    # from the sampler's own draws and assign_conditions, against the engine's block products.
+    model = NormalOutcome(0.0, 1.0, {"treated": -0.8, "spillover_1": 0.4})
+    n_sims, n_draws, seed = 30, 80, np.random.SeedSequence(9)
+    result, details = _simulate(
+        lattice,
+        model,
+        n_sims=n_sims,
+        n_draws=n_draws,
+        alpha=0.1,
+        outcome="post",
+        alternative="two-sided",
+        n_draws_probabilities=None,
+        rng=seed,
+        coverage=("treated", "spillover_1"),
+    )
+    draws = lattice.sampler.draw_many(n_sims + n_draws, child_sequence(seed, 0))
+    probs, used, y = details["probabilities"], details["used"], details["outcomes"]
+    pc = lattice.mapping.pure_control
+    plug = details["plug"]
+    for k, code in enumerate(lattice.mapping.codes[:pc]):
+        rows = details[code]["rows"]
+        units = used[rows]
+        pk, pl = probs[units, k], probs[units, pc]
+        reference = np.array(
+            [
+                assign_conditions(lattice.graph, lattice.mapping, draws.treated(r))[units]
+                for r in range(n_sims, n_sims + n_draws)
+            ]
+        )
+        for s in (0, 17, n_sims - 1):
+            d_s = assign_conditions(lattice.graph, lattice.mapping, draws.treated(s))[units]
+            # the plugged effect of this row is the trial's own Hajek estimate over its units
+            own = _hajek_of(y[rows, s], d_s, k, pc, pk, pl)
+            assert plug[k, s] == pytest.approx(own, rel=1e-9, abs=1e-12)
+            tau = plug[:, s].copy()
+            tau[[k, pc]] = 0.0
+            shifted = y[rows, s] - tau[d_s]
+            for x in (-1.0, 0.3):
+                got = details[code]["u"][s] - x * details[code]["v"][s]
+                want = _imputed_draws(shifted, d_s, x, reference, k, pc, pk, pl)
+                np.testing.assert_allclose(got, want, rtol=1e-9, atol=1e-9)
+            est = details[code]["observed"][s]
+            low, high = details[code]["low"][s], details[code]["high"][s]
+            assert low < est < high
+            # the ends are where the test starts to reject at alpha = 0.1
+            step = 1e-6 * (high - low)
+            for inner, out in ((low + step, low - step), (high - step, high + step)):
+                at_in = _imputed_draws(shifted, d_s, inner, reference, k, pc, pk, pl)
+                at_out = _imputed_draws(shifted, d_s, out, reference, k, pc, pk, pl)
+                assert _two_sided_p(est - inner, at_in) > 0.1
+                assert _two_sided_p(est - out, at_out) <= 0.1
+        contrast = result.contrasts[k]
+        inside = (details[code]["low"] <= contrast.planted_effect) & (
+            contrast.planted_effect <= details[code]["high"]
+        )
+        assert contrast.n_covered == inside.sum()
+        assert contrast.coverage == inside.mean()
+
+
+def test_inverted_intervals_cover_a_constant_effect_at_their_level(isolated):
+    # [A] Rosenbaum (2002): inverting an exact randomization test gives an interval whose
+    # coverage of a constant additive effect is at least its level; with the equal-tailed
+    # Monte Carlo p-value (1 + M) / (R + 1) it is a little above. No interference here, so the
+    # model of the test is the model that made the data. Allowance: 3 Monte Carlo errors below,
+    # and 3 plus 0.02 above (the conservative p-value rule on 200 draws).
+    model = NormalOutcome(0.0, 1.0, {"treated": 0.7})
+    result = simulate_power(
+        isolated, model, n_sims=400, n_draws=200, outcome="post", rng=21, coverage=("treated",)
+    )
+    row = result.contrasts[0]
+    assert row.planted_effect == pytest.approx(0.7)
+    mc = np.sqrt(0.95 * 0.05 / 400)
+    assert 0.95 - 3 * mc <= row.coverage <= 0.95 + 3 * mc + 0.02
+    assert row.coverage_mc_error == pytest.approx(np.sqrt(row.coverage * (1 - row.coverage) / 400))
+    # a value other than the planted effect (0, no effect) is covered far less often
+    _, details = _simulate(
+        isolated,
+        model,
+        n_sims=200,
+        n_draws=200,
+        alpha=0.05,
+        outcome="post",
+        alternative="two-sided",
+        n_draws_probabilities=None,
+        rng=21,
+        coverage=("treated",),
+    )
+    low, high = details["treated"]["low"], details["treated"]["high"]
+    assert ((low <= 0.0) & (0.0 <= high)).mean() < 0.5
+    # without asking, no coverage and the same power
+    plain = simulate_power(isolated, model, n_sims=400, n_draws=200, outcome="post", rng=21)
+    assert np.isnan(plain.contrasts[0].coverage)
+    assert plain.contrasts[0].power == row.power
+
+
+def test_probabilities_given_are_those_computed(lattice):
+    model = NegativeBinomialOutcome("past", 0.5, {"treated": 0.7})
+    given_p = lattice.probabilities().probabilities
+    a = simulate_power(lattice, model, n_sims=20, n_draws=30, rng=3).to_frame()
+    b = simulate_power(lattice, model, n_sims=20, n_draws=30, rng=3, probabilities=given_p)
+    pd.testing.assert_frame_equal(a, b.to_frame())
+    with pytest.raises(InputError, match="probabilities must be"):
+        simulate_power(lattice, model, n_sims=2, n_draws=2, probabilities=given_p[:3])
+    with pytest.raises(InputError, match="coverage names"):
+        simulate_power(lattice, model, n_sims=2, n_draws=2, coverage=("spillover_7",))
+
+
 def test_probabilities_are_the_designs_own(lattice):
     _, details = _simulate(
         lattice,
@@ -364,3 +499,28 @@ def test_power_simulates_the_analysis_rows_units(lattice):
         rows = details[lattice.mapping.codes[k]]["rows"]
         np.testing.assert_array_equal(details["used"][rows], np.flatnonzero(est.units))
         assert result.contrasts[k].n_units == est.n_units
+
+
+def test_outcomes_do_not_depend_on_the_number_of_threads(lattice, monkeypatch):
+    from geoexp._engine import limit_threads
+    from geoexp.power import _simulate as engine
+
+    # blocks of 16 units, so that the 144 units of the lattice make several blocks and threads
+    monkeypatch.setattr(engine, "_OUTCOME_BLOCK", 16)
+    model = NegativeBinomialOutcome("past", 0.5, {"treated": 0.7})
+    common = dict(
+        n_sims=12,
+        n_draws=20,
+        alpha=0.05,
+        outcome="change",
+        alternative="two-sided",
+        n_draws_probabilities=None,
+        rng=8,
+    )
+    _, many = _simulate(lattice, model, **common)
+    with limit_threads(1):
+        _, one = _simulate(lattice, model, **common)
+    np.testing.assert_array_equal(many["outcomes"], one["outcomes"])
+    # [A] the blocks are independent streams: no two blocks repeat each other's draws
+    y = one["outcomes"]
+    assert not any(np.array_equal(y[0:16], y[b : b + 16]) for b in range(16, y.shape[0] - 15, 16))

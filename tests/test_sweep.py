@@ -201,10 +201,16 @@ def test_a_row_is_the_power_simulation_of_its_own_design_spec(spec, result):
     candidate = spec.candidates()[3]
     design = Design.from_spec(spec.design_spec(candidate))
     model = NegativeBinomialOutcome("past", 0.2, {"treated": 0.5, "spillover_1": 0.9})
-    alone = simulate_power(design, model, n_sims=40, n_draws=99).to_frame()
+    alone = simulate_power(
+        design, model, n_sims=40, n_draws=99, coverage=("treated", "spillover_1")
+    ).to_frame()
     row = result.table.loc[candidate.label]
     for code in ("treated", "spillover_1"):
         assert row[f"power_{code}"] == alone.loc[code, "power"]
+        assert row[f"coverage_{code}"] == alone.loc[code, "coverage"]
+        c = row[f"coverage_{code}"]
+        # [A] binomial standard error of a share of 40 trials
+        assert row[f"coverage_mc_error_{code}"] == pytest.approx(np.sqrt(c * (1 - c) / 40))
         assert (
             row[f"bias_{code}"]
             == alone.loc[code, "mean_estimate"] - alone.loc[code, "planted_effect"]
@@ -306,13 +312,21 @@ def test_chunks_of_one_design_pool_to_their_own_simulations(folder):
     candidate_spec = chunked.design_spec(chunked.candidates()[0])
     design = Design.from_spec(candidate_spec)
     model = NegativeBinomialOutcome("past", 0.2, {"treated": 0.5, "spillover_1": 0.9})
-    rejected = sum(
-        simulate_power(design, model, n_sims=n, n_draws=99, rng=design.stream(Stream.POWER, c + 1))
-        .to_frame()
-        .loc["treated", "n_rejected"]
+    frames = [
+        simulate_power(
+            design,
+            model,
+            n_sims=n,
+            n_draws=99,
+            rng=design.stream(Stream.POWER, c + 1),
+            coverage=("treated",),
+        ).to_frame()
         for c, n in enumerate([20, 20, 10])
-    )
+    ]
+    rejected = sum(f.loc["treated", "n_rejected"] for f in frames)
     assert row["power_treated"] == rejected / 50
+    # coverage pools the covering trials of every chunk
+    assert row["coverage_treated"] == sum(f.loc["treated", "n_covered"] for f in frames) / 50
     # the same chunks run one after the other in one call give the same row
     alone = evaluate_candidate(
         candidate_spec, _layer_of(chunked), chunked.simulation, dict(chunked.effects)
@@ -331,7 +345,7 @@ def _layer_of(spec: SweepSpec):
 # --- the Dask back end -----------------------------------------------------------------
 
 
-def test_a_cluster_of_two_worker_processes_gives_identical_results(folder, spec):
+def test_a_cluster_of_two_worker_processes_gives_identical_results(folder, spec, capsys):
     from geoexp.inference import ContrastSpec, fisher_test
 
     one = {**SWEEP, "grid": {"treated": [12], "gap_m": [150]}}
@@ -353,7 +367,9 @@ def test_a_cluster_of_two_worker_processes_gives_identical_results(folder, spec)
     try:
         assert "2 worker" in backend.describe()
         remote = run_sweep(single, backend=backend)
-        chunked_remote = run_sweep(chunked, backend=backend)
+        capsys.readouterr()
+        chunked_remote = run_sweep(chunked, backend=backend, progress=True)
+        shown = capsys.readouterr().err
         [(_, remote_test)] = list(
             backend.run(apply_to_shared, [(fisher_test, args, options)], design)
         )
@@ -363,6 +379,9 @@ def test_a_cluster_of_two_worker_processes_gives_identical_results(folder, spec)
     pd.testing.assert_frame_equal(
         _rows(chunked_remote.table), _rows(chunked_local.table), check_exact=True
     )
+    # the progress bar counts the cluster's tasks as they finish: one for the probabilities and
+    # one per chunk of trials (3 chunks of 50 trials at 20 a chunk)
+    assert "4/4" in shown and "a local Dask cluster of 2" in shown
     assert remote_test.p_value == local_test.p_value
     assert remote_test.statistic == local_test.statistic
     np.testing.assert_array_equal(remote_test.null_draws, local_test.null_draws)

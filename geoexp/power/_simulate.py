@@ -14,18 +14,22 @@ for outcome vector y_s is
 so the numerators and denominators of every (draw, simulation) pair are the
 product of an unpacked block of bits (draws x units) with one weight matrix
 holding every simulation's column y_s / pi plus the column 1 / pi. That is a
-matrix product per block of draws and contrast, never a loop over
-simulations or draws.
+matrix product per block of units and contrast, accumulated over the
+blocks, never a loop over simulations or draws. The interval the analysis
+prints (inverting the test of a constant additive effect) needs two more
+columns per simulation in the same products (:func:`inverted_intervals`).
 """
 
 from __future__ import annotations
 
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
 from typing import TYPE_CHECKING, Literal
 
 import numpy as np
 import pandas as pd
 
+from geoexp._engine import matrix_threads, thread_count
 from geoexp._rng import RngLike, Stream, as_seed_sequence, child_sequence
 from geoexp.errors import InputError
 from geoexp.estimate import DEFAULT_FLOOR, contrast_units
@@ -81,6 +85,15 @@ class ContrastPower:
         The planted effect in words, e.g. ``"a 20% reduction"``.
     sentence
         A plain sentence saying what the power means.
+    coverage
+        Share of simulated trials whose interval by inverting the randomization
+        test of a constant additive effect (the interval the analysis prints
+        beside the row's verdict, at level 1 - alpha) contains the planted
+        effect; NaN when not asked for (``coverage`` of :func:`simulate_power`).
+    coverage_mc_error
+        Its Monte Carlo error sqrt(c (1 - c) / n_sims).
+    n_covered
+        Simulated trials whose interval contained the planted effect.
     """
 
     contrast: str
@@ -97,6 +110,9 @@ class ContrastPower:
     n_undefined: int
     effect_words: str
     sentence: str
+    coverage: float = np.nan
+    coverage_mc_error: float = np.nan
+    n_covered: int = 0
 
 
 @dataclass(frozen=True, eq=False)
@@ -146,9 +162,9 @@ def _num(value: float, digits: int) -> str:
 
 
 def _sim_conditions(bits: np.ndarray, n_sims: int) -> np.ndarray:
-    """Condition code of every held unit in draws 0 .. n_sims - 1: (n_held, n_sims)."""
+    """Condition code of every held unit in draws 0 .. n_sims - 1: (n_held, n_sims), int8."""
     n_words = -(-n_sims // _WORD)
-    out = np.zeros((bits.shape[1], n_sims), dtype=np.intp)
+    out = np.zeros((bits.shape[1], n_sims), dtype=np.int8)
     for c in range(bits.shape[0]):
         out[unpack_bits(bits[c][:, :n_words])[:, :n_sims].astype(bool)] = c
     return out
@@ -165,43 +181,257 @@ def _contrast_draws(
     cond: np.ndarray,
     n_sims: int,
     n_draws: int,
-) -> tuple[np.ndarray, np.ndarray]:
-    """Observed statistic of each simulation (n_sims,) and its reference draws (n_sims, n_draws).
+    plug: np.ndarray | None = None,
+) -> tuple[np.ndarray, np.ndarray | None, np.ndarray | None]:
+    """The statistic of every reference draw for each simulation (n_sims, n_draws).
 
-    ``rows`` are the contrast's units as rows of ``bits``; ``y`` and ``cond`` their
-    outcomes and conditions in each simulation (n_rows, n_sims).
+    ``rows`` are the contrast's units as rows of ``bits``; ``y`` and ``cond``
+    the outcomes and conditions of every held unit in each simulation
+    (n_held, n_sims); each simulation's own statistic is :func:`_hajek_each`.
+
+    With ``plug`` (n_conditions, n_sims: each condition's assumed effect in
+    each simulation, the trial's own estimates), also the pieces of the test
+    of a constant additive effect x on condition k with the other conditions'
+    effects at ``plug`` (:func:`geoexp.inference.constant_effect_test`): under
+    draw r the imputed outcomes Y_i(l) = y_i - plug_{d_i} - x 1[d_i = k]
+    (plug of k and l taken as 0) give the statistic ``u[s, r] - x * v[s, r]``,
+    returned as (u, v), each (n_sims, n_draws).
+
+    The sums over the units of each draw's conditions are matrix products of
+    unpacked bits (draws x units) with one weight matrix holding every
+    simulation's columns, accumulated over blocks of units so that memory
+    stays within a few blocks of about 32 MB whatever the number of units.
     """
-    wk = np.empty((rows.size, n_sims + 1))
-    wk[:, :n_sims] = y / pk[:, None]
-    wk[:, n_sims] = 1 / pk
-    wl = np.empty_like(wk)
-    wl[:, :n_sims] = y / pl[:, None]
-    wl[:, n_sims] = 1 / pl
-    in_k, in_l = cond == k, cond == l
-    observed = contrast_statistic(
-        (in_k * wk[:, :n_sims]).sum(axis=0),
-        in_k.T @ wk[:, n_sims],
-        (in_l * wl[:, :n_sims]).sum(axis=0),
-        in_l.T @ wl[:, n_sims],
-    )
-    null = np.empty((n_draws, n_sims))
+    n_cols = n_sims + 1 + (0 if plug is None else 2 * n_sims)
+    a, b = n_sims + 1, 2 * n_sims + 1
+    if plug is not None:
+        plug = plug.copy()
+        plug[[k, l]] = 0.0
+        plug = np.nan_to_num(plug, nan=0.0)
+    sums_k = np.zeros((n_draws, n_cols))
+    sums_l = np.zeros((n_draws, n_cols))
     first, end = n_sims, n_sims + n_draws
-    per_block = max(1, min(16, _BLOCK_BYTES // (8 * _WORD * max(rows.size, 1))))
-    w = first // _WORD
-    while w * _WORD < end:
-        w_end = min(w + per_block, -(-end // _WORD))
-        lo = max(first, w * _WORD) - w * _WORD
-        hi = min(end, w_end * _WORD) - w * _WORD
-        out = slice(w * _WORD + lo - first, w * _WORD + hi - first)
-        uk = unpack_bits(bits[k][rows, w:w_end])[:, lo:hi].astype(np.float64)
-        ul = unpack_bits(bits[l][rows, w:w_end])[:, lo:hi].astype(np.float64)
-        sk = uk.T @ wk
-        sl = ul.T @ wl
-        null[out] = contrast_statistic(
-            sk[:, :n_sims], sk[:, n_sims:], sl[:, :n_sims], sl[:, n_sims:]
+    w0, w1 = first // _WORD, -(-end // _WORD)
+    lo = first - w0 * _WORD
+    step = max(256, _BLOCK_BYTES // (8 * max(n_cols, (w1 - w0) * _WORD)))
+    sims = np.arange(n_sims)
+    with matrix_threads():
+        for start in range(0, rows.size, step):
+            rr = rows[start : start + step]
+            qk, ql = 1 / pk[start : start + step], 1 / pl[start : start + step]
+            ys, cs = y[rr], cond[rr]
+            wk = np.empty((rr.size, n_cols))
+            wl = np.empty((rr.size, n_cols))
+            wk[:, :n_sims] = ys * qk[:, None]
+            wk[:, n_sims] = qk
+            wl[:, :n_sims] = ys * ql[:, None]
+            wl[:, n_sims] = ql
+            if plug is not None:
+                shift = plug[cs, sims]
+                wk[:, a:b] = shift * qk[:, None]
+                wl[:, a:b] = shift * ql[:, None]
+                on_k = cs == k
+                wk[:, b:] = on_k * qk[:, None]
+                wl[:, b:] = on_k * ql[:, None]
+                del shift, on_k
+            del ys, cs
+            uk = unpack_bits(bits[k][rr, w0:w1], np.float64)[:, lo : lo + n_draws]
+            sums_k += uk.T @ wk
+            del uk
+            ul = unpack_bits(bits[l][rr, w0:w1], np.float64)[:, lo : lo + n_draws]
+            sums_l += ul.T @ wl
+            del ul, wk, wl
+    nk, nl = sums_k[:, [n_sims]], sums_l[:, [n_sims]]
+    null = np.ascontiguousarray(
+        contrast_statistic(sums_k[:, :n_sims], nk, sums_l[:, :n_sims], nl).T
+    )
+    if plug is None:
+        return null, None, None
+    u = contrast_statistic(
+        sums_k[:, :n_sims] - sums_k[:, a:b], nk, sums_l[:, :n_sims] - sums_l[:, a:b], nl
+    ).T
+    v = contrast_statistic(sums_k[:, b:], nk, sums_l[:, b:], nl).T
+    return null, np.ascontiguousarray(u), np.ascontiguousarray(v)
+
+
+def _interval_pvalues(
+    observed: np.ndarray, u: np.ndarray, v: np.ndarray, x: np.ndarray
+) -> np.ndarray:
+    """P-values (n, G) of the tests of effects ``x`` (n, G): statistic u - x v against observed - x.
+
+    The equal-tailed two-sided rule of the one significance routine, in
+    blocks of simulated trials (about 32 MB of draws at a time).
+    """
+    n, g = x.shape
+    r = u.shape[1]
+    out = np.empty((n, g))
+    step = max(1, _BLOCK_BYTES // (8 * max(g * r, 1)))
+    for a in range(0, n, step):
+        b = min(n, a + step)
+        xs = x[a:b]
+        with np.errstate(invalid="ignore"):
+            draws = u[a:b, None, :] - xs[:, :, None] * v[a:b, None, :]
+        out[a:b] = significance(observed[a:b, None] - xs, draws, "two-sided")[0]
+    return out
+
+
+def inverted_intervals(
+    observed: np.ndarray, u: np.ndarray, v: np.ndarray, level: float
+) -> tuple[np.ndarray, np.ndarray]:
+    """The interval of every simulated trial by inverting its test of a constant additive effect.
+
+    The test of effect x compares ``observed - x`` with the draws
+    ``u - x v`` by the equal-tailed two-sided rule; the interval is the hull
+    of the x it does not reject at 1 - ``level`` (Rosenbaum 2002, test
+    inversion), found as the analysis finds it
+    (:func:`geoexp.inference.constant_effect_test`): a grid of 161 points
+    about the estimate with 0 added, widened four-fold (at most five times)
+    while an end of the grid is not rejected, then each end refined by 40
+    bisections, 0 kept inside when it is not rejected. The grid's first
+    half-width is 8 times the spread of the trial's draws (the analysis
+    starts from 8 standard errors); both searches find the same ends of an
+    interval. Vectorised over the trials.
+
+    Parameters
+    ----------
+    observed : numpy.ndarray
+        The estimate of each trial (n,); NaN when undefined.
+    u, v : numpy.ndarray
+        (n, R): the statistic of draw r under effect x is ``u - x v``.
+    level : float
+        Confidence level.
+
+    Returns
+    -------
+    low, high : numpy.ndarray
+        Ends of each trial's interval (n,); an end is infinite when no
+        rejection was found on that side, and both are NaN when the estimate
+        is undefined.
+    """
+    alpha = 1 - level
+    n = observed.size
+    low, high = np.full(n, np.nan), np.full(n, np.nan)
+    todo = np.flatnonzero(np.isfinite(observed))
+    if todo.size == 0:
+        return low, high
+    obs, uu, vv = observed[todo], u[todo], v[todo]
+    with np.errstate(invalid="ignore"):
+        spread = np.nanstd(uu - obs[:, None] * vv, axis=1)
+    half = np.where(np.isfinite(spread), np.maximum(8 * spread, 1e-6), 1.0)
+    steps = np.linspace(-1.0, 1.0, 161)
+    m = todo.size
+    grid = np.empty((m, 162))
+    inside = np.zeros((m, 162), dtype=bool)
+    again = np.arange(m)
+    for _ in range(5):
+        g = np.sort(
+            np.column_stack([obs[again, None] + half[again, None] * steps, np.zeros(again.size)]),
+            axis=1,
         )
-        w = w_end
-    return observed, np.ascontiguousarray(null.T)
+        grid[again] = g
+        inside[again] = _interval_pvalues(obs[again], uu[again], vv[again], g) > alpha
+        wide = inside[again, 0] | inside[again, -1]
+        if not wide.any():
+            break
+        half[again[wide]] *= 4
+        again = again[wide]
+    any_in = inside.any(axis=1)
+    first = np.argmax(inside, axis=1)
+    last = 161 - np.argmax(inside[:, ::-1], axis=1)
+
+    def refine(a: np.ndarray, b: np.ndarray, which: np.ndarray) -> np.ndarray:
+        # bisection between a rejected point a and a non-rejected point b, every trial at once
+        a, b = a.copy(), b.copy()
+        for _ in range(40):
+            mid = (a + b) / 2
+            keep = _interval_pvalues(obs[which], uu[which], vv[which], mid[:, None])[:, 0] > alpha
+            b = np.where(keep, mid, b)
+            a = np.where(keep, a, mid)
+        return (a + b) / 2
+
+    lo = np.where(any_in, np.nan, obs)
+    hi = lo.copy()
+    open_lo = any_in & (first == 0)
+    open_hi = any_in & (last == 161)
+    lo[open_lo], hi[open_hi] = -np.inf, np.inf
+    w = np.flatnonzero(any_in & ~open_lo)
+    if w.size:
+        lo[w] = refine(grid[w, first[w] - 1], grid[w, first[w]], w)
+    w = np.flatnonzero(any_in & ~open_hi)
+    if w.size:
+        hi[w] = refine(grid[w, last[w] + 1], grid[w, last[w]], w)
+    # 0 is on every grid: keep its status exact whatever the bisection did
+    zero_in = (inside & (grid == 0.0)).any(axis=1)
+    lo = np.where(zero_in, np.minimum(lo, 0.0), lo)
+    hi = np.where(zero_in, np.maximum(hi, 0.0), hi)
+    low[todo], high[todo] = lo, hi
+    return low, high
+
+
+# units per block of simulated outcomes; each block draws from its own child stream, so the
+# outcomes do not depend on how many threads draw them
+_OUTCOME_BLOCK = 4096
+
+
+def _sample_outcomes(
+    model: OutcomeModel,
+    means: np.ndarray,
+    effects: np.ndarray,
+    cond: np.ndarray,
+    outcome: OutcomeMeasure,
+    seed: np.random.SeedSequence,
+) -> np.ndarray:
+    """Outcomes (n_units, n_sims) of every simulated trial, drawn block by block of units.
+
+    Block b of :data:`_OUTCOME_BLOCK` units draws its post-period (and, for
+    ``"change"``, then its pre-period) from the child stream b of ``seed``;
+    blocks run on :func:`geoexp._engine.thread_count` threads (numpy's
+    generators release the interpreter lock), with the same result on any
+    number of threads.
+    """
+    y = np.empty(cond.shape)
+
+    def block(b: int) -> None:
+        rows = slice(b * _OUTCOME_BLOCK, (b + 1) * _OUTCOME_BLOCK)
+        gen = np.random.default_rng(child_sequence(seed, b))
+        base = means[rows, None]
+        c = cond[rows]
+        out = model.sample(model.expected(base, effects, c), gen)
+        if outcome == "change":
+            out -= model.sample(np.broadcast_to(base, c.shape), gen)
+        y[rows] = out
+
+    n_blocks = -(-cond.shape[0] // _OUTCOME_BLOCK)
+    n_threads = min(thread_count(), n_blocks)
+    if n_threads <= 1:
+        for b in range(n_blocks):
+            block(b)
+    else:
+        with ThreadPoolExecutor(n_threads) as pool:
+            list(pool.map(block, range(n_blocks)))
+    return y
+
+
+def _hajek_each(
+    y: np.ndarray, cond: np.ndarray, rows: np.ndarray, k: int, l: int, probs: np.ndarray
+) -> np.ndarray:
+    """The Hajek contrast of k against l over ``rows`` in every simulated trial (n_sims,).
+
+    Sums over blocks of units, so that memory stays within a few blocks of
+    about 32 MB.
+    """
+    sums = np.zeros((4, y.shape[1]))
+    qk, ql = 1 / probs[:, k], 1 / probs[:, l]
+    step = max(256, _BLOCK_BYTES // (8 * max(y.shape[1], 1)))
+    for start in range(0, rows.size, step):
+        rr = slice(start, start + step)
+        ys, cs = y[rows[rr]], cond[rows[rr]]
+        in_k, in_l = cs == k, cs == l
+        sums[0] += np.where(in_k, ys, 0.0).T @ qk[rr]
+        sums[1] += in_k.T @ qk[rr]
+        sums[2] += np.where(in_l, ys, 0.0).T @ ql[rr]
+        sums[3] += in_l.T @ ql[rr]
+    return contrast_statistic(sums[0], sums[1], sums[2], sums[3])
 
 
 def _band_words(design: Design, k: int) -> str:
@@ -233,6 +463,8 @@ def simulate_power(
     n_draws_probabilities: int | None = None,
     rng: RngLike = None,
     floor: float | None = None,
+    probabilities: np.ndarray | None = None,
+    coverage: tuple[str, ...] = (),
 ) -> PowerResult:
     """Power of a design's randomization tests, by simulating many trials of it.
 
@@ -288,6 +520,23 @@ def simulate_power(
         :data:`geoexp.estimate.DEFAULT_FLOOR`), as in the analysis: each
         contrast is simulated over the very units the analysis will report
         (:func:`geoexp.estimate.contrast_units`).
+    probabilities
+        The design's exposure probabilities (n_units, n_conditions) when
+        already computed from its Monte Carlo stream with
+        ``n_draws_probabilities`` draws (e.g.
+        ``design.probabilities().probabilities``); computed here otherwise.
+    coverage
+        Condition codes (e.g. ``("treated", "spillover_1")``) whose rows also
+        get the coverage of the interval the analysis prints beside the
+        verdict: in each simulated trial, the interval of constant additive
+        effects that the randomization test over the row's units does not
+        reject at 1 - alpha, the other conditions' effects held at that
+        trial's own estimates (:func:`geoexp.inference.constant_effect_test`,
+        Rosenbaum 2002), tested on the shared reference draws; coverage is
+        the share of trials whose interval contains the planted effect (an
+        undefined estimate counts as not covering). It adds two columns per
+        trial to the matrix products of those rows (about three times their
+        work).
 
     Returns
     -------
@@ -304,6 +553,8 @@ def simulate_power(
         n_draws_probabilities=n_draws_probabilities,
         rng=rng,
         floor=floor,
+        probabilities=probabilities,
+        coverage=coverage,
     )[0]
 
 
@@ -340,6 +591,8 @@ def _simulate(
     n_draws_probabilities: int | None,
     rng: RngLike,
     floor: float | None = None,
+    probabilities: np.ndarray | None = None,
+    coverage: tuple[str, ...] = (),
 ) -> tuple[PowerResult, dict]:
     """:func:`simulate_power`, also returning each contrast's statistics (for tests)."""
     _check_arguments(n_sims, n_draws, alpha, outcome, alternative)
@@ -349,14 +602,29 @@ def _simulate(
     effects = model.effects(mapping)
     means = model.unit_means(design)
     n_prob = int(n_draws_probabilities or design.spec.draws)
-    # the very probabilities the analysis will use: the design's Monte Carlo stream
-    probs = condition_bits(
-        design.sampler, design.graph, mapping, n_prob, design.stream(Stream.MONTE_CARLO)
-    ).probabilities()
+    unknown = [c for c in coverage if c not in mapping.codes[:pc]]
+    if unknown:
+        raise InputError(
+            f"coverage names conditions the design does not have: {unknown}; its contrasts are "
+            f"{list(mapping.codes[:pc])}"
+        )
+    if probabilities is None:
+        # the very probabilities the analysis will use: the design's Monte Carlo stream
+        probs = condition_bits(
+            design.sampler, design.graph, mapping, n_prob, design.stream(Stream.MONTE_CARLO)
+        ).probabilities()
+    else:
+        probs = np.asarray(probabilities, dtype=float)
+        if probs.shape != (design.units.n, mapping.n_conditions):
+            raise InputError(
+                f"probabilities must be (units, conditions) = {(design.units.n, mapping.n_conditions)}, "
+                f"got {probs.shape}"
+            )
 
     notes: list[str] = []
     plan: list[tuple[int, np.ndarray, str]] = []
     skipped: dict[int, str] = {}
+    populations: dict[int, np.ndarray] = {}
     floor = _floor(design, floor)
     for k in range(pc):
         # the very units of the analysis's row (geoexp.estimate.contrast_units)
@@ -365,6 +633,7 @@ def _simulate(
             probs, design.eligible, k, pc, labels=mapping.labels, group=group, floor=floor
         )
         population = np.flatnonzero(estimand.units)
+        populations[k] = population
         if k == 0:
             test = "randomization test of no effect on treated units (Hajek contrast)"
             if population.size == 0:
@@ -380,7 +649,8 @@ def _simulate(
                 continue
         plan.append((k, population, test))
 
-    used = np.unique(np.concatenate([p for _, p, _ in plan])) if plan else np.zeros(0, np.int64)
+    # every row's units, tested or not: the intervals hold each row's effect at its estimate
+    used = np.unique(np.concatenate(list(populations.values()))) if plan else np.zeros(0, np.int64)
     seed = design.stream(Stream.POWER) if rng is None else as_seed_sequence(rng)
     details: dict = {"probabilities": probs, "used": used}
     results: list[ContrastPower] = []
@@ -394,26 +664,34 @@ def _simulate(
             units=used,
         ).bits
         cond = _sim_conditions(bits, n_sims)
-        gen = np.random.default_rng(child_sequence(seed, 1))
-        base = means[used][:, None]
-        y = model.sample(model.expected(base, effects, cond), gen)
-        if outcome == "change":
-            y = y - model.sample(np.broadcast_to(base, cond.shape), gen)
+        y = _sample_outcomes(model, means[used], effects, cond, outcome, child_sequence(seed, 1))
         details.update(conditions=cond, outcomes=y)
+    # each trial's estimate of every row (the intervals hold the other rows' effects at them)
+    plug = np.zeros((pc + 1, n_sims))
+    if plan:
+        for k, population in populations.items():
+            if population.size:
+                plug[k] = _hajek_each(
+                    y, cond, np.searchsorted(used, population), k, pc, probs[population]
+                )
+        details["plug"] = plug
     by_code = {}
     for k, population, test in plan:
         rows = np.searchsorted(used, population)
-        observed, null = _contrast_draws(
+        wanted = mapping.codes[k] in coverage
+        observed = plug[k].copy()
+        null, u, v = _contrast_draws(
             bits,
             rows,
             k,
             pc,
             probs[population, k],
             probs[population, pc],
-            y[rows],
-            cond[rows],
+            y,
+            cond,
             n_sims,
             n_draws,
+            plug if wanted else None,
         )
         details[mapping.codes[k]] = {"rows": rows, "observed": observed, "null": null}
         defined = np.isfinite(observed)
@@ -427,7 +705,30 @@ def _simulate(
                 - model.expected(means[population], effects, np.full(population.size, pc))
             )
         )
-        by_code[k] = (test, power, int(rejected), observed, defined, planted, population.size)
+        covered = None
+        if u is not None and v is not None:
+            low, high = inverted_intervals(observed, u, v, 1 - alpha)
+            details[mapping.codes[k]].update(u=u, v=v, low=low, high=high)
+            with np.errstate(invalid="ignore"):
+                covered = int(((low <= planted) & (planted <= high)).sum())
+            unbounded = int((np.isinf(low) | np.isinf(high)).sum())
+            if unbounded:
+                notes.append(
+                    f"{mapping.labels[k]} vs {mapping.labels[pc]}: the interval had an "
+                    f"unbounded end in {unbounded} of {n_sims} simulated trials (the test "
+                    f"rejected no effect on that side with {n_draws} draws), which covers "
+                    "trivially"
+                )
+        by_code[k] = (
+            test,
+            power,
+            int(rejected),
+            observed,
+            defined,
+            planted,
+            population.size,
+            covered,
+        )
 
     for k in range(pc):
         label = f"{mapping.labels[k]} vs {mapping.labels[pc]}"
@@ -454,8 +755,9 @@ def _simulate(
                 )
             )
             continue
-        test, power, rejected, observed, defined, planted, n_units = by_code[k]
+        test, power, rejected, observed, defined, planted, n_units, covered = by_code[k]
         mc = float(np.sqrt(power * (1 - power) / n_sims))
+        cover = np.nan if covered is None else covered / n_sims
         finite = observed[defined]
         if (~defined).any():
             notes.append(
@@ -478,6 +780,9 @@ def _simulate(
                 n_undefined=int((~defined).sum()),
                 effect_words=words,
                 sentence=_sentence(words, where, power, mc, alpha),
+                coverage=cover,
+                coverage_mc_error=float(np.sqrt(cover * (1 - cover) / n_sims)),
+                n_covered=0 if covered is None else covered,
             )
         )
     result = PowerResult(

@@ -85,6 +85,12 @@ def _one_thread_task(function: Callable[[Any, Any], Any], item: Any, shared: Any
         return function(item, shared)
 
 
+def _prepare_worker() -> None:
+    """Import the modules a sweep's tasks use, so that the first tasks do not pay for it."""
+    import geoexp.power  # noqa: F401
+    import geoexp.sweep  # noqa: F401
+
+
 class DaskBackend:
     """Tasks on a Dask cluster: a local one of ``workers`` processes, or a running scheduler.
 
@@ -128,10 +134,26 @@ class DaskBackend:
             self.client = distributed.Client(self._cluster)
             self._where = f"a local Dask cluster of {workers} worker process(es), 1 thread each"
         self._as_completed = distributed.as_completed
+        self._shared: tuple[Any, Any] | None = None
+        # import geoexp on every worker now, not inside the first tasks
+        try:
+            self.client.run(_prepare_worker)
+        except ImportError as err:
+            self.close()
+            raise InputError(
+                f"the Dask workers of {self._where} cannot import geoexp ({err}); install "
+                "geoexp with the extra 'cluster' on every machine that runs a worker"
+            ) from None
 
     def run(self, function, items, shared):
-        """Scatter ``shared`` to every worker once, submit one task per item, yield as they finish."""
-        shared_future = self.client.scatter(shared, broadcast=True)
+        """Scatter ``shared`` to every worker once, submit one task per item, yield as they finish.
+
+        The same object given again (e.g. the layer of a second sweep on the
+        same back end) is not sent again.
+        """
+        if self._shared is None or self._shared[0] is not shared:
+            self._shared = (shared, self.client.scatter(shared, broadcast=True))
+        shared_future = self._shared[1]
         futures = [
             self.client.submit(_one_thread_task, function, item, shared_future, pure=False)
             for item in items
@@ -150,6 +172,7 @@ class DaskBackend:
 
     def close(self) -> None:
         """Close the client, and the local cluster if this back end started it."""
+        self._shared = None
         self.client.close()
         if self._cluster is not None:
             self._cluster.close()

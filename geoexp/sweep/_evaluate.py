@@ -20,6 +20,7 @@ from geoexp._engine import compute_threads
 from geoexp._rng import Stream
 from geoexp.design import Design, DesignSpec, eligible_for, units_for
 from geoexp.errors import InfeasibleDesignError
+from geoexp.exposure import ExposureProbabilities
 from geoexp.graph import ExposureGraph
 from geoexp.power import NegativeBinomialOutcome, simulate_power
 from geoexp.sweep._spec import Simulation
@@ -106,9 +107,12 @@ def _design(spec: DesignSpec, layer: SweepLayer) -> Design:
     return Design.from_spec(spec, units=layer.units, graph=layer.graph, eligible=layer.eligible)
 
 
-def _probability_part(design: Design) -> dict[str, Any]:
+# rows whose interval coverage a candidate's row carries (the rows a sweep ranks by)
+COVERAGE_ROWS = ("treated", "spillover_1")
+
+
+def _probability_part(design: Design, probabilities: ExposureProbabilities) -> dict[str, Any]:
     codes = design.mapping.codes
-    probabilities = design.probabilities()
     row: dict[str, Any] = {}
     for code, expected in zip(codes, probabilities.expected_counts().to_numpy(), strict=True):
         row[f"expected_{code}"] = float(expected)
@@ -119,12 +123,17 @@ def _probability_part(design: Design) -> dict[str, Any]:
 
 
 def _power_part(
-    design: Design, simulation: Simulation, effects: Mapping[str, float], chunk: int | None
+    design: Design,
+    simulation: Simulation,
+    effects: Mapping[str, float],
+    chunk: int | None,
+    probabilities: np.ndarray | None = None,
 ) -> dict[str, Any]:
     """Power of one chunk of simulated trials (``chunk`` None: all of them, the default stream).
 
     Chunk ``c`` draws from the design's power stream with index ``c + 1``, so
-    every chunk is the same wherever it runs.
+    every chunk is the same wherever it runs. ``probabilities``: the design's
+    own, when the caller has them already (else computed here, once).
     """
     sizes = chunk_sizes(simulation)
     ratios = {k: v for k, v in effects.items() if k in design.mapping.codes}
@@ -137,6 +146,8 @@ def _power_part(
         alpha=simulation.alpha,
         outcome=simulation.outcome,
         rng=None if chunk is None else design.stream(Stream.POWER, chunk + 1),
+        probabilities=probabilities,
+        coverage=tuple(c for c in COVERAGE_ROWS if c in design.mapping.codes),
     )
     return {"contrasts": [c.__dict__ for c in result.contrasts], "notes": list(result.notes)}
 
@@ -197,13 +208,21 @@ def power_columns(
     -------
     dict
         Per contrast code: ``power_``, ``mc_error_``, ``planted_``, ``bias_``,
-        ``sd_`` and ``mde_`` columns (estimates in the outcome's units), and
-        ``notes``.
+        ``sd_`` and ``mde_`` columns (estimates in the outcome's units); for
+        the treated row and the first band, ``coverage_`` and
+        ``coverage_mc_error_`` (pooled over chunks: covering trials over all
+        trials); and ``notes``.
     """
     row: dict[str, Any] = {}
     for i, first in enumerate(parts[0]["contrasts"]):
         code = first["contrast"]
         same = [p["contrasts"][i] for p in parts]
+        n_sims = sum(c["n_sims"] for c in same)
+        cover = (
+            sum(c["n_covered"] for c in same) / n_sims
+            if np.isfinite(first.get("coverage", np.nan))
+            else np.nan
+        )
         if len(same) == 1:
             power, mean, sd = first["power"], first["mean_estimate"], first["sd_estimate"]
             mc = first["mc_error"]
@@ -224,6 +243,9 @@ def power_columns(
         row[f"bias_{code}"] = mean - first["planted_effect"]
         row[f"sd_{code}"] = sd
         row[f"mde_{code}"] = minimum_detectable_effect(sd, simulation.alpha, target_power)
+        if code in COVERAGE_ROWS:
+            row[f"coverage_{code}"] = cover
+            row[f"coverage_mc_error_{code}"] = float(np.sqrt(cover * (1 - cover) / n_sims))
     notes = [n for p in parts for n in p["notes"]]
     row["notes"] = "; ".join(dict.fromkeys(notes))
     return row
@@ -264,7 +286,7 @@ def evaluate_part(
         except InfeasibleDesignError as err:
             return {"feasible": False, "notes": f"infeasible: {err}"}
         if part is None:
-            return {"feasible": True, **_probability_part(design)}
+            return {"feasible": True, **_probability_part(design, design.probabilities())}
         return _power_part(design, simulation, effects, part)
 
 
@@ -303,7 +325,15 @@ def evaluate_candidate(
         ``planted_<code>``, ``bias_<code>`` (mean estimate minus planted
         effect), ``sd_<code>`` (of the estimate over simulated trials) and
         ``mde_<code>`` (:func:`minimum_detectable_effect` with that sd), in
-        incidents per unit; ``feasible`` (False, with the reason in ``notes``,
+        incidents per unit; for the treated row and the first spillover band,
+        ``coverage_<code>`` and ``coverage_mc_error_<code>``: the share of
+        simulated trials whose interval printed beside the analysis's verdict
+        (inverting the randomization test of a constant additive effect over
+        the row's units, the other effects at the trial's estimates, level
+        1 - alpha, Rosenbaum 2002) contains the planted effect, tested on the
+        simulation's ``draws`` reference draws, with its Monte Carlo standard
+        error sqrt(c (1 - c) / sims) (:func:`geoexp.power.simulate_power`,
+        ``coverage``); ``feasible`` (False, with the reason in ``notes``,
         when no draw of the design can meet its rules); ``seconds``. With
         ``simulation.chunk_sims``, the simulated trials run in chunks
         (:func:`chunk_sizes`), each from its own stream, and are pooled.
@@ -321,10 +351,14 @@ def evaluate_candidate(
             row["seconds"] = time.perf_counter() - start
             return row
         row["feasible"] = True
-        row.update(_probability_part(design))
+        # one Monte Carlo of the exposure probabilities, for positivity and every chunk's tests
+        probabilities = design.probabilities()
+        row.update(_probability_part(design, probabilities))
         sizes = chunk_sizes(simulation)
         chunks = [None] if len(sizes) == 1 else list(range(len(sizes)))
-        parts = [_power_part(design, simulation, effects, c) for c in chunks]
+        parts = [
+            _power_part(design, simulation, effects, c, probabilities.probabilities) for c in chunks
+        ]
     row.update(power_columns(parts, simulation, target_power))
     row["seconds"] = time.perf_counter() - start
     return row
