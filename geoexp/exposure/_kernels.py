@@ -92,6 +92,76 @@ def _scatter_numba_impl(
                 best[j] = pc
 
 
+def _scatter_blocked_impl(
+    d_indptr, d_indices, g_indptr, g_indices, g_code, counts_t, cov, cov_sums, cond_counts
+):
+    n_threads, n_units, n_cond = counts_t.shape
+    pc = n_cond - 1
+    n_draws = d_indptr.shape[0] - 1
+    n_cov = cov.shape[1]
+    track = cond_counts.shape[0] > 0
+    n_blocks = (n_draws + 63) // 64
+    one = np.uint64(1)
+    # Blocks of 64 draws, one bit each: a unit's row of the graph is read once per block
+    # for every draw of the block that treats it (not once per draw), in ascending unit
+    # order. Each block is done by one thread and every per-draw sum adds its units in
+    # ascending position, so results do not depend on the number of threads.
+    for t in numba.prange(n_threads):
+        counts = counts_t[t]
+        masks = np.zeros((n_units, pc), np.uint64)  # col 0 treated, col c reached in band c
+        mark = np.zeros(n_units, np.int8)
+        touched = np.empty(n_units, np.int64)
+        b0 = n_blocks * t // n_threads
+        b1 = n_blocks * (t + 1) // n_threads
+        for blk in range(b0, b1):
+            r0 = blk * 64
+            r1 = min(r0 + 64, n_draws)
+            n_touched = 0
+            for r in range(r0, r1):
+                bit = one << np.uint64(r - r0)
+                for a in range(d_indptr[r], d_indptr[r + 1]):
+                    u = d_indices[a]
+                    if mark[u] == 0:
+                        mark[u] = 1
+                        touched[n_touched] = u
+                        n_touched += 1
+                    masks[u, 0] |= bit
+            n_treated = n_touched
+            for s in range(n_treated):
+                u = touched[s]
+                m = masks[u, 0]
+                for b in range(g_indptr[u], g_indptr[u + 1]):
+                    c = g_code[b]
+                    if c < pc:
+                        j = g_indices[b]
+                        if mark[j] == 0:
+                            mark[j] = 1
+                            touched[n_touched] = j
+                            n_touched += 1
+                        masks[j, c] |= m
+            if n_touched * 16 < n_units:
+                order = np.sort(touched[:n_touched])
+            else:  # most units touched: a scan is cheaper than a sort
+                order = np.flatnonzero(mark)
+            for j in order:
+                seen = np.uint64(0)
+                for c in range(pc):
+                    m = masks[j, c] & ~seen
+                    seen |= masks[j, c]
+                    masks[j, c] = 0
+                    if m == 0:
+                        continue
+                    counts[j, c] += _popcount(m)
+                    if track:
+                        while m != 0:
+                            r = r0 + _popcount((m & (~m + one)) - one)
+                            cond_counts[r, c] += 1
+                            for q in range(n_cov):
+                                cov_sums[r, c, q] += cov[j, q]
+                            m &= m - one
+                mark[j] = 0
+
+
 def _gather_rows(indptr: np.ndarray, rows: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """Positions into a CSR's data for the given rows, and the row-entry each came from."""
     starts = indptr[rows]
@@ -193,19 +263,21 @@ def _scatter_numpy(
         counts[:, 0] += np.bincount(sub_indices, minlength=n_units)
         if track:
             n_sub = stop - start
-            # per-draw sums in the numba kernel's order: each draw's units as visited
+            # per-draw sums in the numba kernel's order: each draw's units (treated and
+            # reached) in ascending position, added one by one from zero
             tdraw = np.repeat(np.arange(n_sub), np.diff(sub_indptr))
-            cond_counts[start:stop] += np.bincount(
-                draw * n_cond + cond, minlength=n_sub * n_cond
-            ).reshape(n_sub, n_cond)
-            cond_counts[start:stop, 0] += np.bincount(tdraw, minlength=n_sub)
+            draw = np.concatenate([draw, tdraw])
+            unit = np.concatenate([unit, sub_indices.astype(np.int64)])
+            cond = np.concatenate([cond, np.zeros(tdraw.size, dtype=np.int64)])
+            order = np.argsort(draw * n_units + unit, kind="stable")
+            key, unit = (draw * n_cond + cond)[order], unit[order]
+            cond_counts[start:stop] += np.bincount(key, minlength=n_sub * n_cond).reshape(
+                n_sub, n_cond
+            )
             for q in range(cov.shape[1]):
                 cov_sums[start:stop, :, q] += np.bincount(
-                    draw * n_cond + cond, weights=cov[unit, q], minlength=n_sub * n_cond
+                    key, weights=cov[unit, q], minlength=n_sub * n_cond
                 ).reshape(n_sub, n_cond)
-                cov_sums[start:stop, 0, q] += np.bincount(
-                    tdraw, weights=cov[sub_indices, q], minlength=n_sub
-                )
         start = stop
 
 
@@ -236,14 +308,23 @@ def scatter_counts(
     *,
     engine: Engine = "auto",
     g_code: np.ndarray | None = None,
+    by_draw: bool = False,
 ) -> tuple[np.ndarray, np.ndarray | None, np.ndarray | None]:
     """Count, over a chunk of draws, how often each unit is treated or in each band.
 
     Returns ``counts`` (n_units, K+2) int64 with the pure-control column left
     at zero (it is the remainder, filled by the caller), and when ``cov`` is
     given, per-draw condition sizes (R, K+2) and covariate sums (R, K+2, q)
-    for the conditions other than pure control. ``g_code`` may pass
-    :func:`band_codes` of ``(g_dist, edges)`` computed once for many chunks.
+    for the conditions other than pure control; each per-draw sum adds its
+    units in ascending position. ``g_code`` may pass :func:`band_codes` of
+    ``(g_dist, edges)`` computed once for many chunks.
+
+    The numba engine takes the draws 64 at a time, one bit each, so that a
+    treated unit's graph row is read once per block of draws rather than once
+    per draw. ``by_draw=True`` runs the earlier numba kernel instead, one draw
+    at a time, whose sums add each draw's units in the order it visits them
+    (the same counts; the same sums up to the order of the additions): kept as
+    the reference the tests and the benchmark compare against.
     """
     edges = np.ascontiguousarray(edges, dtype=np.float64)
     n_cond = edges.size + 2
@@ -262,7 +343,7 @@ def scatter_counts(
         n_units, d_indptr, d_indices, g_indptr, g_indices, g_code
     )
     if resolve_engine(engine) == "numba":
-        kernel = _numba_kernel(_scatter_numba_impl)
+        kernel = _numba_kernel(_scatter_numba_impl if by_draw else _scatter_blocked_impl)
         with compute_threads() as threads:
             n_threads = max(1, min(threads, n_draws))
             counts_t = np.zeros((n_threads, n_units, n_cond), dtype=np.int64)
