@@ -386,37 +386,56 @@ def _bits_numba_impl(
     n_draws = d_indptr.shape[0] - 1
     if n_draws == 0:
         return
-    # threads take whole 64-draw words, so no two threads write the same word
+    one = np.uint64(1)
+    # threads take whole 64-draw words, so no two threads write the same word; within a
+    # word the draws go together, one bit each, so that a treated unit's graph row is read
+    # once per word for every draw of the word that treats it
     first_word = draw0 // 64
     n_w = (draw0 + n_draws - 1) // 64 - first_word + 1
     n_threads = min(max_threads, n_w)
     for t in numba.prange(n_threads):
         w0 = first_word + n_w * t // n_threads
         w1 = first_word + n_w * (t + 1) // n_threads
-        r0 = max(w0 * 64 - draw0, 0)
-        r1 = min(w1 * 64 - draw0, n_draws)
-        best = np.full(n_units, pc, np.int8)
+        masks = np.zeros((n_units, pc), np.uint64)  # col 0 treated, col c reached in band c
+        mark = np.zeros(n_units, np.int8)
         touched = np.empty(n_units, np.int64)
-        for r in range(r0, r1):
-            g = draw0 + r
-            w = g // 64
-            bit = np.uint64(1) << np.uint64(g % 64)
-            start, stop = d_indptr[r], d_indptr[r + 1]
-            n_touched = _spread(
-                start, stop, d_indices, g_indptr, g_indices, g_code, best, touched, pc
-            )
-            for a in range(start, stop):
-                t_unit = d_indices[a]
-                col = column[t_unit]
-                if col >= 0:
-                    bits[0, w, col] |= bit
-                best[t_unit] = pc
+        for w in range(w0, w1):
+            r0 = max(w * 64 - draw0, 0)
+            r1 = min((w + 1) * 64 - draw0, n_draws)
+            n_touched = 0
+            for r in range(r0, r1):
+                bit = one << np.uint64((draw0 + r) % 64)
+                for a in range(d_indptr[r], d_indptr[r + 1]):
+                    u = d_indices[a]
+                    if mark[u] == 0:
+                        mark[u] = 1
+                        touched[n_touched] = u
+                        n_touched += 1
+                    masks[u, 0] |= bit
+            n_treated = n_touched
+            for s in range(n_treated):
+                u = touched[s]
+                m = masks[u, 0]
+                for b in range(g_indptr[u], g_indptr[u + 1]):
+                    c = g_code[b]
+                    if c < pc:
+                        j = g_indices[b]
+                        if mark[j] == 0:
+                            mark[j] = 1
+                            touched[n_touched] = j
+                            n_touched += 1
+                        masks[j, c] |= m
             for s in range(n_touched):
                 j = touched[s]
                 col = column[j]
-                if col >= 0:
-                    bits[best[j], w, col] |= bit
-                best[j] = pc
+                seen = np.uint64(0)
+                for c in range(pc):
+                    m = masks[j, c] & ~seen
+                    seen |= masks[j, c]
+                    masks[j, c] = 0
+                    if col >= 0 and m != 0:
+                        bits[c, w, col] |= m
+                mark[j] = 0
 
 
 def _popcount64(x):
