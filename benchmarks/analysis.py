@@ -81,7 +81,9 @@ def _instrument_analysis() -> tuple[dict[str, float], dict[str, float]]:
         "estimate_contrast": "estimates + Aronow-Samii variances",
         "fisher_test": "Fisher tests",
         "spillover_test": "conditional spillover tests",
-        "invert_constant_effect": "test-inversion intervals",
+        "constant_effect_tests": "additive tests + inverted intervals",
+        "rate_ratio_tests": "rate-ratio tests + inverted intervals",
+        "_wdq_intervals": "displacement quotient intervals",
     }
     for attr, label in parts.items():
         original = getattr(run, attr)

@@ -299,7 +299,7 @@ def test_condition_bits_in_odd_chunks_match_distances(engine):
     column = np.full(n, -1)
     column[held] = np.arange(held.size)
     n_cond = mapping.n_conditions
-    words = np.zeros((n_cond, 3, held.size), dtype=np.uint64)
+    words = np.zeros((n_cond, held.size, 3), dtype=np.uint64)  # a row of words per unit
     # chunks that start inside 32- and 64-draw words, one of a single draw
     for lo, hi in [(0, 5), (5, 40), (40, 41), (41, 100), (100, 150)]:
         condition_bits_chunk(
@@ -323,7 +323,7 @@ def test_condition_bits_in_odd_chunks_match_distances(engine):
         cond[t] = 0
         for row, unit in enumerate(held):
             if cond[unit] < n_cond - 1:
-                expected[cond[unit], r // 64, row] |= np.uint64(1) << np.uint64(r % 64)
+                expected[cond[unit], row, r // 64] |= np.uint64(1) << np.uint64(r % 64)
     assert expected[1:3].any()  # the bands are reached, so the check has teeth
     np.testing.assert_array_equal(words, expected)
 

@@ -172,6 +172,10 @@ def analyse(
     pc = mapping.pure_control
     observed = assignment.conditions.astype(np.int64)
     r_prob = design.spec.draws
+    # the linked pairs tell structural zero joint probabilities from Monte Carlo zeros, and
+    # carry the variance alone when the trial is too big for all pairs; found before the
+    # joint-probability bits are held, so that the two peaks of memory do not add up
+    near = _near_pairs(design)
     bits = condition_bits(
         design.sampler, design.graph, mapping, r_prob, design.stream(Stream.MONTE_CARLO)
     )
@@ -188,9 +192,6 @@ def analyse(
             )
     # Units far apart can need pairs beyond the dense limit in big trials
     n_big = max(int(((probs[:, k] > 0) & (probs[:, pc] > 0)).sum()) for k in range(pc))
-    # the linked pairs tell structural zero joint probabilities from Monte Carlo zeros, and
-    # carry the variance alone when the trial is too big for all pairs
-    near = _near_pairs(design)
     if n_big * n_big > DENSE_LIMIT:
         notes.append(
             "joint exposure probabilities are computed for the pairs of units whose conditions can "

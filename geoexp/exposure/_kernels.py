@@ -434,7 +434,7 @@ def _bits_numba_impl(
                     seen |= masks[j, c]
                     masks[j, c] = 0
                     if col >= 0 and m != 0:
-                        bits[c, w, col] |= m
+                        bits[c, col, w] |= m
                 mark[j] = 0
 
 
@@ -484,10 +484,11 @@ def condition_bits_chunk(
     *,
     engine: Engine = "auto",
 ) -> None:
-    """Set the bits of draws ``draw0 ..`` of a chunk in ``bits`` (n_conditions, n_words, n_held).
+    """Set the bits of draws ``draw0 ..`` of a chunk in ``bits`` (n_conditions, n_held, n_words).
 
-    The draw-major layout keeps the writes of 64 consecutive draws within one
-    row per condition (cache-friendly); the caller transposes at the end.
+    The layout is the final one (a row of words per unit): the kernel takes
+    the draws of one 64-draw word together, so it writes each unit's word of a
+    condition once.
 
     Sets the treated and band bits of the held units (``column[unit]`` is the
     unit's row, -1 if not held); pure-control bits are the complement, set
@@ -548,7 +549,7 @@ def _condition_bits_numpy(d_indptr, d_indices, g_indptr, g_indices, g_code, colu
     the nearest band reached, so band c keeps the units reached in band c and
     neither treated nor reached in a nearer band: the same bits as the loop.
     """
-    n_cond, _, n_held = bits.shape
+    n_cond, n_held, _ = bits.shape
     n_units = column.size
     n_draws = d_indptr.size - 1
     bands = _band_matrices(g_indptr, g_indices, g_code, n_units, n_cond)
@@ -577,7 +578,7 @@ def _condition_bits_numpy(d_indptr, d_indices, g_indptr, g_indices, g_code, colu
             found.append(now & ~seen)
             seen = seen | now  # not in place: found[0] is the treated half-word
         for c, half in enumerate(found):
-            bits[c, word] |= (half if every else half[units_of_rows]) << shift
+            bits[c, :, word] |= (half if every else half[units_of_rows]) << shift
         start = stop
 
 
