@@ -93,7 +93,7 @@ def _scatter_numba_impl(
 
 
 def _scatter_blocked_impl(
-    d_indptr, d_indices, g_indptr, g_indices, g_code, counts_t, cov, cov_sums, cond_counts
+    d_indptr, d_indices, g_indptr, g_indices, g_code, counts_t, cov, cov_sums, cond_counts, active
 ):
     n_threads, n_units, n_cond = counts_t.shape
     pc = n_cond - 1
@@ -156,8 +156,13 @@ def _scatter_blocked_impl(
                         while m != 0:
                             r = r0 + _popcount((m & (~m + one)) - one)
                             cond_counts[r, c] += 1
-                            for q in range(n_cov):
-                                cov_sums[r, c, q] += cov[j, q]
+                            # adding an exact zero to a sum that starts at +0.0 leaves it as it
+                            # is, so zero weights are skipped with the very same result
+                            if active[j]:
+                                for q in range(n_cov):
+                                    v = cov[j, q]
+                                    if v != 0.0:
+                                        cov_sums[r, c, q] += v
                             m &= m - one
                 mark[j] = 0
 
@@ -344,20 +349,15 @@ def scatter_counts(
     )
     if resolve_engine(engine) == "numba":
         kernel = _numba_kernel(_scatter_numba_impl if by_draw else _scatter_blocked_impl)
+        arrays = (d_indptr, d_indices, g_indptr, g_indices, g_code)
         with compute_threads() as threads:
             n_threads = max(1, min(threads, n_draws))
             counts_t = np.zeros((n_threads, n_units, n_cond), dtype=np.int64)
-            kernel(
-                d_indptr,
-                d_indices,
-                g_indptr,
-                g_indices,
-                g_code,
-                counts_t,
-                cov_arr,
-                cov_sums,
-                cond_counts,
-            )
+            if by_draw:
+                kernel(*arrays, counts_t, cov_arr, cov_sums, cond_counts)
+            else:
+                active = (cov_arr != 0).any(axis=1).astype(np.int8)
+                kernel(*arrays, counts_t, cov_arr, cov_sums, cond_counts, active)
         counts = counts_t.sum(axis=0) if n_threads > 1 else counts_t[0]
     else:
         counts = np.zeros((n_units, n_cond), dtype=np.int64)
