@@ -47,6 +47,7 @@ reading much into one number.
 from __future__ import annotations
 
 import argparse
+import gc
 import json
 import resource
 import subprocess
@@ -298,6 +299,10 @@ def city_case(out: Path, n_units: int, n_draws: int) -> None:
         post=("2026-01-01", "2026-12-31"),
     )
     stages.done("simulate Poisson outcomes, OutcomeTable.from_counts")
+    # the analysis rebuilds the design from the trial file: let go of this one first, so
+    # that the peak memory of the analysis is its own
+    del design, assignment, frame
+    gc.collect()
     _analyse(trial_path, outcomes, n_draws, stages)
     _kernel_baseline(trial_path, n_draws, stages)
 
@@ -344,6 +349,8 @@ def job_case(out: Path, n_units: int, n_treated: int, n_draws: int) -> None:
         post=("2026-01-01", "2026-12-31"),
     )
     stages.done("count incidents onto segments")
+    del grid, design, assignment, incidents, points, lines, where, days
+    gc.collect()
     result = _analyse(trial_path, outcomes, n_draws, stages)
     write_report(result, out / "report.html", trial=tf)
     stages.done("report (HTML and Markdown, static map)")
