@@ -325,8 +325,8 @@ def constant_effect_tests(
     sums = _shared_sums(design, blocks, n_draws, rng)
     effects = np.asarray(effects, dtype=float).copy()
     return [
-        _additive(design, observed, cols, s, k, l, effects, n_draws, level, *extra, interval)
-        for cols, s, *extra in zip(blocks, sums, centers, scales, nulls, strict=True)
+        _additive(design, observed, cols, s, k, l, effects, n_draws, level, c, sc, nu, interval)
+        for cols, s, c, sc, nu in zip(blocks, sums, centers, scales, nulls, strict=True)
     ]
 
 
