@@ -19,8 +19,9 @@ Three cases, each run in its own subprocess so that its peak resident memory
     band x1.1), counts taken with ``OutcomeTable.from_counts``.
 ``job``
     The whole job on a generated city of ``--segments`` street segments
-    (default 1,000,000), ``--treated`` of them treated (default 5,000; same
-    spec otherwise as ``city``): graph and design, draw, exposure
+    (default 1,000,000), ``--treated`` of them treated (default 5,000) among
+    the top segments by baseline, ten for each treated one (same spec
+    otherwise as ``city``): graph and design, draw, exposure
     probabilities (written with the trial file), invented incident points on
     the segments (Poisson, pre-period and post-period, the planted effect)
     counted by ``count_incidents``, the analysis, and the report (HTML and
@@ -232,7 +233,9 @@ def region_case(out: Path, n_draws: int) -> None:
     _analyse(trial_path, outcomes, n_draws, stages)
 
 
-def _city(out: Path, n_units: int, n_treated: int, n_draws: int, stages: Stages):
+def _city(
+    out: Path, n_units: int, n_treated: int, n_draws: int, stages: Stages, top_share: float = 0.5
+):
     """A generated city written to a GeoPackage, its design drawn and its trial file written."""
     import pyogrio
 
@@ -259,7 +262,7 @@ def _city(out: Path, n_units: int, n_treated: int, n_draws: int, stages: Stages)
             "seed": 11,
             "draws": n_draws,
             "units": {"path": str(units_path), "layer": "segments", "id_column": "unit_id"},
-            "eligible": {"top_column": "baseline", "top_share": 0.5},
+            "eligible": {"top_column": "baseline", "top_share": top_share},
             "assignment": {"method": "complete", "treated": n_treated},
             "exposure": {"bands_m": [150.0, 300.0], "metric": "euclidean"},
         },
@@ -316,8 +319,10 @@ def job_case(out: Path, n_units: int, n_treated: int, n_draws: int) -> None:
     from geoexp.trialfile import TrialFile
 
     stages = Stages()
+    # hot spots: the top segments by baseline, ten for every treated one, so that a segment's
+    # chance of treatment (10%) clears the default positivity floor of 0.05
     grid, design, assignment, rate, rng, trial_path = _city(
-        out, n_units, n_treated, n_draws, stages
+        out, n_units, n_treated, n_draws, stages, top_share=min(0.5, 10 * n_treated / n_units)
     )
     conditions = assignment.to_frame()["condition"].to_numpy()
     multiplier = pd.Series(conditions).map(EFFECTS).fillna(1.0).to_numpy()
