@@ -299,7 +299,7 @@ def test_condition_bits_in_odd_chunks_match_distances(engine):
     column = np.full(n, -1)
     column[held] = np.arange(held.size)
     n_cond = mapping.n_conditions
-    words = np.zeros((n_cond, 3, held.size), dtype=np.uint64)
+    words = np.zeros((n_cond, held.size, 3), dtype=np.uint64)  # a row of words per unit
     # chunks that start inside 32- and 64-draw words, one of a single draw
     for lo, hi in [(0, 5), (5, 40), (40, 41), (41, 100), (100, 150)]:
         condition_bits_chunk(
@@ -323,7 +323,7 @@ def test_condition_bits_in_odd_chunks_match_distances(engine):
         cond[t] = 0
         for row, unit in enumerate(held):
             if cond[unit] < n_cond - 1:
-                expected[cond[unit], r // 64, row] |= np.uint64(1) << np.uint64(r % 64)
+                expected[cond[unit], row, r // 64] |= np.uint64(1) << np.uint64(r % 64)
     assert expected[1:3].any()  # the bands are reached, so the check has teeth
     np.testing.assert_array_equal(words, expected)
 
@@ -394,3 +394,46 @@ def test_banded_reach_is_built_once_and_classifies_like_the_mapping():
         2,
         3,
     ]
+
+
+@pytest.mark.skipif(not HAVE_NUMBA, reason="numba engine needs numba")
+def test_blocked_kernel_matches_the_draw_by_draw_kernel_and_the_numpy_twin():
+    # The kernel that takes 64 draws at a time against the earlier one-draw-at-a-time kernel
+    # (kept as by_draw=True) and the numpy twin, on draws whose count is no multiple of 64.
+    # Counts are integers: equal exactly. Sums of small integers are exact in any order, so
+    # equal exactly too; sums of real weights differ only by the order of their additions.
+    # Rows of zero weights (skipped by the blocked kernel) must leave the sums as they are.
+    from geoexp._engine import limit_threads
+
+    rng = np.random.default_rng(21)
+    points = rng.uniform(0, 2500, size=(300, 2))
+    graph = point_graph(points, 300.0)
+    draws = random_draws(rng, 203, 300, 17)
+    edges = np.array([120.0, 300.0])
+    whole = rng.integers(-5, 6, size=(300, 3)).astype(float)
+    real = rng.normal(size=(300, 3))
+    whole[rng.random(300) < 0.3] = 0.0
+    real[rng.random(300) < 0.3] = 0.0
+    cov = np.hstack([whole, real])
+    args = (draws.indptr, draws.indices, graph.indptr, graph.indices, graph.distances, edges, 300)
+    blocked = scatter_counts(*args, cov, engine="numba")
+    by_draw = scatter_counts(*args, cov, engine="numba", by_draw=True)
+    twin = scatter_counts(*args, cov, engine="numpy")
+    with limit_threads(1):
+        one_thread = scatter_counts(*args, cov, engine="numba")
+    for other in (by_draw, twin, one_thread):
+        np.testing.assert_array_equal(blocked[0], other[0])
+        np.testing.assert_array_equal(blocked[1], other[1])
+        np.testing.assert_array_equal(blocked[2][:, :, :3], other[2][:, :, :3])
+    # the twin and a single thread add in the same order as the blocked kernel: equal bits
+    np.testing.assert_array_equal(blocked[2], twin[2])
+    np.testing.assert_array_equal(blocked[2], one_thread[2])
+    np.testing.assert_allclose(blocked[2], by_draw[2], rtol=1e-12, atol=1e-12)
+    # [A] the sums are those of the conditions of each draw (assign_conditions), by numpy
+    mapping = ExposureMapping(tuple(edges))
+    for r in (0, 64, 202):
+        treated = draws.indices[draws.indptr[r] : draws.indptr[r + 1]]
+        cond = assign_conditions(graph, mapping, treated)
+        for c in range(mapping.pure_control):
+            np.testing.assert_array_equal(blocked[2][r, c, :3], whole[cond == c].sum(axis=0))
+            assert blocked[1][r, c] == (cond == c).sum()

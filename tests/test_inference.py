@@ -414,3 +414,60 @@ def test_moran_matches_esda():
     assert ours.statistic == pytest.approx(ref.I, rel=1e-10)
     assert ours.expected == pytest.approx(ref.EI, rel=1e-12)
     assert ours.p_value < 0.05  # a strong east-west trend is autocorrelated
+
+
+def test_batched_tests_equal_one_test_per_contrast():
+    # Rows of one condition share a pass over the same draws: each batched result must be
+    # the very result of its own call with the same seed (p-values, interval ends, estimate)
+    from geoexp.errors import InputError
+    from geoexp.inference import (
+        constant_effect_test,
+        constant_effect_tests,
+        rate_ratio_test,
+        rate_ratio_tests,
+    )
+
+    design = lattice_design(n_eligible=80, m=30)
+    mapping = design.mapping
+    probs = exposure_probabilities(design.sampler, design.graph, mapping, 2000, rng=1).probabilities
+    rng = np.random.default_rng(4)
+    treated = design.sampler.draw(77)
+    cond = assign_conditions(design.graph, mapping, treated)
+    pre = rng.poisson(6.0, design.units.n).astype(float)
+    post = rng.poisson(6.0 * np.where(cond == 1, 1.3, 1.0))
+    y = post - pre
+    halves = [design.eligible, ~design.eligible]
+    specs = [ContrastSpec(1, 2, mask) for mask in halves]
+    effects = np.array([-1.0, 0.0, 0.0])
+    batch = constant_effect_tests(
+        design, cond, y, probs, specs, effects, n_draws=400, rng=5, scales=[0.5, 2.0]
+    )
+    ratios = np.array([0.9, 1.0, 1.0])
+    bases = [pre, None]
+    rates = rate_ratio_tests(
+        design, cond, post, probs, specs, ratios, n_draws=400, rng=6, baselines=bases
+    )
+    for spec, scale, base, add, rate in zip(specs, [0.5, 2.0], bases, batch, rates, strict=True):
+        alone = constant_effect_test(
+            design, cond, y, probs, spec, effects, n_draws=400, rng=5, scale=scale
+        )
+        assert (add.estimate, add.ci_low, add.ci_high) == (
+            alone.estimate,
+            alone.ci_low,
+            alone.ci_high,
+        )
+        assert add.test.p_value == alone.test.p_value
+        r_alone = rate_ratio_test(
+            design, cond, post, probs, spec, ratios, n_draws=400, rng=6, baseline=base
+        )
+        assert (rate.estimate, rate.ci_low, rate.ci_high, rate.test.p_value) == (
+            r_alone.estimate,
+            r_alone.ci_low,
+            r_alone.ci_high,
+            r_alone.test.p_value,
+        )
+    assert batch[0].estimate != batch[1].estimate  # two different groups of units
+    with pytest.raises(InputError):
+        constant_effect_tests(
+            design, cond, y, probs, [specs[0], ContrastSpec(0, 2, halves[0])], effects
+        )

@@ -32,9 +32,10 @@ from geoexp.exposure import condition_bits, dependence_pairs
 from geoexp.inference import (
     MIN_FOCAL,
     ContrastSpec,
-    constant_effect_test,
+    InvertedTest,
+    constant_effect_tests,
     fisher_test,
-    rate_ratio_test,
+    rate_ratio_tests,
     spillover_test,
 )
 from geoexp.outcomes import OutcomeTable, load_outcomes
@@ -157,6 +158,10 @@ def analyse(
     mapping = design.mapping
     pc = mapping.pure_control
     r_prob = design.spec.draws
+    # the linked pairs tell structural zero joint probabilities from Monte Carlo zeros, and
+    # carry the variance alone when the trial is too big for all pairs; found before the
+    # joint-probability bits are held, so that the two peaks of memory do not add up
+    near = _near_pairs(design)
     bits = condition_bits(
         design.sampler, design.graph, mapping, r_prob, design.stream(Stream.MONTE_CARLO)
     )
@@ -173,9 +178,6 @@ def analyse(
             )
     # Units far apart can need pairs beyond the dense limit in big trials
     n_big = max(int(((probs[:, k] > 0) & (probs[:, pc] > 0)).sum()) for k in range(pc))
-    # the linked pairs tell structural zero joint probabilities from Monte Carlo zeros, and
-    # carry the variance alone when the trial is too big for all pairs
-    near = _near_pairs(design)
     if n_big * n_big > DENSE_LIMIT:
         notes.append(
             "joint exposure probabilities are computed for the pairs of units whose conditions can "
@@ -218,38 +220,63 @@ def analyse(
             plug[k] = e.estimate if np.isfinite(e.estimate) else 0.0
             ratio = _hajek_rate_ratio(obs, probs, k, pc, est.units)
             ratios[k] = ratio if np.isfinite(ratio) and ratio > 0 else 1.0
+    # rows of the same condition share their streams of draws: one pass serves them all
+    adds: dict[int, InvertedTest] = {}
+    rates: dict[int, InvertedTest] = {}
+    for k in sorted({k for k, _, _ in plan}):
+        at = [i for i, (kk, _, _) in enumerate(plan) if kk == k]
+        specs = [ContrastSpec(k, pc, plan[i][1].units) for i in at]
+        wheres = [f"{labels[k]} units ({plan[i][1].who})" for i in at]
+        fits = [effects[i][0] for i in at]
+        adds.update(
+            zip(
+                at,
+                constant_effect_tests(
+                    design,
+                    observed,
+                    y,
+                    probs,
+                    specs,
+                    plug,
+                    n_draws=n_draws,
+                    level=level,
+                    centers=[e.estimate if np.isfinite(e.estimate) else 0.0 for e in fits],
+                    scales=[
+                        max(e.std_error, 1e-6) if np.isfinite(e.std_error) else 1.0 for e in fits
+                    ],
+                    nulls=[
+                        f"no additive effect on {w}, other effects at their estimates"
+                        for w in wheres
+                    ],
+                    interval=intervals,
+                ),
+                strict=True,
+            )
+        )
+        rates.update(
+            zip(
+                at,
+                rate_ratio_tests(
+                    design,
+                    observed,
+                    post,
+                    probs,
+                    specs,
+                    ratios,
+                    n_draws=n_draws,
+                    level=level,
+                    nulls=[f"rate ratio 1 on {w}, other ratios at their estimates" for w in wheres],
+                    interval=intervals,
+                    baselines=[pre if (pre[plan[i][1].units] > 0).any() else None for i in at],
+                ),
+                strict=True,
+            )
+        )
     rows: list[ContrastResult] = []
     fisher0 = None
-    for (k, est, focal), (e, e_other) in zip(plan, effects, strict=True):
+    for i, ((k, est, focal), (e, e_other)) in enumerate(zip(plan, effects, strict=True)):
         spec = ContrastSpec(k, pc, est.units)
-        where = f"{labels[k]} units ({est.who})"
-        add = constant_effect_test(
-            design,
-            observed,
-            y,
-            probs,
-            spec,
-            plug,
-            n_draws=n_draws,
-            level=level,
-            center=e.estimate if np.isfinite(e.estimate) else 0.0,
-            scale=max(e.std_error, 1e-6) if np.isfinite(e.std_error) else 1.0,
-            null=f"no additive effect on {where}, other effects at their estimates",
-            interval=intervals,
-        )
-        rate = rate_ratio_test(
-            design,
-            observed,
-            post,
-            probs,
-            spec,
-            ratios,
-            n_draws=n_draws,
-            level=level,
-            null=f"rate ratio 1 on {where}, other ratios at their estimates",
-            interval=intervals,
-            baseline=pre if (pre[est.units] > 0).any() else None,
-        )
+        add, rate = adds[i], rates[i]
         exact = None
         if k == 0 and fisher0 is None:
             fisher0 = fisher_test(design, observed, y, probs, spec, n_draws=n_draws)

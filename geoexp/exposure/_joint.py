@@ -273,8 +273,8 @@ def _condition_bits(
     pc = mapping.pure_control
     n_cond = mapping.n_conditions
     n_words = -(-n_draws // _WORD)
-    # draw-major while the kernels write, unit-major (one row of words per unit) after
-    words = np.zeros((n_cond, n_words, positions.size), dtype=np.uint64)
+    # unit-major: one row of words per unit and condition
+    bits = np.zeros((n_cond, positions.size, n_words), dtype=np.uint64)
     column = np.full(graph.n, -1, dtype=np.int64)
     column[positions] = np.arange(positions.size)
     draw0 = 0
@@ -291,7 +291,7 @@ def _condition_bits(
             reach.codes,
             column,
             draw0,
-            words,
+            bits,
             engine=engine,
         )
         draw0 += n_chunk
@@ -302,9 +302,7 @@ def _condition_bits(
     valid = np.full(n_words, np.uint64(2**64 - 1), dtype=np.uint64)
     if n_draws % _WORD:
         valid[-1] = np.uint64((1 << (n_draws % _WORD)) - 1)
-    words[pc] = ~np.bitwise_or.reduce(words[:pc], axis=0) & valid[:, None]
-    bits = np.ascontiguousarray(words.transpose(0, 2, 1))
-    del words
+    bits[pc] = ~np.bitwise_or.reduce(bits[:pc], axis=0) & valid[None, :]
     return ConditionBits(ids=graph.ids[positions], positions=positions, bits=bits, n_draws=n_draws)
 
 
@@ -312,6 +310,13 @@ def _condition_bits(
 MAX_DEPENDENT_PAIRS = 300_000_000
 # Rows of units whose linked pairs are found at once.
 _DEPENDENCE_ROWS = 8_192
+
+
+def _grown(array: np.ndarray, size: int, used: int) -> np.ndarray:
+    """A new array of ``size`` entries holding the first ``used`` entries of ``array``."""
+    out = np.empty(size, dtype=array.dtype)
+    out[:used] = array[:used]
+    return out
 
 
 def dependence_pairs(
@@ -365,17 +370,21 @@ def dependence_pairs(
     n = graph.n
     eligible = np.asarray(eligible, dtype=bool)
     reach = BandedReach.of(graph, mapping)
-    rows = np.repeat(np.arange(n, dtype=np.int64), np.diff(reach.indptr))
-    cols = reach.indices.astype(np.int64)
     own = np.flatnonzero(eligible)
-    sel = eligible[cols]
+    # each unit's eligible units within reach, itself included when eligible, built as a CSR
+    # straight from the reach's rows (no pair-length int64 copies), then put in canonical
+    # form (sorted, no duplicates), as a matrix built from coordinates is
+    sel = eligible[reach.indices]
+    kept = np.zeros(sel.size + 1, dtype=np.int64)
+    np.cumsum(sel, out=kept[1:])
+    indptr = kept[reach.indptr]
+    del kept
     a = sp.csr_array(
-        (
-            np.ones(int(sel.sum()) + own.size, dtype=np.float32),
-            (np.concatenate([rows[sel], own]), np.concatenate([cols[sel], own])),
-        ),
-        shape=(n, n),
+        (np.ones(int(indptr[-1]), dtype=np.float32), reach.indices[sel], indptr), shape=(n, n)
     )
+    del sel
+    a = (a + sp.csr_array((np.ones(own.size, dtype=np.float32), (own, own)), shape=(n, n))).tocsr()
+    a.sum_duplicates()
     link = sp.identity(n, dtype=np.float32, format="csr")
     if gap is not None and gap > 0:
         if gap > graph.max_distance + 1e-9:
@@ -392,20 +401,30 @@ def dependence_pairs(
     # rows in blocks, so that the sparse products never hold more than a block's pairs
     a_t = a.T.tocsr()
     index_type = np.int32 if n < 2**31 else np.int64
-    firsts, seconds = [], []
+    # the pairs go straight into one pair of arrays, sized from the first block and grown
+    # when a later block needs more, so that memory is the pairs once plus one block
+    first = np.zeros(0, index_type)
+    second = np.zeros(0, index_type)
     total = 0
     for start in range(0, n, _DEPENDENCE_ROWS):
         block = (a[start : start + _DEPENDENCE_ROWS] @ link @ a_t).tocoo()
         off = block.row + start != block.col
-        firsts.append((block.row[off] + start).astype(index_type))
-        seconds.append(block.col[off].astype(index_type))
-        total += int(off.sum())
-        if total > MAX_DEPENDENT_PAIRS:
+        m = int(off.sum())
+        if total + m > MAX_DEPENDENT_PAIRS:
             raise InputError(
                 f"more than {MAX_DEPENDENT_PAIRS:,} linked pairs: too many for joint probabilities"
             )
-    first = np.concatenate(firsts) if firsts else np.zeros(0, index_type)
-    second = np.concatenate(seconds) if seconds else np.zeros(0, index_type)
+        if total + m > first.size:
+            rows_done = min(start + _DEPENDENCE_ROWS, n)
+            size = max(total + m, int((total + m) * n / rows_done * 1.05) + 1024)
+            first = _grown(first, min(size, MAX_DEPENDENT_PAIRS), total)
+            second = _grown(second, min(size, MAX_DEPENDENT_PAIRS), total)
+        first[total : total + m] = block.row[off] + start
+        second[total : total + m] = block.col[off]
+        total += m
+        del block, off
+    del a_t
+    first, second = first[:total], second[:total]
     if clusters is None:
         return first, second
     near = sp.csr_array((np.ones(first.size, dtype=np.float32), (first, second)), shape=(n, n))

@@ -92,6 +92,81 @@ def _scatter_numba_impl(
                 best[j] = pc
 
 
+def _scatter_blocked_impl(
+    d_indptr, d_indices, g_indptr, g_indices, g_code, counts_t, cov, cov_sums, cond_counts, active
+):
+    n_threads, n_units, n_cond = counts_t.shape
+    pc = n_cond - 1
+    n_draws = d_indptr.shape[0] - 1
+    n_cov = cov.shape[1]
+    track = cond_counts.shape[0] > 0
+    n_blocks = (n_draws + 63) // 64
+    one = np.uint64(1)
+    # Blocks of 64 draws, one bit each: a unit's row of the graph is read once per block
+    # for every draw of the block that treats it (not once per draw), in ascending unit
+    # order. Each block is done by one thread and every per-draw sum adds its units in
+    # ascending position, so results do not depend on the number of threads.
+    for t in numba.prange(n_threads):
+        counts = counts_t[t]
+        masks = np.zeros((n_units, pc), np.uint64)  # col 0 treated, col c reached in band c
+        mark = np.zeros(n_units, np.int8)
+        touched = np.empty(n_units, np.int64)
+        b0 = n_blocks * t // n_threads
+        b1 = n_blocks * (t + 1) // n_threads
+        for blk in range(b0, b1):
+            r0 = blk * 64
+            r1 = min(r0 + 64, n_draws)
+            n_touched = 0
+            for r in range(r0, r1):
+                bit = one << np.uint64(r - r0)
+                for a in range(d_indptr[r], d_indptr[r + 1]):
+                    u = d_indices[a]
+                    if mark[u] == 0:
+                        mark[u] = 1
+                        touched[n_touched] = u
+                        n_touched += 1
+                    masks[u, 0] |= bit
+            n_treated = n_touched
+            for s in range(n_treated):
+                u = touched[s]
+                m = masks[u, 0]
+                for b in range(g_indptr[u], g_indptr[u + 1]):
+                    c = g_code[b]
+                    if c < pc:
+                        j = g_indices[b]
+                        if mark[j] == 0:
+                            mark[j] = 1
+                            touched[n_touched] = j
+                            n_touched += 1
+                        masks[j, c] |= m
+            if n_touched * 16 < n_units:
+                order = np.sort(touched[:n_touched])
+            else:  # most units touched: a scan is cheaper than a sort
+                order = np.flatnonzero(mark)
+            for j in order:
+                seen = np.uint64(0)
+                for c in range(pc):
+                    m = masks[j, c] & ~seen
+                    seen |= masks[j, c]
+                    masks[j, c] = 0
+                    if m == 0:
+                        continue
+                    counts[j, c] += _popcount(m)
+                    if track:
+                        while m != 0:
+                            r = r0 + _popcount((m & (~m + one)) - one)
+                            cond_counts[r, c] += 1
+                            # adding an exact zero to a sum that starts at +0.0 leaves it as it
+                            # is, so zero weights are skipped with the very same result
+                            if active[j]:
+                                for q in range(n_cov):
+                                    v = cov[j, q]
+                                    if v != 0.0:
+                                        cov_sums[r, c, q] += v
+                            m &= m - one
+                mark[j] = 0
+
+
 def _gather_rows(indptr: np.ndarray, rows: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """Positions into a CSR's data for the given rows, and the row-entry each came from."""
     starts = indptr[rows]
@@ -193,19 +268,21 @@ def _scatter_numpy(
         counts[:, 0] += np.bincount(sub_indices, minlength=n_units)
         if track:
             n_sub = stop - start
-            # per-draw sums in the numba kernel's order: each draw's units as visited
+            # per-draw sums in the numba kernel's order: each draw's units (treated and
+            # reached) in ascending position, added one by one from zero
             tdraw = np.repeat(np.arange(n_sub), np.diff(sub_indptr))
-            cond_counts[start:stop] += np.bincount(
-                draw * n_cond + cond, minlength=n_sub * n_cond
-            ).reshape(n_sub, n_cond)
-            cond_counts[start:stop, 0] += np.bincount(tdraw, minlength=n_sub)
+            draw = np.concatenate([draw, tdraw])
+            unit = np.concatenate([unit, sub_indices.astype(np.int64)])
+            cond = np.concatenate([cond, np.zeros(tdraw.size, dtype=np.int64)])
+            order = np.argsort(draw * n_units + unit, kind="stable")
+            key, unit = (draw * n_cond + cond)[order], unit[order]
+            cond_counts[start:stop] += np.bincount(key, minlength=n_sub * n_cond).reshape(
+                n_sub, n_cond
+            )
             for q in range(cov.shape[1]):
                 cov_sums[start:stop, :, q] += np.bincount(
-                    draw * n_cond + cond, weights=cov[unit, q], minlength=n_sub * n_cond
+                    key, weights=cov[unit, q], minlength=n_sub * n_cond
                 ).reshape(n_sub, n_cond)
-                cov_sums[start:stop, 0, q] += np.bincount(
-                    tdraw, weights=cov[sub_indices, q], minlength=n_sub
-                )
         start = stop
 
 
@@ -236,14 +313,23 @@ def scatter_counts(
     *,
     engine: Engine = "auto",
     g_code: np.ndarray | None = None,
+    by_draw: bool = False,
 ) -> tuple[np.ndarray, np.ndarray | None, np.ndarray | None]:
     """Count, over a chunk of draws, how often each unit is treated or in each band.
 
     Returns ``counts`` (n_units, K+2) int64 with the pure-control column left
     at zero (it is the remainder, filled by the caller), and when ``cov`` is
     given, per-draw condition sizes (R, K+2) and covariate sums (R, K+2, q)
-    for the conditions other than pure control. ``g_code`` may pass
-    :func:`band_codes` of ``(g_dist, edges)`` computed once for many chunks.
+    for the conditions other than pure control; each per-draw sum adds its
+    units in ascending position. ``g_code`` may pass :func:`band_codes` of
+    ``(g_dist, edges)`` computed once for many chunks.
+
+    The numba engine takes the draws 64 at a time, one bit each, so that a
+    treated unit's graph row is read once per block of draws rather than once
+    per draw. ``by_draw=True`` runs the earlier numba kernel instead, one draw
+    at a time, whose sums add each draw's units in the order it visits them
+    (the same counts; the same sums up to the order of the additions): kept as
+    the reference the tests and the benchmark compare against.
     """
     edges = np.ascontiguousarray(edges, dtype=np.float64)
     n_cond = edges.size + 2
@@ -262,21 +348,16 @@ def scatter_counts(
         n_units, d_indptr, d_indices, g_indptr, g_indices, g_code
     )
     if resolve_engine(engine) == "numba":
-        kernel = _numba_kernel(_scatter_numba_impl)
+        kernel = _numba_kernel(_scatter_numba_impl if by_draw else _scatter_blocked_impl)
+        arrays = (d_indptr, d_indices, g_indptr, g_indices, g_code)
         with compute_threads() as threads:
             n_threads = max(1, min(threads, n_draws))
             counts_t = np.zeros((n_threads, n_units, n_cond), dtype=np.int64)
-            kernel(
-                d_indptr,
-                d_indices,
-                g_indptr,
-                g_indices,
-                g_code,
-                counts_t,
-                cov_arr,
-                cov_sums,
-                cond_counts,
-            )
+            if by_draw:
+                kernel(*arrays, counts_t, cov_arr, cov_sums, cond_counts)
+            else:
+                active = (cov_arr != 0).any(axis=1).astype(np.int8)
+                kernel(*arrays, counts_t, cov_arr, cov_sums, cond_counts, active)
         counts = counts_t.sum(axis=0) if n_threads > 1 else counts_t[0]
     else:
         counts = np.zeros((n_units, n_cond), dtype=np.int64)
@@ -305,37 +386,56 @@ def _bits_numba_impl(
     n_draws = d_indptr.shape[0] - 1
     if n_draws == 0:
         return
-    # threads take whole 64-draw words, so no two threads write the same word
+    one = np.uint64(1)
+    # threads take whole 64-draw words, so no two threads write the same word; within a
+    # word the draws go together, one bit each, so that a treated unit's graph row is read
+    # once per word for every draw of the word that treats it
     first_word = draw0 // 64
     n_w = (draw0 + n_draws - 1) // 64 - first_word + 1
     n_threads = min(max_threads, n_w)
     for t in numba.prange(n_threads):
         w0 = first_word + n_w * t // n_threads
         w1 = first_word + n_w * (t + 1) // n_threads
-        r0 = max(w0 * 64 - draw0, 0)
-        r1 = min(w1 * 64 - draw0, n_draws)
-        best = np.full(n_units, pc, np.int8)
+        masks = np.zeros((n_units, pc), np.uint64)  # col 0 treated, col c reached in band c
+        mark = np.zeros(n_units, np.int8)
         touched = np.empty(n_units, np.int64)
-        for r in range(r0, r1):
-            g = draw0 + r
-            w = g // 64
-            bit = np.uint64(1) << np.uint64(g % 64)
-            start, stop = d_indptr[r], d_indptr[r + 1]
-            n_touched = _spread(
-                start, stop, d_indices, g_indptr, g_indices, g_code, best, touched, pc
-            )
-            for a in range(start, stop):
-                t_unit = d_indices[a]
-                col = column[t_unit]
-                if col >= 0:
-                    bits[0, w, col] |= bit
-                best[t_unit] = pc
+        for w in range(w0, w1):
+            r0 = max(w * 64 - draw0, 0)
+            r1 = min((w + 1) * 64 - draw0, n_draws)
+            n_touched = 0
+            for r in range(r0, r1):
+                bit = one << np.uint64((draw0 + r) % 64)
+                for a in range(d_indptr[r], d_indptr[r + 1]):
+                    u = d_indices[a]
+                    if mark[u] == 0:
+                        mark[u] = 1
+                        touched[n_touched] = u
+                        n_touched += 1
+                    masks[u, 0] |= bit
+            n_treated = n_touched
+            for s in range(n_treated):
+                u = touched[s]
+                m = masks[u, 0]
+                for b in range(g_indptr[u], g_indptr[u + 1]):
+                    c = g_code[b]
+                    if c < pc:
+                        j = g_indices[b]
+                        if mark[j] == 0:
+                            mark[j] = 1
+                            touched[n_touched] = j
+                            n_touched += 1
+                        masks[j, c] |= m
             for s in range(n_touched):
                 j = touched[s]
                 col = column[j]
-                if col >= 0:
-                    bits[best[j], w, col] |= bit
-                best[j] = pc
+                seen = np.uint64(0)
+                for c in range(pc):
+                    m = masks[j, c] & ~seen
+                    seen |= masks[j, c]
+                    masks[j, c] = 0
+                    if col >= 0 and m != 0:
+                        bits[c, col, w] |= m
+                mark[j] = 0
 
 
 def _popcount64(x):
@@ -384,10 +484,11 @@ def condition_bits_chunk(
     *,
     engine: Engine = "auto",
 ) -> None:
-    """Set the bits of draws ``draw0 ..`` of a chunk in ``bits`` (n_conditions, n_words, n_held).
+    """Set the bits of draws ``draw0 ..`` of a chunk in ``bits`` (n_conditions, n_held, n_words).
 
-    The draw-major layout keeps the writes of 64 consecutive draws within one
-    row per condition (cache-friendly); the caller transposes at the end.
+    The layout is the final one (a row of words per unit): the kernel takes
+    the draws of one 64-draw word together, so it writes each unit's word of a
+    condition once.
 
     Sets the treated and band bits of the held units (``column[unit]`` is the
     unit's row, -1 if not held); pure-control bits are the complement, set
@@ -448,7 +549,7 @@ def _condition_bits_numpy(d_indptr, d_indices, g_indptr, g_indices, g_code, colu
     the nearest band reached, so band c keeps the units reached in band c and
     neither treated nor reached in a nearer band: the same bits as the loop.
     """
-    n_cond, _, n_held = bits.shape
+    n_cond, n_held, _ = bits.shape
     n_units = column.size
     n_draws = d_indptr.size - 1
     bands = _band_matrices(g_indptr, g_indices, g_code, n_units, n_cond)
@@ -477,7 +578,7 @@ def _condition_bits_numpy(d_indptr, d_indices, g_indptr, g_indices, g_code, colu
             found.append(now & ~seen)
             seen = seen | now  # not in place: found[0] is the treated half-word
         for c, half in enumerate(found):
-            bits[c, word] |= (half if every else half[units_of_rows]) << shift
+            bits[c, :, word] |= (half if every else half[units_of_rows]) << shift
         start = stop
 
 

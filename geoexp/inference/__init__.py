@@ -21,8 +21,10 @@ from geoexp.inference._fisher import fisher_test
 from geoexp.inference._inversion import (
     InvertedTest,
     constant_effect_test,
+    constant_effect_tests,
     invert_constant_effect,
     rate_ratio_test,
+    rate_ratio_tests,
 )
 from geoexp.inference._statistic import contrast_statistic
 
@@ -43,5 +45,7 @@ __all__ = [
     "significance",
     "spillover_test",
     "constant_effect_test",
+    "constant_effect_tests",
     "rate_ratio_test",
+    "rate_ratio_tests",
 ]

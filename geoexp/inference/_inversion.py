@@ -18,7 +18,7 @@ draws, so the interval excludes the null value exactly when that test rejects
 
 from __future__ import annotations
 
-from collections.abc import Callable
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 from typing import TYPE_CHECKING
 
@@ -26,6 +26,7 @@ import numpy as np
 
 from geoexp._rng import RngLike, Stream
 from geoexp._significance import RandomizationTest, significance
+from geoexp.errors import InputError
 from geoexp.inference._draws import ContrastSpec, draw_sums, population, weight_columns
 from geoexp.inference._statistic import contrast_statistic
 
@@ -203,16 +204,152 @@ def constant_effect_test(
     InvertedTest
         The estimate, the test of no effect and the interval.
     """
+    return constant_effect_tests(
+        design,
+        observed,
+        y,
+        probabilities,
+        [contrast],
+        effects,
+        n_draws=n_draws,
+        rng=rng,
+        level=level,
+        centers=[center],
+        scales=[scale],
+        nulls=[null],
+        interval=interval,
+    )[0]
+
+
+def _shared_sums(
+    design: Design, blocks: list[np.ndarray], n_draws: int, rng: RngLike
+) -> list[np.ndarray]:
+    """Per-draw sums of several blocks of columns from one pass over the same draws.
+
+    Each column's sums are added up on their own, unit by unit, so a block's
+    sums are the very numbers a pass with that block alone gives.
+    """
+    sums = draw_sums(design.sampler, design.graph, design.mapping, np.hstack(blocks), n_draws, rng)
+    edges = np.cumsum([0] + [b.shape[1] for b in blocks])
+    return [
+        np.ascontiguousarray(sums[:, :, a:b]) for a, b in zip(edges[:-1], edges[1:], strict=True)
+    ]
+
+
+def _same_condition(contrasts: Sequence[ContrastSpec]) -> tuple[int, int]:
+    """The conditions ``k`` and ``l`` that every contrast of a batch shares."""
+    if not contrasts:
+        raise InputError("at least one contrast is needed")
+    pairs = {(c.k, c.l) for c in contrasts}
+    if len(pairs) != 1:
+        raise InputError(
+            f"the contrasts of one batch must share their conditions (one stream of draws "
+            f"serves them), got {sorted(pairs)}"
+        )
+    return pairs.pop()
+
+
+def constant_effect_tests(
+    design: Design,
+    observed: np.ndarray,
+    y: np.ndarray,
+    probabilities: np.ndarray,
+    contrasts: Sequence[ContrastSpec],
+    effects: np.ndarray,
+    *,
+    n_draws: int = 2000,
+    rng: RngLike = None,
+    level: float = 0.95,
+    centers: Sequence[float | None] | None = None,
+    scales: Sequence[float] | None = None,
+    nulls: Sequence[str | None] | None = None,
+    interval: bool = True,
+) -> list[InvertedTest]:
+    """:func:`constant_effect_test` for several groups of units of the same condition at once.
+
+    The contrasts share their conditions ``k`` and ``l`` (and so their stream
+    of draws), and differ in their units. One pass of the exposure engine over
+    the draws serves all of them; each result is the very result
+    :func:`constant_effect_test` gives for its contrast alone with the same
+    ``rng`` (Rosenbaum 2002, test inversion).
+
+    Parameters
+    ----------
+    design : geoexp.design.Design
+        The trial's design; its sampler gives the randomization distribution.
+    observed : numpy.ndarray
+        Observed exposure condition code of every unit.
+    y : numpy.ndarray
+        Outcome per unit (e.g. incidents in the post-period, or the change).
+    probabilities : numpy.ndarray
+        (n_units, n_conditions) exposure probabilities of the design.
+    contrasts : sequence of ContrastSpec
+        The contrasts, all with the same ``k`` and ``l``.
+    effects : numpy.ndarray
+        Constant additive effect of every condition against the reference, one
+        per condition code, held fixed for the conditions other than ``k``.
+    n_draws : int
+        Draws of the design for the tests and the intervals.
+    rng : None, int, SeedSequence or Generator
+        Default: the design's stream for test inversion of condition ``k``.
+    level : float
+        Confidence level of the intervals.
+    centers : sequence of float or None, optional
+        Per contrast, where the search for the interval's ends starts (None:
+        the estimate).
+    scales : sequence of float, optional
+        Per contrast, the typical size of the effect (default 1.0 each).
+    nulls : sequence of str or None, optional
+        Per contrast, words for the null hypothesis.
+    interval : bool
+        Compute the intervals as well as the tests.
+
+    Returns
+    -------
+    list of InvertedTest
+        One per contrast, in their order.
+
+    Raises
+    ------
+    geoexp.errors.InputError
+        No contrast, or contrasts of different conditions.
+    """
+    k, l = _same_condition(contrasts)
     y = np.asarray(y, dtype=float)
-    k, l = contrast.k, contrast.l
-    n_cond = probabilities.shape[1]
-    cols = weight_columns(y, probabilities, contrast, observed)
+    n = len(contrasts)
+    centers = [None] * n if centers is None else list(centers)
+    scales = [1.0] * n if scales is None else list(scales)
+    nulls = [None] * n if nulls is None else list(nulls)
+    blocks = [weight_columns(y, probabilities, c, observed) for c in contrasts]
     rng = design.stream(Stream.INVERSION, k) if rng is None else rng
-    sums = draw_sums(design.sampler, design.graph, design.mapping, cols, n_draws, rng)
+    sums = _shared_sums(design, blocks, n_draws, rng)
+    effects = np.asarray(effects, dtype=float).copy()
+    return [
+        _additive(design, observed, cols, s, k, l, effects, n_draws, level, c, sc, nu, interval)
+        for cols, s, c, sc, nu in zip(blocks, sums, centers, scales, nulls, strict=True)
+    ]
+
+
+def _additive(
+    design: Design,
+    observed: np.ndarray,
+    cols: np.ndarray,
+    sums: np.ndarray,
+    k: int,
+    l: int,
+    effects: np.ndarray,
+    n_draws: int,
+    level: float,
+    center: float | None,
+    scale: float,
+    null: str | None,
+    interval: bool,
+) -> InvertedTest:
+    """One contrast's additive test and interval from its columns and their per-draw sums."""
+    n_cond = design.mapping.n_conditions
     obs_k = cols[observed == k].sum(axis=0)
     obs_l = cols[observed == l].sum(axis=0)
     tau_hat = float(contrast_statistic(obs_k[0], obs_k[1], obs_l[2], obs_l[3]))
-    effects = np.asarray(effects, dtype=float).copy()
     sk, sl = sums[:, k, :], sums[:, l, :]
 
     def draws_at(grid: np.ndarray) -> np.ndarray:
@@ -418,19 +555,124 @@ def rate_ratio_test(
     InvertedTest
         The rate ratio, the test of a ratio of 1 and the interval.
     """
+    return rate_ratio_tests(
+        design,
+        observed,
+        y,
+        probabilities,
+        [contrast],
+        ratios,
+        n_draws=n_draws,
+        rng=rng,
+        level=level,
+        nulls=[null],
+        interval=interval,
+        baselines=[baseline],
+    )[0]
+
+
+def rate_ratio_tests(
+    design: Design,
+    observed: np.ndarray,
+    y: np.ndarray,
+    probabilities: np.ndarray,
+    contrasts: Sequence[ContrastSpec],
+    ratios: np.ndarray,
+    *,
+    n_draws: int = 2000,
+    rng: RngLike = None,
+    level: float = 0.95,
+    nulls: Sequence[str | None] | None = None,
+    interval: bool = True,
+    baselines: Sequence[np.ndarray | None] | None = None,
+) -> list[InvertedTest]:
+    """:func:`rate_ratio_test` for several groups of units of the same condition at once.
+
+    The contrasts share their conditions ``k`` and ``l`` (and so their stream
+    of draws), and differ in their units. One pass of the exposure engine over
+    the draws serves all of them; each result is the very result
+    :func:`rate_ratio_test` gives for its contrast alone with the same ``rng``
+    (Rosenbaum 2002, ch. 5, multiplicative effects).
+
+    Parameters
+    ----------
+    design : geoexp.design.Design
+        The trial's design; its sampler gives the randomization distribution.
+    observed : numpy.ndarray
+        Observed exposure condition code of every unit.
+    y : numpy.ndarray
+        Outcome per unit: post-period counts (non-negative).
+    probabilities : numpy.ndarray
+        (n_units, n_conditions) exposure probabilities of the design.
+    contrasts : sequence of ContrastSpec
+        The contrasts, all with the same ``k`` and ``l``.
+    ratios : numpy.ndarray
+        Rate ratio of every condition against the reference, one per
+        condition code, held fixed for the conditions other than ``k``.
+    n_draws : int
+        Draws of the design for the tests and the intervals.
+    rng : None, int, SeedSequence or Generator
+        Default: the design's rate-ratio stream of condition ``k``.
+    level : float
+        Confidence level of the intervals.
+    nulls : sequence of str or None, optional
+        Per contrast, words for the null hypothesis.
+    interval : bool
+        Compute the intervals as well as the tests.
+    baselines : sequence of numpy.ndarray or None, optional
+        Per contrast, the pre-period count of each unit (or None).
+
+    Returns
+    -------
+    list of InvertedTest
+        One per contrast, in their order.
+
+    Raises
+    ------
+    ValueError
+        ``y`` has negative values.
+    geoexp.errors.InputError
+        No contrast, or contrasts of different conditions.
+    """
+    k, l = _same_condition(contrasts)
     y = np.asarray(y, dtype=float)
     if (y < 0).any():
         raise ValueError("rate ratios need counts (non-negative outcomes)")
-    k, l = contrast.k, contrast.l
-    n_cond = probabilities.shape[1]
-    cols = _ratio_columns(y, probabilities, contrast, observed, baseline)
+    n = len(contrasts)
+    nulls = [None] * n if nulls is None else list(nulls)
+    baselines = [None] * n if baselines is None else list(baselines)
+    blocks = [
+        _ratio_columns(y, probabilities, c, observed, b)
+        for c, b in zip(contrasts, baselines, strict=True)
+    ]
     rng = design.stream(Stream.RATE_RATIO, k) if rng is None else rng
-    sums = draw_sums(design.sampler, design.graph, design.mapping, cols, n_draws, rng)
+    sums = _shared_sums(design, blocks, n_draws, rng)
+    ratios = np.asarray(ratios, dtype=float).copy()
+    return [
+        _ratio(design, observed, cols, s, k, l, ratios, n_draws, level, null, interval)
+        for cols, s, null in zip(blocks, sums, nulls, strict=True)
+    ]
+
+
+def _ratio(
+    design: Design,
+    observed: np.ndarray,
+    cols: np.ndarray,
+    sums: np.ndarray,
+    k: int,
+    l: int,
+    ratios: np.ndarray,
+    n_draws: int,
+    level: float,
+    null: str | None,
+    interval: bool,
+) -> InvertedTest:
+    """One contrast's rate-ratio test and interval from its columns and their per-draw sums."""
+    n_cond = design.mapping.n_conditions
     obs_k = cols[observed == k].sum(axis=0)
     obs_l = cols[observed == l].sum(axis=0)
     with np.errstate(invalid="ignore", divide="ignore"):
         ratio = float((obs_k[2 + k] / obs_k[0]) / (obs_l[2 + n_cond + l] / obs_l[1]))
-    ratios = np.asarray(ratios, dtype=float).copy()
     sk, sl = sums[:, k, :], sums[:, l, :]
 
     def draws_at(log_grid: np.ndarray) -> np.ndarray:
