@@ -393,8 +393,8 @@ def _treated_count_line(cv: float, n_clusters: int | None) -> str:
         "draws), so the estimator is a ratio with a random denominator; its bias can reach "
         f"{cv:.2f} times its standard error (Hartley & Ross 1954), and in simulations of such "
         "a design on an invented city it exceeded a tenth of the planted effect. The "
-        "Horvitz-Thompson estimate, printed "
-        "beside it, is unbiased but noisier. Would help: clusters of equal size, more "
+        "Horvitz-Thompson estimate (the analysis's estimator option, and in its results "
+        "layer) is unbiased but noisier. Would help: clusters of equal size, more "
         "clusters, or a blocked design (a fixed share treated in every block) for the "
         "direct effect."
     )
