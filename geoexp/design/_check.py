@@ -453,12 +453,13 @@ def _treated_cv(sizes: np.ndarray | None) -> float:
 
 def _n_clusters(design: Design) -> int | None:
     """Number of clusters of a randomized-saturation design (None for other designs)."""
-    sampler = design.sampler
+    sampler: object = design.sampler
     while not hasattr(sampler, "cluster_codes") and hasattr(sampler, "base"):
         sampler = sampler.base
-    if not hasattr(sampler, "cluster_codes"):
+    codes = getattr(sampler, "cluster_codes", None)
+    if codes is None:
         return None
-    return int(np.unique(np.asarray(sampler.clusters)).size)
+    return int(np.unique(np.asarray(codes)).size)
 
 
 def _verdict(design, probs, expected, positivity, balance) -> list[str]:
