@@ -52,9 +52,10 @@ def test_caveat_quotes_the_summary_numbers_and_reads_them_against_the_target():
     cells = [v for k, v in summary["coverage"].items() if k.startswith("spillover, ")]
     low = min(c["lowest"] for c in cells)
     high = max(c["highest"] for c in cells)
-    shown = re.search(r"held the planted value in (\d+)% .* to (\d+)% of trials", text)
+    shown = re.search(r"held the planted value in ([\d.]+)% .* to ([\d.]+)% of trials", text)
     assert shown is not None, text
-    assert (int(shown.group(1)), int(shown.group(2))) == (round(100 * low), round(100 * high))
+    assert float(shown.group(1)) == round(100 * low, 1)
+    assert float(shown.group(2)) == round(100 * high, 1)
     assert summary["geoexp_commit"] in text and summary["measured"] in text
     assert ("too narrow" in text) == (low < TARGET_COVERAGE)
 
@@ -73,8 +74,8 @@ def test_caveat_follows_the_numbers_it_is_given():
         },
     }
     low = interval_caveat("spillover", fake)
-    assert "90% (± 2, one Monte Carlo standard error) to 97% of trials" in low
+    assert "90.0% (± 2.1, one Monte Carlo standard error) to 97.0% of trials" in low
     assert "too narrow" in low and "abc1234" in low and "2000-01-01" in low
     fine = interval_caveat("direct", fake)
-    assert "95% (± 2" in fine and "too narrow" not in fine
+    assert "95.0% (± 1.5" in fine and "too narrow" not in fine
     assert interval_caveat("spillover", {}) == ""

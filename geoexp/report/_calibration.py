@@ -70,9 +70,9 @@ def interval_caveat(kind: RowKind, summary: dict | None = None) -> str:
         f"in {summary['trials_with_intervals']} simulated trials per design on an invented city "
         f"({', '.join(summary['designs'])} designs; geoexp {summary['geoexp_commit']}, "
         f"measured {summary['measured']}), {level}% intervals of {rows} (additive and rate "
-        f"ratio) held the planted value in {100 * low['lowest']:.0f}% "
-        f"(± {100 * low['lowest_mc_se']:.0f}, one Monte Carlo standard error) to "
-        f"{100 * high:.0f}% of trials"
+        f"ratio) held the planted value in {100 * low['lowest']:.1f}% "
+        f"(± {100 * low['lowest_mc_se']:.1f}, one Monte Carlo standard error) to "
+        f"{100 * high:.1f}% of trials"
     )
     if low["lowest"] < TARGET_COVERAGE:
         text += ": read them as somewhat too narrow"
