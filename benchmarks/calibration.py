@@ -651,9 +651,9 @@ def main() -> None:
         stems = [Path(path).stem.split("_") for path in args.summarise]
         summary = coverage_summary(
             pd.concat(tables, ignore_index=True),
-            "/".join(sorted({s[2] for s in stems})),
+            ", ".join(sorted({s[2] for s in stems})),
             [Path(path).name for path in args.summarise],
-            measured="/".join(sorted({s[1] for s in stems})),
+            measured=max(s[1] for s in stems),
         )
         target = args.coverage_file or "coverage.json"
         Path(target).write_text(json.dumps(summary, indent=2) + "\n", encoding="utf-8")

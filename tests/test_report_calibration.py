@@ -56,7 +56,11 @@ def test_caveat_quotes_the_summary_numbers_and_reads_them_against_the_target():
     assert shown is not None, text
     assert float(shown.group(1)) == round(100 * low, 1)
     assert float(shown.group(2)) == round(100 * high, 1)
-    assert summary["geoexp_commit"] in text and summary["measured"] in text
+    assert summary["geoexp_commit"] in text
+    year, month, day = (int(x) for x in summary["measured"].split("-"))
+    assert f"measured {day} " in text and f" {year})" in text
+    # printed in a table cell: no hyphen or slash for a line to break a word at
+    assert "/" not in text and not re.search(r"\w-\w", text), text
     assert ("too narrow" in text) == (low < TARGET_COVERAGE)
 
 
@@ -75,7 +79,7 @@ def test_caveat_follows_the_numbers_it_is_given():
     }
     low = interval_caveat("spillover", fake)
     assert "90.0% (± 2.1, one Monte Carlo standard error) to 97.0% of trials" in low
-    assert "too narrow" in low and "abc1234" in low and "2000-01-01" in low
+    assert "too narrow" in low and "abc1234" in low and "1 January 2000" in low
     fine = interval_caveat("direct", fake)
     assert "95.0% (± 1.5" in fine and "too narrow" not in fine
     assert interval_caveat("spillover", {}) == ""

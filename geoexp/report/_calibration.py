@@ -8,6 +8,7 @@ quotes no coverage figure that is not in that file.
 
 from __future__ import annotations
 
+import datetime as dt
 import json
 from functools import lru_cache
 from importlib import resources
@@ -40,6 +41,12 @@ def calibration_summary() -> dict:
     return json.loads(text)
 
 
+def _date(iso: str) -> str:
+    """``2026-12-03`` as ``3 December 2026`` (no hyphen for a printed line to break at)."""
+    day = dt.date.fromisoformat(iso)
+    return f"{day.day} {day:%B %Y}"
+
+
 def interval_caveat(kind: RowKind, summary: dict | None = None) -> str:
     """One sentence on how often the printed intervals of a row kind covered in simulations.
 
@@ -69,7 +76,7 @@ def interval_caveat(kind: RowKind, summary: dict | None = None) -> str:
     text = (
         f"in {summary['trials_with_intervals']} simulated trials per design on an invented city "
         f"({', '.join(summary['designs'])} designs; geoexp {summary['geoexp_commit']}, "
-        f"measured {summary['measured']}), {level}% intervals of {rows} (additive and rate "
+        f"measured {_date(summary['measured'])}), {level}% intervals of {rows} (additive and rate "
         f"ratio) held the planted value in {100 * low['lowest']:.1f}% "
         f"(± {100 * low['lowest_mc_se']:.1f}, one Monte Carlo standard error) to "
         f"{100 * high:.1f}% of trials"
