@@ -65,6 +65,7 @@ for _var in ("NUMBA_NUM_THREADS", "OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MK
 import argparse  # noqa: E402
 import copy  # noqa: E402
 import datetime as dt  # noqa: E402
+import json  # noqa: E402
 import subprocess  # noqa: E402
 import tempfile  # noqa: E402
 import time  # noqa: E402
@@ -631,7 +632,33 @@ def main() -> None:
     parser.add_argument("--seed", type=int, default=SEED, help="root seed")
     parser.add_argument("--no-intervals", action="store_true", help="skip test inversion")
     parser.add_argument("--out", default=str(Path(__file__).parent / "results"))
+    parser.add_argument(
+        "--coverage-file",
+        default=None,
+        help="also write the printed intervals' coverage here (the report reads "
+        "geoexp/report/calibration.json)",
+    )
+    parser.add_argument(
+        "--summarise",
+        nargs="+",
+        metavar="CSV",
+        help="write --coverage-file from these tables (runs with different seeds pool) and stop",
+    )
     args = parser.parse_args()
+    if args.summarise:
+        # the scenario "null" is a name here, not a missing value
+        tables = [read_table(path) for path in args.summarise]
+        stems = [Path(path).stem.split("_") for path in args.summarise]
+        summary = coverage_summary(
+            pd.concat(tables, ignore_index=True),
+            ", ".join(sorted({s[2] for s in stems})),
+            [Path(path).name for path in args.summarise],
+            measured=max(s[1] for s in stems),
+        )
+        target = args.coverage_file or "coverage.json"
+        Path(target).write_text(json.dumps(summary, indent=2) + "\n", encoding="utf-8")
+        print(json.dumps(summary, indent=2))
+        return
     if args.quick:
         args.trials, args.draws = min(args.trials, 8), min(args.draws, 100)
     full = args.trials if args.full_trials is None else max(0, min(args.full_trials, args.trials))
@@ -697,6 +724,69 @@ def main() -> None:
     (out / f"{stem}.md").write_text(text, encoding="utf-8")
     print(text)
     print(f"Wrote {out / stem}.csv and .md ({seconds:.0f} s)")
+    if args.coverage_file:
+        summary = coverage_summary(table, commit, [f"{stem}.csv"])
+        Path(args.coverage_file).write_text(json.dumps(summary, indent=2) + "\n", encoding="utf-8")
+        print(f"Wrote {args.coverage_file}")
+
+
+def read_table(path) -> pd.DataFrame:
+    """A table this script wrote (its scenario ``null`` read as a name, not as missing)."""
+    return pd.read_csv(path, keep_default_na=False, na_values=[""])
+
+
+def coverage_summary(
+    table: pd.DataFrame, commit: str, sources: list[str], measured: str | None = None
+) -> dict:
+    """The printed intervals' coverage, lowest and highest over designs and scenarios.
+
+    ``table`` holds one or more runs (rows of equal design, scenario and row are
+    pooled, each weighted by its trials with intervals; runs with other seeds add
+    independent trials). Per kind of row (``direct``: treated; ``spillover``: the
+    bands) and kind of interval (``additive``: the interval printed beside the
+    verdict; ``rate ratio``): the lowest and highest coverage, the Monte Carlo
+    standard error of the lowest, where it was, the designs, the trials, the geoexp
+    commit and the date measured. The report quotes these numbers and nothing else
+    about coverage.
+    """
+    keys = ["design", "scenario", "row"]
+    n = table["n_full_trials"].astype(float)
+    pooled = []
+    for col in ("cover_ri", "cover_rr"):
+        ok = np.isfinite(table[col])
+        part = table[ok].assign(_w=n[ok], _x=table.loc[ok, col] * n[ok])
+        g = part.groupby(keys, sort=False)[["_w", "_x"]].sum()
+        pooled.append((g["_x"] / g["_w"]).rename(col))
+        pooled.append(g["_w"].rename(f"n_{col}"))
+    cells = pd.concat(pooled, axis=1).reset_index()
+    trials = int(cells["n_cover_ri"].min())
+    out: dict = {
+        "measured": measured or dt.date.today().isoformat(),
+        "geoexp_commit": commit,
+        "tables": sources,
+        "designs": sorted(set(cells["design"])),
+        "trials_with_intervals": trials,
+        "draws_per_test": int(table["n_draws"].min()),
+        "level": LEVEL,
+        "coverage": {},
+    }
+    band = cells["row"].str.startswith("spillover")
+    for kind, rows in (("direct", cells[~band]), ("spillover", cells[band])):
+        for name, col in (("additive", "cover_ri"), ("rate ratio", "cover_rr")):
+            got = rows[np.isfinite(rows[col])]
+            if got.empty:
+                continue
+            lo, hi = got[col].idxmin(), got[col].idxmax()
+            p, m = float(got.at[lo, col]), float(got.at[lo, f"n_{col}"])
+            out["coverage"][f"{kind}, {name}"] = {
+                "lowest": round(p, 4),
+                "lowest_mc_se": round(float(np.sqrt(p * (1 - p) / m)), 4),
+                "lowest_at": f"{got.at[lo, 'design']}, {got.at[lo, 'scenario']}, "
+                f"{got.at[lo, 'row']}",
+                "highest": round(float(got.at[hi, col]), 4),
+                "cells": int(len(got)),
+            }
+    return out
 
 
 # ---------------------------------------------------------------- the report

@@ -342,6 +342,47 @@ def test_check_says_when_extreme_weights_make_a_contrast_unreliable(region_path,
     assert "Not reliably estimable" not in direct
 
 
+def test_check_refuses_the_direct_hajek_estimate_when_the_number_treated_is_random(
+    region_path, units, graph
+):
+    import itertools
+    import re
+
+    design = make(
+        region_path,
+        units,
+        graph,
+        method="saturation",
+        treated=None,
+        cluster_column="district",
+        saturations=[0.0, 0.3, 0.6],
+        cluster_counts=[2, 3, 3],
+    )
+    check = check_design(design, n_draws=400)
+    direct = next(line for line in check.verdict if line.startswith("Direct effect"))
+    assert "Not reliably estimable by the default (Hajek) estimator" in direct
+    assert "Hartley & Ross 1954" in direct and "clusters of equal size" in direct
+    # the coefficient of variation of the number treated, exactly: every one of the
+    # 8! / (2! 3! 3!) = 560 equally likely ways to give 8 districts the levels 2/3/3,
+    # each district treating floor(s n + 1/2) of its n eligible units
+    districts = units.frame["district"].to_numpy()
+    sizes = [int((design.eligible & (districts == c)).sum()) for c in design.sampler.cluster_labels]
+    totals = []
+    for zeros in itertools.combinations(range(8), 2):
+        rest = [i for i in range(8) if i not in zeros]
+        for low in itertools.combinations(rest, 3):
+            totals.append(sum(np.floor((0.3 if i in low else 0.6) * sizes[i] + 0.5) for i in rest))
+    assert len(totals) == 560  # multinomial coefficient 8!/(2! 3! 3!)
+    exact = np.std(totals) / np.mean(totals)
+    shown = float(re.search(r"coefficient of variation ([0-9.]+)", direct).group(1))
+    # 400 draws: the CV's Monte Carlo error is about cv / sqrt(2 x 400) < 0.01
+    assert abs(shown - exact) < 0.03
+    # a fixed number treated: no such refusal
+    fixed = check_design(make(region_path, units, graph), n_draws=300)
+    direct = next(line for line in fixed.verdict if line.startswith("Direct effect"))
+    assert "default (Hajek) estimator" not in direct
+
+
 def test_balance_leaves_out_identifier_columns(region_path, units, graph):
     import geoexp.design._check as check_module
 

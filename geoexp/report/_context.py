@@ -17,6 +17,7 @@ from matplotlib.figure import Figure
 from geoexp.cautions import CAUTION
 from geoexp.graph import NetworkInfo
 from geoexp.maps import PRINT_RC
+from geoexp.report._calibration import interval_caveat
 from geoexp.report._figures import distance_decay_plot, png_bytes
 from geoexp.report._plan import FLOW_TITLE, PLAN_TITLE, plan_facts
 
@@ -64,11 +65,6 @@ METHODS = (
     "spillover on focal units that are never treated (Athey, Eckles & Imbens 2018); the "
     "pre-period-adjusted estimate of Lin (2013) as a sensitivity check; the weighted "
     "displacement quotient of Bowers & Johnson (2003)."
-)
-# Measured by benchmarks/calibration.py on the sample city (tables in benchmarks/results/).
-SPILLOVER_INTERVAL_CAVEAT = (
-    "in simulations on an invented city, 95% intervals of spillover rows (additive and rate "
-    "ratio) covered the true value in about 91% of trials: read them as slightly too narrow"
 )
 MORE_FINDINGS_TITLE = "Further rows and the whole trial"
 ROWS_TITLE = "Every contrast row and its units"
@@ -235,9 +231,9 @@ def _rows(analysis: Analysis) -> pd.DataFrame | None:
                 )
                 or "—",
                 "finding": r.verdict.finding,
-                "interval caveat": SPILLOVER_INTERVAL_CAVEAT
-                if r.exposure_code != "treated"
-                else "",
+                "interval caveat": interval_caveat(
+                    "direct" if r.exposure_code == "treated" else "spillover"
+                ),
             }
         )
     return pd.DataFrame(out).set_index("row")
