@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import dataclasses
 import shutil
 
 import numpy as np
@@ -9,10 +10,12 @@ import pandas as pd
 import pyogrio
 import pytest
 
+from geoexp.analysis import _run as run_module
 from geoexp.analysis import analyse
 from geoexp.cautions import CAUTION
 from geoexp.design import Design
-from geoexp.errors import DesignError
+from geoexp.errors import DesignError, InputError
+from geoexp.report import write_report
 from geoexp.trialfile import TrialFile, design_from_trial
 
 
@@ -313,3 +316,32 @@ def test_observed_bundle_derives_the_outcome():
     assert only_post.words == "incidents in the post-period"
     with pytest.raises(ValueError, match="outcome must be 'change' or 'post'"):
         Observed(pre, post, conditions, "ratio")
+
+
+def test_no_eligible_unit_above_the_floor_stops_with_the_reason(demo_outputs):
+    # the demo treats 40 of 150 eligible segments kept apart, so no P(treated) reaches 0.45:
+    # with that floor the direct effect has no units and the analysis must say so and what to
+    # change, not fail on an empty mean
+    with pytest.raises(InputError, match=r"floor 0\.45.*positivity_floor"):
+        analyse(demo_outputs["trial"], n_draws=50, intervals=False, floor=0.45)
+
+
+def test_a_band_with_no_unit_above_the_floor_gets_no_row_and_a_note(
+    demo_outputs, monkeypatch, tmp_path
+):
+    real = run_module.contrast_units
+
+    def band_2_below_the_floor(probs, eligible, k, *args, **kwargs):
+        est = real(probs, eligible, k, *args, **kwargs)
+        if k == 2:
+            return dataclasses.replace(est, units=np.zeros_like(est.units))
+        return est
+
+    monkeypatch.setattr(run_module, "contrast_units", band_2_below_the_floor)
+    result = analyse(demo_outputs["trial"], n_draws=50, intervals=False)
+    assert [row.exposure_code for row in result.rows] == ["treated", "spillover_1"]
+    assert any("spillover_2" in n or "no row" in n for n in result.notes)
+    assert len(result.to_frame()) == 2
+    out = tmp_path / "report.html"
+    write_report(result, out, trial=TrialFile.open(demo_outputs["trial"]))
+    assert "no row" in out.read_text(encoding="utf-8")

@@ -80,6 +80,8 @@ def with_change(path: tuple[str, ...], value) -> dict:
 # ---- at least 30 bad specs, each with our class and the words of its message ----
 BAD = [
     (("assignment", "treated"), 12.7, "[assignment] treated", "not a fraction"),
+    (("exposure", "positivity_floor"), 0.5, "[exposure] positivity_floor", "probability"),
+    (("exposure", "positivity_floor"), -0.01, "[exposure] positivity_floor", "probability"),
     (("assignment", "treated"), "forty", "[assignment] treated", "text 'forty'"),
     (("assignment", "treated"), True, "[assignment] treated", "true/false True"),
     (("assignment", "treated"), 0, "[assignment] treated", "from 1"),
@@ -160,6 +162,17 @@ def test_integral_floats_read_as_integers():
     assert spec.draws == 1000 and isinstance(spec.draws, int)
     # the hash sees the integer, so 12.0 and 12 are the same design
     assert spec.hash == DesignSpec.from_dict({**data, "draws": 1000}).hash
+
+
+def test_positivity_floor_is_declared_in_the_spec_and_left_out_when_unset():
+    spec = DesignSpec.from_dict(with_change(("exposure", "positivity_floor"), 0.02))
+    assert spec.exposure.positivity_floor == 0.02
+    assert spec.to_dict()["exposure"]["positivity_floor"] == 0.02
+    unset = DesignSpec.from_dict(base_spec())
+    assert unset.exposure.positivity_floor is None
+    # an unset floor leaves the spec's identity as it was before the key existed
+    assert "positivity_floor" not in unset.to_dict()["exposure"]
+    assert unset.hash != spec.hash
 
 
 def test_single_band_and_single_exclusion_zone_are_lists():

@@ -17,7 +17,6 @@ from geoexp.analysis._verdict import approximation_supported, row_verdict
 from geoexp.design import Assignment, CompleteSampler, Design, SaturationSampler
 from geoexp.errors import InputError
 from geoexp.estimate import (
-    DEFAULT_FLOOR,
     DENSE_LIMIT,
     ContrastEstimate,
     DisplacementIndex,
@@ -135,8 +134,8 @@ def analyse(
     intervals
         Whether to invert the tests into intervals (the tests are run either way).
     floor
-        Positivity floor (default: the spec's ``positivity_floor`` if it has one,
-        else :data:`geoexp.estimate.DEFAULT_FLOOR`).
+        Positivity floor (default: the spec's ``[exposure] positivity_floor`` if it
+        has one, else :data:`geoexp.estimate.DEFAULT_FLOOR`).
 
     Returns
     -------
@@ -317,11 +316,14 @@ def analyse(
         )
         if est.n_never_reference or est.n_below_floor:
             notes.append(f"{est.contrast}, {est.group} units: left out {est.left_out}")
-    main = rows[:pc]
+    # the main rows: the direct effect and one row per band that has units (plan order)
+    main = rows[: 1 + sum(1 for k, est, _ in plan if k > 0 and est.group != "eligible")]
+    band_rows = {mapping.codes.index(r.exposure_code): r for r in main[1:]}
     displacement = []
     clear = main[0].verdict.finding == "reduction"
     sums = {c: (pre[observed == c].sum(), post[observed == c].sum()) for c in range(pc + 1)}
     for k in range(1, pc):
+        band_row = band_rows.get(k)
         try:
             displacement.append(
                 weighted_displacement_quotient(
@@ -330,8 +332,8 @@ def analyse(
                     *sums[pc],
                     buffer=mapping.labels[k],
                     direct_effect_clear=clear,
-                    buffer_effect_clear=main[k].verdict.finding
-                    in ("displacement", "diffusion of benefits"),
+                    buffer_effect_clear=band_row is not None
+                    and band_row.verdict.finding in ("displacement", "diffusion of benefits"),
                 )
             )
         except InputError as err:
@@ -433,7 +435,8 @@ def _wdq_intervals(
     with np.errstate(invalid="ignore", divide="ignore"):
         sm = after[:, 0] / after[:, pc] - before[:, 0] / before[:, pc]
         out = []
-        for k, d in enumerate(indices, start=1):
+        for d in indices:
+            k = mapping.labels.index(d.buffer)
             bm = after[:, k] / after[:, pc] - before[:, k] / before[:, pc]
             q = bm / sm
             q = q[np.isfinite(q)]
@@ -444,9 +447,7 @@ def _wdq_intervals(
 
 def _floor(design: Design, floor: float | None) -> float:
     """The positivity floor: the argument, else the spec's, else the default."""
-    if floor is None:
-        floor = getattr(design.spec, "positivity_floor", None)
-    return DEFAULT_FLOOR if floor is None else float(floor)
+    return design.positivity_floor if floor is None else float(floor)
 
 
 def _plan_rows(
@@ -455,15 +456,12 @@ def _plan_rows(
     """The rows: (condition, units, focal units of the exact test or None), main rows first."""
     mapping = design.mapping
     pc, labels = mapping.pure_control, mapping.labels
-    plan: list[tuple[int, Estimand, np.ndarray | None]] = [
-        (
-            0,
-            contrast_units(
-                probs, design.eligible, 0, pc, group="eligible", labels=labels, floor=floor
-            ),
-            None,
-        )
-    ]
+    direct = contrast_units(
+        probs, design.eligible, 0, pc, group="eligible", labels=labels, floor=floor
+    )
+    if direct.n_units == 0:
+        raise InputError(_no_direct_units(design, probs, floor, direct))
+    plan: list[tuple[int, Estimand, np.ndarray | None]] = [(0, direct, None)]
     for k in range(1, pc):
         est = contrast_units(
             probs, design.eligible, k, pc, group="never-eligible", labels=labels, floor=floor
@@ -490,6 +488,13 @@ def _plan_rows(
                 "seed, before looking at outcomes) and redraws the rest; the band's row is about "
                 "those units"
             )
+        if est.n_units == 0:
+            notes.append(
+                f"{labels[k]}: no row: no unit has both P({labels[k]}) and P({labels[pc]}) at "
+                f"least the positivity floor {floor:g} ({est.n_candidates} can be in the band, "
+                f"{est.n_below_floor} of them below the floor)"
+            )
+            continue
         if focal.size < MIN_FOCAL:
             notes.append(
                 f"{labels[k]}: only {focal.size} units that are never treated can be in this "
@@ -635,4 +640,23 @@ def save_results(
         spec_hash=analysis.spec_hash,
         wait_s=wait_s,
         notify=notify,
+    )
+
+
+def _no_direct_units(design: Design, probs: np.ndarray, floor: float, direct: Estimand) -> str:
+    """Why the direct effect has no units, and what the user can change."""
+    labels, pc = design.mapping.labels, design.mapping.pure_control
+    eligible = design.eligible
+    p_treated = probs[eligible, 0]
+    p_control = probs[eligible, pc]
+    top = float(p_treated.max()) if p_treated.size else 0.0
+    return (
+        f"no eligible unit has both P({labels[0]}) and P({labels[pc]}) at least the positivity "
+        f"floor {floor:g}, so the direct effect cannot be estimated ({int(eligible.sum())} "
+        f"eligible units; the largest P({labels[0]}) is {top:.3g}, the largest "
+        f"P({labels[pc]}) {float(p_control.max()) if p_control.size else 0.0:.3g}). A design "
+        "that treats a small share of many eligible units gives every unit a small chance of "
+        "treatment: make fewer units eligible (e.g. [eligible] top_k), treat more of them, or "
+        "declare a lower floor with [exposure] positivity_floor (weights up to one over the "
+        "floor; the design check says whether the rows stay reliably estimable)"
     )

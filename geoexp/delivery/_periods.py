@@ -196,9 +196,7 @@ def period_effects(
         raise InputError(f"the baseline needs one finite value per unit ({n})")
     mapping = design.mapping
     pc, labels = mapping.pure_control, mapping.labels
-    if floor is None:
-        floor = getattr(design.spec, "positivity_floor", None) if hasattr(design, "spec") else None
-    floor = DEFAULT_FLOOR if floor is None else float(floor)
+    floor = getattr(design, "positivity_floor", DEFAULT_FLOOR) if floor is None else float(floor)
     rows = [
         (
             0,

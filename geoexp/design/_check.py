@@ -14,7 +14,6 @@ from geoexp._tables import markdown_table, plural, text_table
 from geoexp.design._network_check import network_check
 from geoexp.errors import DesignError
 from geoexp.exposure import (
-    DEFAULT_FLOOR,
     Estimand,
     ExposureProbabilities,
     PositivityReport,
@@ -468,8 +467,7 @@ def _verdict(design, probs, expected, positivity, balance) -> list[str]:
     p = probs.probabilities
     lines = []
     elig = design.eligible
-    floor = getattr(design.spec, "positivity_floor", None)
-    floor = DEFAULT_FLOOR if floor is None else float(floor)
+    floor = design.positivity_floor
     exp_t = expected["expected_units"].iloc[0]
     exp_c = expected["expected_eligible"].iloc[pc]
     direct = contrast_units(p, elig, 0, pc, labels=mapping.labels, group="eligible", floor=floor)

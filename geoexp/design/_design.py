@@ -18,6 +18,7 @@ from geoexp.design._protocol import Sampler, fixed_treated
 from geoexp.design._spec import DesignSpec
 from geoexp.errors import DesignError, InfeasibleDesignError
 from geoexp.exposure import (
+    DEFAULT_FLOOR,
     ExposureMapping,
     ExposureProbabilities,
     assign_conditions,
@@ -131,6 +132,12 @@ class Design:
     def stream(self, purpose: Stream, index: int = 0) -> np.random.SeedSequence:
         """The spec seed's stream for ``purpose`` (and ``index``: a band, a contrast); see Stream."""
         return purpose_sequence(np.random.SeedSequence(self.spec.seed), purpose, index)
+
+    @property
+    def positivity_floor(self) -> float:
+        """The analysis's positivity floor: ``[exposure] positivity_floor``, else 0.05."""
+        floor = self.spec.exposure.positivity_floor
+        return DEFAULT_FLOOR if floor is None else float(floor)
 
     @property
     def fingerprint(self) -> DesignFingerprint:

@@ -292,6 +292,7 @@ SCHEMA: dict[str, dict[str, Check]] = {
         "split_at_crossings": flag,
         "bridge_column": text,
         "accept_sparse_network": flag,
+        "positivity_floor": real(0, 0.5, low_open=False, high_open=True, what="a probability"),
     },
     "field": {
         "district_column": text,

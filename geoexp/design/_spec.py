@@ -105,6 +105,8 @@ class ExposureSpec:
     bridge_column: str | None = None
     # network metric: draw even when the along-street graph is implausibly sparse
     accept_sparse_network: bool = False
+    # the positivity floor of the analysis's rows (None: the project's default, 0.05)
+    positivity_floor: float | None = None
 
 
 @dataclass(frozen=True)

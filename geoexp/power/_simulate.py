@@ -32,7 +32,7 @@ import pandas as pd
 from geoexp._engine import matrix_threads, thread_count
 from geoexp._rng import RngLike, Stream, as_seed_sequence, child_sequence
 from geoexp.errors import InputError
-from geoexp.estimate import DEFAULT_FLOOR, contrast_units
+from geoexp.estimate import contrast_units
 from geoexp.exposure import condition_bits, unpack_bits
 from geoexp.inference import (
     ALTERNATIVES,
@@ -560,9 +560,7 @@ def simulate_power(
 
 def _floor(design: Design, floor: float | None) -> float:
     """The positivity floor: the argument, else the spec's, else the default (as the analysis)."""
-    if floor is None:
-        floor = getattr(design.spec, "positivity_floor", None)
-    return DEFAULT_FLOOR if floor is None else float(floor)
+    return design.positivity_floor if floor is None else float(floor)
 
 
 def _check_arguments(n_sims, n_draws, alpha, outcome, alternative) -> None:

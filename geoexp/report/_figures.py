@@ -43,6 +43,10 @@ def distance_decay_plot(analysis: Analysis, ax=None):
         for e, v in zip(analysis.effects, analysis.verdicts, strict=True)
     ]
     spill = analysis.effects[1:]
+    # each band row at its band's middle (a band with no units above the floor has no row)
+    bands = [r.estimand.exposure - 1 for r in analysis.rows[1 : len(analysis.effects)]]
+    if len(bands) == len(spill):
+        mids = [mids[b] for b in bands]
     est = np.array([e.estimate for e in spill])
     lo = np.array([b[0] for b in bounds[1:]])
     hi = np.array([b[1] for b in bounds[1:]])
