@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from collections.abc import Callable
 from pathlib import Path
-from typing import Any
+from typing import Any, cast
 
 import geopandas as gpd
 import numpy as np
@@ -270,6 +270,7 @@ def demo_delivery(
 
     matplotlib.use("Agg")
     import matplotlib.pyplot as plt
+    from matplotlib.figure import Figure
 
     from geoexp.delivery import (
         RECORD_LAYER,
@@ -335,8 +336,9 @@ def demo_delivery(
     ax = delivery_map_static(
         layer, summary, district_column=column if column in layer.columns else None
     )
-    ax.figure.savefig(map_path, dpi=120, bbox_inches="tight")
-    plt.close(ax.figure)
+    figure = cast(Figure, ax.figure)  # the map's own figure, never a subfigure
+    figure.savefig(map_path, dpi=120, bbox_inches="tight")
+    plt.close(figure)
     append_record(trial_path, RECORD_LAYER, summary.record())
     echo(
         f"Delivery monitor, week of {summary.week}: {week_path}, lists {lists_path}, "

@@ -120,7 +120,7 @@ def over_time_section(
             "p_value": "p (unadjusted)",
             "p_holm": "p (Holm)",
         }
-    ).set_index(["contrast", "period"])
+    ).set_index("period")  # the contrast is a column, its rows in time order
     return OverTimeSection(
         freq=freq,
         window=(str(window[0]), str(window[1])),
