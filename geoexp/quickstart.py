@@ -313,11 +313,10 @@ def demo_delivery(
     summary = delivery_week(
         assignment, weekly, DEMO_MONITOR_WEEK, planned_minutes=DEMO_PLANNED_MINUTES
     )
-    echo(str(summary))
+    words = _monitor_words(summary)
+    echo(words)
     week_path = out / "delivery_week.md"
-    week_path.write_text(
-        f"# Delivery monitor\n\n```\n{summary}\n```\n\n{CAUTION}\n", encoding="utf-8"
-    )
+    week_path.write_text(f"# Delivery monitor\n\n{words}\n\n{CAUTION}\n", encoding="utf-8")
     under = summary.under_served.assign(condition="treated", issue="under-served")
     visited = summary.visited_controls.assign(issue="control visited", shortfall_minutes=0.0)
     lists = pd.concat([under, visited])
@@ -342,7 +341,7 @@ def demo_delivery(
     append_record(trial_path, RECORD_LAYER, summary.record())
     echo(
         f"Delivery monitor, week of {summary.week}: {week_path}, lists {lists_path}, "
-        f"chart {chart_path}, map {map_path}; recorded in {trial_path} (layer {RECORD_LAYER})"
+        f"chart {chart_path}, map {map_path}; recorded in {trial_path} (layer '{RECORD_LAYER}')"
     )
     received = treatment_received(tf, stays, n_draws=n_draws)
     echo(str(received))
@@ -359,3 +358,27 @@ def demo_delivery(
         "received": received_md,
         "received_csv": received_csv,
     }
+
+
+def _monitor_words(summary) -> str:
+    """Say the monitor's week in plain words, one line per exposure condition."""
+    lines = [
+        f"Delivery in the week of {summary.week} (planned dose {summary.planned_minutes:g} "
+        "minutes per treated place per week):"
+    ]
+    for condition, row in summary.by_condition.iterrows():
+        name = str(condition)
+        if name.startswith("spillover_"):
+            name = f"spillover band {name.removeprefix('spillover_')}"
+        lines.append(
+            f"- {name.replace('_', ' ')}: {int(row['places']):,} places, "
+            f"{row['at_dose_share']:.0%} at the planned dose, "
+            f"{row['any_presence_share']:.0%} with any presence, "
+            f"{row['mean_minutes']:,.1f} minutes present and {row['mean_visits']:.2f} visits "
+            "per place"
+        )
+    lines.append(
+        f"{len(summary.under_served):,} treated places under the planned dose; "
+        f"{len(summary.visited_controls):,} control places with presence (contamination)"
+    )
+    return "\n".join(lines)

@@ -25,7 +25,7 @@ def test_report_shows_the_trial_over_time(demo_outputs):
     section = md.split(f"## {OVER_TIME_TITLE}\n", 1)[1].split("\n## ", 1)[0]
     # the pre-trend sentence, the multiplicity note and the pooled effect named as primary
     primary = "(Estimates, above) is the trial's primary result"
-    for text in ("Pre-trial trend, treated minus pure_control", MULTIPLICITY_NOTE, primary):
+    for text in ("Pre-trial trend, treated minus pure control", MULTIPLICITY_NOTE, primary):
         assert text in section
         assert text.split(";")[0].replace("'", "&#39;") in html
     # one row per month of the 2026 trial window for the treated contrast

@@ -105,9 +105,13 @@ def over_time_section(
     freq = str(counts.attrs.get("freq", "week"))
     series = condition_series(counts, trial.assignment())
     try:
-        trend = str(pre_trend(series, window[0]))
+        trend = str(pre_trend(series, window[0])).replace("pure_control", "pure control")
     except InputError as err:
         trend = f"No pre-trend check: {err}."
+    # the legend in words: "spillover band 1", "pure control"
+    shown_series = series.rename(
+        columns=lambda c: str(c).replace("spillover_", "spillover band ").replace("_", " ")
+    )
     effects = effects_by_period(trial, counts, window, n_draws=n_draws, level=level)
     table = effects.to_frame()
     table["period"] = pd.to_datetime(table["period"]).dt.strftime("%Y-%m-%d")
@@ -124,7 +128,7 @@ def over_time_section(
     return OverTimeSection(
         freq=freq,
         window=(str(window[0]), str(window[1])),
-        series_png=_figure(lambda ax: plot_over_time(series, window, ax=ax), (7.0, 3.6)),
+        series_png=_figure(lambda ax: plot_over_time(shown_series, window, ax=ax), (7.0, 3.6)),
         effects_png=_figure(lambda ax: plot_period_effects(effects, ax=ax), (7.0, 3.6)),
         pre_trend=trend,
         effects=shown,
