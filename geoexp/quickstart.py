@@ -4,9 +4,10 @@ from __future__ import annotations
 
 from collections.abc import Callable
 from pathlib import Path
-from typing import Any
+from typing import Any, cast
 
 import geopandas as gpd
+import numpy as np
 import pandas as pd
 import shapely
 
@@ -65,8 +66,9 @@ def run_demo(out: str | Path, *, n_draws: int = 2000, echo: Callable[[str], None
     ``briefing_a4.pdf``, ``incidents.csv`` (the invented
     incidents, the trial year simulated with a planted effect),
     ``incidents_not_counted.csv``, ``report.html`` with ``report.md`` and the
-    A4 ``report.pdf`` (a one-page summary for command staff first).
-    Returns the paths.
+    A4 ``report.pdf`` (a one-page summary for command staff first; with the
+    section "Over time", incidents per unit by condition per month), and the
+    delivery outputs of :func:`demo_delivery`. Returns the paths.
     """
     out = Path(out)
     out.mkdir(parents=True, exist_ok=True)
@@ -196,6 +198,8 @@ def run_demo(out: str | Path, *, n_draws: int = 2000, echo: Callable[[str], None
         n_draws=n_draws,
         districts=region.districts,
         tiles=None,
+        incidents=observed,
+        period="month",
     )
     analysis, report, report_md, results_map = (
         run.analysis,
@@ -207,8 +211,10 @@ def run_demo(out: str | Path, *, n_draws: int = 2000, echo: Callable[[str], None
     echo(str(analysis))
     echo(f"Report: {report} (Markdown twin: {report_md})")
     echo(f"PDF report, summary for command staff first: {run.report_pdf}")
+    delivery = demo_delivery(trial_path, out, n_draws=n_draws, echo=echo)
     echo(CAUTION)
     return {
+        **delivery,
         "spec": spec_path,
         "trial": trial_path,
         "check": check_path,
@@ -224,3 +230,155 @@ def run_demo(out: str | Path, *, n_draws: int = 2000, echo: Callable[[str], None
         "report_pdf": run.report_pdf,
         "figures": figures,
     }
+
+
+# The demo's patrols: two weeks of pings at the start of the trial year, 10 devices every
+# 60 s, most stops sent to treated places, the rest wherever the patrol happens to be.
+DEMO_PINGS = 200_000
+DEMO_DEVICES = 10
+DEMO_PLANNED_MINUTES = 120.0  # planned presence per treated place per week, for the monitor
+DEMO_MONITOR_WEEK = "2026-01-05"
+
+
+def demo_delivery(
+    trial_path: str | Path,
+    out: str | Path,
+    *,
+    n_draws: int = 2000,
+    echo: Callable[[str], None] = print,
+) -> dict[str, Path]:
+    """Simulate patrol pings for the demo trial, run the weekly monitor and the complier effect.
+
+    Patrol devices are simulated (:func:`geoexp.sampleregion.simulate_pings`)
+    with imperfect delivery: most stops at treated places, the rest where a
+    random walk leads, so some treated places are under-served and some
+    control places are visited. Writes into ``out``: ``pings.parquet``; the
+    monitor for the week of 5 January 2026 (``delivery_week.md``,
+    ``delivery_lists.csv``, ``delivery_chart.png``, ``delivery_map.png``; the
+    week's rows appended to the trial file's ``delivery_weekly`` layer); and
+    the effect of treatment received, the dose being minutes present in the
+    post-period (Angrist, Imbens & Rubin 1996; interval by inverting the
+    design's randomization test, Imbens & Rosenbaum 2005) in
+    ``treatment_received.md`` and ``treatment_received.csv``.
+
+    Returns
+    -------
+    dict of str to pathlib.Path
+        The files written, by name.
+    """
+    import matplotlib
+
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+    from matplotlib.figure import Figure
+
+    from geoexp.delivery import (
+        RECORD_LAYER,
+        delivery_week,
+        plot_weekly_delivery,
+        stays_from_pings,
+        treatment_received,
+        weekly_delivery,
+    )
+    from geoexp.maps import delivery_map_static
+    from geoexp.sampleregion import simulate_pings
+    from geoexp.trialfile import TrialFile, append_record
+    from geoexp.units import UnitSet
+
+    out = Path(out)
+    tf = TrialFile.open(trial_path)
+    layer = tf.units()
+    assignment = tf.assignment()
+    treated = assignment.index[assignment["condition"] == "treated"]
+    favoured = np.flatnonzero(layer.index.isin(treated))
+    pings = simulate_pings(
+        layer.geometry.to_numpy(),
+        DEMO_PINGS,
+        n_devices=DEMO_DEVICES,
+        interval_s=60.0,
+        favoured=favoured,
+        favour_share=0.08,
+        start="2026-01-05T08:00:00",
+        rng=20261203,
+    )
+    pings_path = out / "pings.parquet"
+    pings[["device", "time", "x", "y"]].to_parquet(pings_path, index=False)
+    echo(
+        f"Simulated patrol pings: {len(pings):,} pings of {DEMO_DEVICES} devices from "
+        f"{pings['time'].min()} to {pings['time'].max()} -> {pings_path}"
+    )
+    units = UnitSet.from_frame(layer, None, source=str(trial_path))
+    stays = stays_from_pings(pings_path, units, x="x", y="y", crs=layer.crs)
+    weekly = stays.dosage("week")
+    summary = delivery_week(
+        assignment, weekly, DEMO_MONITOR_WEEK, planned_minutes=DEMO_PLANNED_MINUTES
+    )
+    words = _monitor_words(summary)
+    echo(words)
+    week_path = out / "delivery_week.md"
+    week_path.write_text(f"# Delivery monitor\n\n{words}\n\n{CAUTION}\n", encoding="utf-8")
+    under = summary.under_served.assign(condition="treated", issue="under-served")
+    visited = summary.visited_controls.assign(issue="control visited", shortfall_minutes=0.0)
+    lists = pd.concat([under, visited])
+    lists.index.name = assignment.index.name
+    lists_path = out / "delivery_lists.csv"
+    lists.to_csv(lists_path, encoding="utf-8")
+    chart_path = out / "delivery_chart.png"
+    ax = plot_weekly_delivery(
+        weekly_delivery(assignment, weekly, planned_minutes=DEMO_PLANNED_MINUTES),
+        DEMO_PLANNED_MINUTES,
+    )
+    ax.figure.savefig(chart_path, dpi=120, bbox_inches="tight")
+    plt.close(ax.figure)
+    map_path = out / "delivery_map.png"
+    column = tf.spec().field.district_column
+    ax = delivery_map_static(
+        layer, summary, district_column=column if column in layer.columns else None
+    )
+    figure = cast(Figure, ax.figure)  # the map's own figure, never a subfigure
+    figure.savefig(map_path, dpi=120, bbox_inches="tight")
+    plt.close(figure)
+    append_record(trial_path, RECORD_LAYER, summary.record())
+    echo(
+        f"Delivery monitor, week of {summary.week}: {week_path}, lists {lists_path}, "
+        f"chart {chart_path}, map {map_path}; recorded in {trial_path} (layer '{RECORD_LAYER}')"
+    )
+    received = treatment_received(tf, stays, n_draws=n_draws)
+    echo(str(received))
+    received_md, received_csv = out / "treatment_received.md", out / "treatment_received.csv"
+    received_md.write_text(received.to_markdown() + "\n\n" + CAUTION + "\n", encoding="utf-8")
+    received.to_frame().to_csv(received_csv, index=False)
+    echo(f"Effect of treatment received (complier effect): {received_md}, {received_csv}")
+    return {
+        "pings": pings_path,
+        "delivery_week": week_path,
+        "delivery_lists": lists_path,
+        "delivery_chart": chart_path,
+        "delivery_map": map_path,
+        "received": received_md,
+        "received_csv": received_csv,
+    }
+
+
+def _monitor_words(summary) -> str:
+    """Say the monitor's week in plain words, one line per exposure condition."""
+    lines = [
+        f"Delivery in the week of {summary.week} (planned dose {summary.planned_minutes:g} "
+        "minutes per treated place per week):"
+    ]
+    for condition, row in summary.by_condition.iterrows():
+        name = str(condition)
+        if name.startswith("spillover_"):
+            name = f"spillover band {name.removeprefix('spillover_')}"
+        lines.append(
+            f"- {name.replace('_', ' ')}: {int(row['places']):,} places, "
+            f"{row['at_dose_share']:.0%} at the planned dose, "
+            f"{row['any_presence_share']:.0%} with any presence, "
+            f"{row['mean_minutes']:,.1f} minutes present and {row['mean_visits']:.2f} visits "
+            "per place"
+        )
+    lines.append(
+        f"{len(summary.under_served):,} treated places under the planned dose; "
+        f"{len(summary.visited_controls):,} control places with presence (contamination)"
+    )
+    return "\n".join(lines)

@@ -165,6 +165,8 @@ def analyse_trial(
     level: float = 0.95,
     districts=None,
     tiles: str | None = "auto",
+    incidents: ObservedIncidents | None = None,
+    period: Literal["week", "month"] = "month",
 ) -> AnalysisRun:
     """Analyse a trial file with stored outcomes; store the results; write map and report.
 
@@ -189,6 +191,16 @@ def analyse_trial(
     tiles : str or None
         Background tiles of the results map (``"auto"``: tiles only where the
         units lie on land the tiles cover); ``None`` for a plain background.
+    incidents : geoexp.outcomes.ObservedIncidents, optional
+        The dated incidents the outcomes were counted from (a CSV file or a
+        frame with ISO dates). When given, the report gets the section "Over
+        time" (:func:`geoexp.report.over_time_section`): incidents per unit by
+        exposure condition per ``period`` from the start of the pre-period to
+        the end of the post-period, the pre-trend check and the effect in each
+        post period (Holm 1979); otherwise one line among the exclusions says
+        why the section is left out.
+    period : {"week", "month"}
+        The period of the "Over time" section.
 
     Returns
     -------
@@ -225,6 +237,7 @@ def analyse_trial(
             map_path = save_result_map(
                 result, tf, outs["result_map"], tiles=tiles, districts=districts
             )
+    over_time = _over_time(tf, incidents, period, n_draws=n_draws, level=level)
     with writing(outs["report"], "report"):
         html_path, md_path = write_report(
             result,
@@ -233,6 +246,7 @@ def analyse_trial(
             result_map_html=map_path,
             districts=districts,
             pdf_path=outs["report_pdf"],
+            over_time=over_time,
         )
     return AnalysisRun(
         result,
@@ -242,3 +256,56 @@ def analyse_trial(
         None if map_path is None else Path(map_path),
         outs["report_pdf"],
     )
+
+
+NO_DATED_COUNTS = (
+    "No section 'Over time': {why}, so the incidents could not be counted per unit and {period}."
+)
+
+
+def _over_time(tf, observed, period, *, n_draws: int, level: float):
+    """Build the report's "Over time" section, or one line saying why it is left out."""
+    import pandas as pd
+
+    from geoexp.delivery import incidents_by_period
+    from geoexp.errors import InputError
+    from geoexp.report import over_time_section
+    from geoexp.units import UnitSet
+
+    def missing(why: str) -> str:
+        return NO_DATED_COUNTS.format(why=why, period=period)
+
+    if observed is None:
+        return missing("the analysis was given no dated incidents (only the stored counts)")
+    source = observed.incidents
+    if not isinstance(source, str | os.PathLike | pd.DataFrame) or observed.layer is not None:
+        return missing("the incidents are not a CSV file or a table of rows")
+    if observed.x is not None and observed.crs is None:
+        return missing("the incidents' x/y positions have no CRS")
+    if observed.date_format not in (None, "iso"):
+        return missing(f"the incidents' dates are not ISO dates ({observed.date_format})")
+    frame = source if isinstance(source, pd.DataFrame) else pd.read_csv(source, dtype=str)
+    if observed.keep_types is not None and observed.type_column in frame.columns:
+        frame = frame[frame[observed.type_column].isin(list(observed.keep_types))]
+    units = UnitSet.from_frame(tf.units(), None, source=str(tf.path))
+    try:
+        counts = incidents_by_period(
+            units,
+            frame,
+            date_column=observed.date_column,
+            x=observed.x,
+            y=observed.y,
+            lon=observed.lon,
+            lat=observed.lat,
+            crs=observed.crs,
+            freq=period,
+            tolerance_m=observed.tolerance_m,
+        )
+        first, last = pd.Timestamp(observed.pre[0]), pd.Timestamp(observed.post[1])
+        kept = counts[(counts["period"] >= first) & (counts["period"] <= last)]
+        kept = kept.reset_index(drop=True)
+        kept.attrs.update(counts.attrs)
+        window = (str(observed.post[0]), str(observed.post[1]))
+        return over_time_section(tf, kept, window, n_draws=n_draws, level=level)
+    except InputError as err:
+        return missing(str(err).rstrip("."))

@@ -61,6 +61,8 @@ def test_monitor_command_appends_dated_records_and_keeps_the_assignment(
 ):
     path, crs = pings_file
     before = TrialFile.open(trial_copy).assignment()
+    # the demo's own monitor has recorded a week of 2026 already
+    kept = TrialFile.open(trial_copy).read(RECORD_LAYER)
     args = [
         "monitor",
         str(trial_copy),
@@ -90,8 +92,9 @@ def test_monitor_command_appends_dated_records_and_keeps_the_assignment(
     tf = TrialFile.open(trial_copy)
     records = tf.read(RECORD_LAYER)
     n_conditions = before["condition"].nunique()
-    assert len(records) == 2 * n_conditions  # appended, not overwritten
-    assert set(records["week"]) == {"2025-01-06"}
+    assert len(records) == len(kept) + 2 * n_conditions  # appended, not overwritten
+    pd.testing.assert_frame_equal(records.iloc[: len(kept)], kept)
+    assert set(records["week"].iloc[len(kept) :]) == {"2025-01-06"}
     pd.testing.assert_frame_equal(tf.assignment(), before)
     assert verify_trial(tf).problems == ()  # the record leaves the trial's fingerprints intact
     assert (tmp_path / "chart.png").read_bytes()[:4] == b"\x89PNG"

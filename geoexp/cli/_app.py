@@ -573,6 +573,7 @@ def analyse_command(
         {"--incidents": source},
         trial=trial,
     )
+    observed: ObservedIncidents | None = None  # dated incidents: the report's "Over time"
     if source is not None:
         if pre is None or post is None:
             raise typer.BadParameter(
@@ -597,6 +598,7 @@ def analyse_command(
             estimator=estimator.value,
             n_draws=draws,
             level=level,
+            incidents=observed,
         )
     console.print(str(run))
 

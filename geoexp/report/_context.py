@@ -19,6 +19,7 @@ from geoexp.graph import NetworkInfo
 from geoexp.maps import PRINT_RC
 from geoexp.report._calibration import interval_caveat
 from geoexp.report._figures import distance_decay_plot, png_bytes
+from geoexp.report._over_time import OverTimeSection
 from geoexp.report._plan import FLOW_TITLE, PLAN_TITLE, plan_facts
 
 if TYPE_CHECKING:
@@ -118,6 +119,10 @@ class ReportContext:
     plan : pandas.DataFrame or None
         The trial at a glance (periods, eligibility rule, number treated, gap,
         bands, tool version), when the trial file is given.
+    over_time : OverTimeSection or None
+        Incidents per unit by condition over time, the pre-trend check and
+        the effects per post period, when dated counts were given (else a
+        note in ``notes`` says why the section is left out).
     """
 
     title: str
@@ -144,6 +149,7 @@ class ReportContext:
     methods: str = METHODS
     plan: pd.DataFrame | None = None
     plan_title: str = PLAN_TITLE
+    over_time: OverTimeSection | None = None
 
     @property
     def result_map_name(self) -> str | None:
@@ -268,6 +274,7 @@ def report_context(
     result_map_html: str | Path | None = None,
     static_map: bool = True,
     districts=None,
+    over_time: OverTimeSection | str | None = None,
 ) -> ReportContext:
     """Gather the report of ``analysis`` into one :class:`ReportContext`.
 
@@ -291,6 +298,9 @@ def report_context(
         Include the static result map (when ``trial`` is given).
     districts : str, os.PathLike or geopandas.GeoDataFrame, optional
         District polygons for the static result map.
+    over_time : OverTimeSection or str, optional
+        The "Over time" section (:func:`geoexp.report.over_time_section`), or
+        one line saying why it is left out (added to the notes).
 
     Returns
     -------
@@ -364,7 +374,8 @@ def report_context(
         saturation=analysis.saturation,
         displacement=wdq,
         figures=tuple(figures),
-        notes=tuple(analysis.notes),
+        notes=tuple(analysis.notes) + ((over_time,) if isinstance(over_time, str) else ()),
         rows=_rows(analysis),
         plan=plan,
+        over_time=over_time if isinstance(over_time, OverTimeSection) else None,
     )

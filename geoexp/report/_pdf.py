@@ -261,6 +261,18 @@ def write_pdf_report(context: ReportContext, path: str | Path) -> Path:
                 pages.rows(context.displacement)
             else:
                 pages.text("Not computable.")
+            if context.over_time is not None:
+                ot = context.over_time
+                pages.heading(ot.title)
+                pages.text(ot.intro, 8.5)
+                pages.image(ot.series_png, "Incidents by exposure condition over time")
+                pages.text(ot.pre_trend, 8.5)
+                pages.image(ot.effects_png, f"Effect per post {ot.freq}")
+                pages.text(
+                    "The table of effects per period is in the HTML and Markdown reports.", 8.5
+                )
+                for note in ot.notes:
+                    pages.text(f"• {note}", 8.5)
             for figure in context.figures:
                 pages.image(figure.png, figure.title)
             pages.heading("What was excluded and why")

@@ -14,6 +14,7 @@ from markupsafe import Markup
 from geoexp._atomic import atomic_path
 from geoexp._tables import html_table, markdown_table
 from geoexp.report._context import ReportContext, report_context
+from geoexp.report._over_time import OverTimeSection
 from geoexp.report._pdf import write_pdf_report
 
 if TYPE_CHECKING:
@@ -82,6 +83,7 @@ def write_report(
     static_map: bool = True,
     districts=None,
     pdf_path: str | Path | None = None,
+    over_time: OverTimeSection | str | None = None,
 ) -> tuple[Path, Path]:
     """Write the report as HTML (plots embedded) and a Markdown twin beside it.
 
@@ -117,6 +119,9 @@ def write_report(
         District polygons for the static result map.
     pdf_path : str or pathlib.Path, optional
         Also write the A4 PDF report here.
+    over_time : OverTimeSection or str, optional
+        The "Over time" section (:func:`geoexp.report.over_time_section`), or
+        one line saying why it is left out (shown among the exclusions).
 
     Returns
     -------
@@ -133,6 +138,7 @@ def write_report(
         result_map_html=result_map_html,
         static_map=static_map,
         districts=districts,
+        over_time=over_time,
     )
     with atomic_path(path) as tmp:
         tmp.write_text(render_report(context, "html"), encoding="utf-8")
@@ -142,6 +148,15 @@ def write_report(
         with atomic_path(img) as tmp:
             tmp.write_bytes(figure.png)
         names.append(img.name)
+    if context.over_time is not None:
+        for tag, png in (
+            ("over_time", context.over_time.series_png),
+            ("period_effects", context.over_time.effects_png),
+        ):
+            img = md_path.with_name(f"{md_path.stem}_{tag}.png")
+            with atomic_path(img) as tmp:
+                tmp.write_bytes(png)
+            names.append(img.name)
     with atomic_path(md_path) as tmp:
         tmp.write_text(render_report(context, "md", figure_files=names), encoding="utf-8")
     if pdf_path is not None:
