@@ -70,12 +70,14 @@ class ComplierEffect:
     contrast: str
     dose_label: str
     bounded: bool  # False when the test-inversion set reaches the search range's ends
+    units_words: str = ""  # the units compared, in words (those of the analysis's row)
 
     def __str__(self) -> str:
         low = "-inf" if not np.isfinite(self.ci_low) else f"{self.ci_low:.4g}"
         high = "+inf" if not np.isfinite(self.ci_high) else f"{self.ci_high:.4g}"
         return (
-            f"Effect of treatment received ({self.contrast}; dose: {self.dose_label}):\n"
+            f"Effect of treatment received ({self.contrast}; dose: {self.dose_label})"
+            f"{', over ' + self.units_words if self.units_words else ''}:\n"
             f"  ITT on the outcome {self.itt_outcome:.4g} incidents per unit (primary result)\n"
             f"  ITT on the dose {self.itt_dose:.4g} {self.dose_label} per unit\n"
             f"  complier effect {self.estimate:.4g} incidents per {self.dose_label}, "
@@ -93,7 +95,8 @@ class ComplierEffect:
             "The intention-to-treat (ITT) result is the primary result; the complier effect "
             "beside it scales it by how much assignment changed the presence delivered "
             "(Angrist, Imbens & Rubin 1996). It assumes assignment changes incidents only "
-            "through presence and never lowers presence.\n\n"
+            "through presence and never lowers presence."
+            f"{' Units: ' + self.units_words + '.' if self.units_words else ''}\n\n"
             f"| quantity ({self.contrast}) | value |\n| --- | --- |\n"
             f"| ITT on the outcome (incidents per place) | {self.itt_outcome:.3g} |\n"
             f"| ITT on the dose ({self.dose_label} per place) | {self.itt_dose:.3g} |\n"
@@ -122,6 +125,8 @@ def complier_effect(
     rng: RngLike = None,
     level: float = 0.95,
     dose_label: str = "unit of dose",
+    units: np.ndarray | None = None,
+    units_words: str = "",
 ) -> ComplierEffect:
     """Complier effect (Wald ratio) with its randomization test and test-inversion interval.
 
@@ -150,6 +155,13 @@ def complier_effect(
     dose_label : str
         Words for one unit of ``dose`` (e.g. ``"minute present"``), used in the
         result's text: the effect reads as incidents per ``dose_label``.
+    units : numpy.ndarray, optional
+        Boolean mask of the units compared (default: every unit that can be in
+        both conditions). Pass the analysis's row units
+        (:func:`geoexp.exposure.contrast_units`, positivity floor included) so
+        that the ITT here is the analysis's estimate.
+    units_words : str
+        Those units in words, for the result's text.
 
     Returns
     -------
@@ -169,6 +181,11 @@ def complier_effect(
     l = design.mapping.pure_control if control is None else int(control)
     p = np.asarray(probabilities, dtype=float)
     pop = (p[:, k] > 0) & (p[:, l] > 0)
+    if units is not None:
+        units = np.asarray(units, dtype=bool)
+        if units.shape != (n,):
+            raise InputError(f"units needs one value per unit ({n})")
+        pop &= units
     cols = np.zeros((n, 6))
     cols[pop, 0] = y[pop] / p[pop, k]
     cols[pop, 1] = 1 / p[pop, k]
@@ -240,6 +257,7 @@ def complier_effect(
         contrast=f"{design.mapping.labels[k]} vs {design.mapping.labels[l]}",
         dose_label=dose_label,
         bounded=bounded,
+        units_words=units_words,
     )
 
 

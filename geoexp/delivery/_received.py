@@ -12,7 +12,7 @@ from geoexp._rng import Stream
 from geoexp.delivery._complier import ComplierEffect, complier_effect
 from geoexp.delivery._table import StayTable
 from geoexp.errors import InputError
-from geoexp.exposure import condition_bits
+from geoexp.exposure import condition_bits, contrast_units
 from geoexp.outcomes import load_outcomes
 from geoexp.trialfile import TrialFile, design_from_trial, verify_trial
 
@@ -89,7 +89,9 @@ def treatment_received(
     binary instead: 1 when the unit's minutes present per week of the
     post-period reached the plan, so the ratio is the complier effect of
     Angrist, Imbens & Rubin (1996); without it the ratio is the effect per
-    minute of presence. The contrast is treated against pure control, with
+    minute of presence. The contrast is treated against pure control over the
+    analysis's direct-effect units (eligible units whose probabilities of both
+    reach the design's positivity floor), so its ITT is the analysis's estimate, with
     the exposure probabilities of the design's own Monte Carlo (the same
     stream as the analysis), and the test is the design's randomization test
     of the ITT (see :func:`complier_effect`).
@@ -129,12 +131,25 @@ def treatment_received(
         design.spec.draws,
         design.stream(Stream.MONTE_CARLO),
     )
+    probs = bits.probabilities()
+    # the analysis's direct-effect row: eligible units with both probabilities at the floor
+    row = contrast_units(
+        probs,
+        design.eligible,
+        0,
+        design.mapping.pure_control,
+        group="eligible",
+        labels=design.mapping.labels,
+        floor=design.positivity_floor,
+    )
     return complier_effect(
         design,
         assignment.conditions.astype(np.int64),
         y,
         dose,
-        bits.probabilities(),
+        probs,
+        units=row.units,
+        units_words=row.who,
         n_draws=n_draws,
         level=level,
         dose_label=label,

@@ -74,7 +74,8 @@ def interval_caveat(kind: RowKind, summary: dict | None = None) -> str:
     level = int(round(100 * summary.get("level", 0.95)))
     rows = "the treated row" if kind == "direct" else "spillover rows"
     text = (
-        f"in {summary['trials_with_intervals']} simulated trials per design on an invented city "
+        f"in at least {summary['trials_with_intervals']} simulated trials per design on an invented "
+        "city "
         f"({', '.join(summary['designs'])} designs; geoexp {summary['geoexp_commit']}, "
         f"measured {_date(summary['measured'])}), {level}% intervals of {rows} (additive and rate "
         f"ratio) held the planted value in {100 * low['lowest']:.1f}% "
