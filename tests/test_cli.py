@@ -155,3 +155,22 @@ def test_every_command_that_counts_passes_on_every_reading_option():
         assert observed.tolerance_m == 12.5 and observed.type_column == "kind"
         assert observed.by_type and observed.keep_types == ("burglary", "theft")
         assert (observed.pre, observed.post) == (("a", "b"), ("c", "d"))
+
+
+def test_analyse_over_time_by_week(tmp_path, demo_outputs):
+    import shutil
+
+    trial = tmp_path / "t.gpkg"
+    shutil.copy(demo_outputs["trial"], trial)
+    args = [
+        "analyse", str(trial), "--incidents", str(demo_outputs["incidents"]),
+        "--lon", "lon", "--lat", "lat",
+        "--pre", "2025-01-01:2025-12-31", "--post", "2026-01-01:2026-12-31",
+        "--test-draws", "50", "--report", str(tmp_path / "r.html"), "--over-time", "week",
+    ]  # fmt: skip
+    done = CliRunner().invoke(app, args)
+    assert done.exit_code == 0, done.output
+    md = (tmp_path / "r.md").read_text(encoding="utf-8")
+    assert "incidents per unit per week" in md and "per month" not in md
+    bad = CliRunner().invoke(app, [*args[:-1], "fortnight"])
+    assert bad.exit_code == 2 and "--over-time" in bad.output

@@ -16,6 +16,7 @@ from geoexp.cli._options import (
     MAX_DRAWS,
     EstimatorChoice,
     OutcomeChoice,
+    OverTimeChoice,
     closed_share,
     open_share,
     positive_metres,
@@ -549,6 +550,9 @@ def analyse_command(
     level: Annotated[
         float, typer.Option(help="Confidence level, between 0 and 1.", callback=open_share)
     ] = 0.95,
+    over_time: Annotated[
+        OverTimeChoice, typer.Option(help="With --incidents: periods of the section 'Over time'.")
+    ] = OverTimeChoice.month,
     draws: OldDrawsOpt = None,
     quiet: QuietOpt = False,
 ) -> None:
@@ -599,6 +603,7 @@ def analyse_command(
             n_draws=draws,
             level=level,
             incidents=observed,
+            period=over_time.value,
         )
     console.print(str(run))
 

@@ -17,6 +17,13 @@ class OutcomeChoice(StrEnum):
     post = "post"
 
 
+class OverTimeChoice(StrEnum):
+    """The periods of the report's section "Over time"."""
+
+    month = "month"
+    week = "week"
+
+
 class EstimatorChoice(StrEnum):
     """The estimator of each contrast."""
 
