@@ -277,27 +277,19 @@ def _over_time(tf, observed, period, *, n_draws: int, level: float):
 
     if observed is None:
         return missing("the analysis was given no dated incidents (only the stored counts)")
-    source = observed.incidents
-    if not isinstance(source, str | os.PathLike | pd.DataFrame) or observed.layer is not None:
-        return missing("the incidents are not a CSV file or a table of rows")
-    if observed.x is not None and observed.crs is None:
-        return missing("the incidents' x/y positions have no CRS")
-    if observed.date_format not in (None, "iso"):
-        return missing(f"the incidents' dates are not ISO dates ({observed.date_format})")
-    frame = source if isinstance(source, pd.DataFrame) else pd.read_csv(source, dtype=str)
-    if observed.keep_types is not None and observed.type_column in frame.columns:
-        frame = frame[frame[observed.type_column].isin(list(observed.keep_types))]
     units = UnitSet.from_frame(tf.units(), None, source=str(tf.path))
+    if units.crs is None:
+        return missing("the units are in local planar coordinates (no CRS)")
     try:
+        # read exactly as the count step read them: any source, any date format
+        frame = observed.points(units.crs)
         counts = incidents_by_period(
             units,
             frame,
-            date_column=observed.date_column,
-            x=observed.x,
-            y=observed.y,
-            lon=observed.lon,
-            lat=observed.lat,
-            crs=observed.crs,
+            date_column="date",
+            x="x",
+            y="y",
+            crs=units.crs,
             freq=period,
             tolerance_m=observed.tolerance_m,
         )

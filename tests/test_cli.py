@@ -130,6 +130,8 @@ def test_analyse_counts_with_the_date_format_given(tmp_path, demo_outputs):
     assert done.exit_code == 0, done.output
     assert (tmp_path / "r.html").exists() and (tmp_path / "r.md").exists()
     assert (tmp_path / "r_results_map.html").exists()
+    # the report's section over time reads the day-first dates as the count did
+    assert "## Over time" in (tmp_path / "r.md").read_text(encoding="utf-8")
     # The same incidents counted from ISO dates give the same stored counts.
     from geoexp.trialfile import TrialFile
 

@@ -634,3 +634,23 @@ def test_observed_incidents_keep_types_and_tolerance_reach_the_count(units, regi
         ObservedIncidents(region.incidents, pre=YEAR_2024, post=YEAR_2025, tolerance_m=-1).count(
             units
         )
+
+
+def test_observed_points_read_every_date_format_as_the_count_does(units, region):
+    # Identity: the points are the incidents' own geometry (shapely coordinates) and their
+    # dates, whichever way the dates are written; a day-first copy gives the same points.
+    frame = region.incidents
+    observed = ObservedIncidents(frame, pre=YEAR_2024, post=YEAR_2025)
+    points = observed.points(units.crs)
+    assert len(points) == len(frame)
+    np.testing.assert_allclose(points["x"], frame.geometry.x)
+    np.testing.assert_allclose(points["y"], frame.geometry.y)
+    assert (points["date"] == pd.to_datetime(frame["date"]).dt.strftime("%Y-%m-%d")).all()
+    day_first = frame.assign(date=pd.to_datetime(frame["date"]).dt.strftime("%d/%m/%Y"))
+    again = ObservedIncidents(day_first, pre=YEAR_2024, post=YEAR_2025, date_format="dmy")
+    pd.testing.assert_frame_equal(again.points(units.crs), points)
+    some = str(frame["incident_type"].dropna().iloc[0])
+    only = ObservedIncidents(
+        frame, pre=YEAR_2024, post=YEAR_2025, type_column="incident_type", keep_types=[some]
+    ).points(units.crs)
+    assert len(only) == int((frame["incident_type"] == some).sum())

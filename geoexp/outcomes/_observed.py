@@ -6,10 +6,13 @@ import os
 from collections.abc import Sequence
 from dataclasses import dataclass
 
+import numpy as np
 import pandas as pd
+import pyproj
 
 from geoexp.outcomes._counts import OutcomeTable, count_incidents
 from geoexp.outcomes._drops import MAX_DROPPED_SHARE, DateFormat, Period
+from geoexp.outcomes._read import read_incidents
 from geoexp.postgis import DatabaseSource
 from geoexp.trialfile import TrialFile
 from geoexp.units import UnitSet
@@ -75,6 +78,43 @@ class ObservedIncidents:
     def __post_init__(self) -> None:
         if self.keep_types is not None:
             object.__setattr__(self, "keep_types", tuple(self.keep_types))
+
+    def points(self, crs: pyproj.CRS) -> pd.DataFrame:
+        """The incidents read as this bundle says, as ISO dates and x/y in ``crs``.
+
+        Every source and date format the count step reads is read here the
+        same way (:func:`count_incidents`), so later steps need no reader of
+        their own. Rows with no readable date or position, and rows of types
+        outside ``keep_types``, are left out.
+
+        Parameters
+        ----------
+        crs : pyproj.CRS
+            The CRS of the returned ``x`` and ``y`` (the units' CRS).
+
+        Returns
+        -------
+        pandas.DataFrame
+            Columns ``date`` (``YYYY-MM-DD`` text), ``x`` and ``y``.
+        """
+        rows = read_incidents(
+            self.incidents,
+            crs,
+            date_column=self.date_column,
+            type_column=self.type_column,
+            x=self.x,
+            y=self.y,
+            lon=self.lon,
+            lat=self.lat,
+            crs=self.crs,
+            date_format=self.date_format,
+            layer=self.layer,
+        )
+        keep = ~np.isnat(rows.dates) & np.isfinite(rows.x) & np.isfinite(rows.y)
+        if self.keep_types is not None:
+            keep &= np.isin(rows.types.astype(str), list(self.keep_types))
+        dates = pd.DatetimeIndex(rows.dates[keep]).strftime("%Y-%m-%d")
+        return pd.DataFrame({"date": dates, "x": rows.x[keep], "y": rows.y[keep]})
 
     def count(
         self,
