@@ -37,7 +37,9 @@ in the same run.
 
 The analysis (estimates, Fisher tests, conditional spillover tests and
 test-inversion intervals, ``--draws`` draws each) is split into its parts by
-timing the functions :func:`geoexp.analysis.analyse` calls. Memory is the peak
+timing the functions :func:`geoexp.analysis.analyse` calls. In the ``city``
+case the tests' shared pass over the draws is timed again beside the earlier
+way, one pass per test, on the same columns and draws. Memory is the peak
 RSS of the subprocess up to the end of each stage (it never decreases); for
 the parts of the analysis, up to the end of the part's first call. ``--results``
 keeps every column of the result table at full precision, to check that a
@@ -62,6 +64,8 @@ import numpy as np
 import pandas as pd
 
 N_TREATED = 2_000
+# the columns of every test the analysis queued on its shared draws (filled by _analyse)
+QUEUED: list[np.ndarray] = []
 _RESULTS_PATH: str | None = None
 EFFECTS = {"treated": 0.8, "spillover_1": 1.1}
 
@@ -119,11 +123,7 @@ def _instrument_analysis() -> tuple[dict[str, float], dict[str, float], dict[str
         "condition_bits": "joint-probability bits (condition_bits)",
         "_near_pairs": "linked pairs (dependence_pairs)",
         "estimate_contrast": "estimates + Aronow-Samii variances",
-        "fisher_test": "Fisher tests",
-        "spillover_test": "conditional spillover tests",
-        "constant_effect_tests": "additive tests + inverted intervals",
-        "rate_ratio_tests": "rate-ratio tests + inverted intervals",
-        "_wdq_intervals": "displacement quotient intervals",
+        "spillover_test": "conditional spillover tests (eligible focal units)",
     }
     for attr, label in parts.items():
         original = getattr(run, attr)
@@ -138,6 +138,29 @@ def _instrument_analysis() -> tuple[dict[str, float], dict[str, float], dict[str
                 peak.setdefault(_label, _peak_mb())
 
         setattr(run, attr, wrapper)
+    # additive and rate-ratio tests with their intervals, Fisher's test, the spillover tests on
+    # units never treated and the displacement quotient's spread: one pass over the same draws
+    shared_label = "shared draws: additive, rate-ratio, Fisher, spillover tests, intervals"
+    original_run = run.SharedDraws.run
+
+    def shared_run(self, _f=original_run):
+        t0, c0 = time.perf_counter(), _cpu_s()
+        try:
+            return _f(self)
+        finally:
+            spent[shared_label] += time.perf_counter() - t0
+            cpu[shared_label] += _cpu_s() - c0
+            peak.setdefault(shared_label, _peak_mb())
+
+    run.SharedDraws.run = shared_run  # type: ignore[method-assign]
+    original_enqueue = run.SharedDraws._enqueue
+
+    def enqueue(self, columns, finish, _f=original_enqueue):
+        # every queued test's columns, for the one-pass-per-test baseline
+        QUEUED.append(np.array(columns, copy=True))
+        return _f(self, columns, finish)
+
+    run.SharedDraws._enqueue = enqueue  # type: ignore[method-assign]
     return spent, cpu, peak
 
 
@@ -158,6 +181,35 @@ def _analyse(trial_path: Path, outcomes, n_draws: int, stages: Stages):
     short = frame[["estimate", "std_error", "p_value", "p_value_no_spillover"]]
     print(json.dumps({"result": short.reset_index().to_dict(orient="records")}), flush=True)
     return result
+
+
+def _shared_baseline(trial_path: Path, n_draws: int, stages: Stages) -> None:
+    """The analysis's tests on shared draws against one pass per test, on the same draws.
+
+    Before the tests shared their draws, each test (the additive and the
+    rate-ratio tests of each condition, Fisher's test, each band's spillover
+    test, the quotient's spread) made its own pass of the exposure engine.
+    Both are timed here on the very columns the analysis queued.
+    """
+    from geoexp._rng import Stream
+    from geoexp.inference._draws import draw_sums
+    from geoexp.inference._shared import _distinct_columns
+    from geoexp.trialfile import TrialFile, design_from_trial
+
+    design, _ = design_from_trial(TrialFile.open(trial_path))
+    seq = design.stream(Stream.ROW_TESTS)
+    d = design
+    stages.done("rebuild the design for the shared-draws comparison")
+    columns = np.hstack(QUEUED)
+    keep, _ = _distinct_columns(columns)
+    shared = draw_sums(d.sampler, d.graph, d.mapping, columns[:, keep], n_draws, seq)
+    stages.done(
+        f"  {len(QUEUED)} tests, {columns.shape[1]} columns ({keep.size} distinct): one shared pass"
+    )
+    alone = [draw_sums(d.sampler, d.graph, d.mapping, c, n_draws, seq) for c in QUEUED]
+    stages.done(f"  the same {len(QUEUED)} tests, one pass each (before)")
+    same = np.array_equal(np.concatenate(alone, axis=2)[:, :, keep], shared)
+    print(json.dumps({"note": f"  the two ways' sums are identical: {same}"}), flush=True)
 
 
 def _kernel_baseline(trial_path: Path, n_draws: int, stages: Stages) -> None:
@@ -307,6 +359,7 @@ def city_case(out: Path, n_units: int, n_draws: int) -> None:
     del design, assignment, frame
     gc.collect()
     _analyse(trial_path, outcomes, n_draws, stages)
+    _shared_baseline(trial_path, n_draws, stages)
     _kernel_baseline(trial_path, n_draws, stages)
 
 

@@ -78,6 +78,7 @@ class Stream(IntEnum):
     MORAN = 7
     RATE_RATIO = 8
     DISPLACEMENT = 9
+    ROW_TESTS = 10
 
 
 _ONE_LEVEL = (Stream.ASSIGNMENT, Stream.MONTE_CARLO)

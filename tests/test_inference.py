@@ -7,6 +7,7 @@ from types import SimpleNamespace
 
 import geopandas as gpd
 import numpy as np
+import pandas as pd
 import pytest
 from scipy.spatial.distance import cdist
 from scipy.stats import chisquare, permutation_test
@@ -261,7 +262,7 @@ def test_one_contrast_statistic_for_tests_inversion_and_power():
     )
     # every caller uses this one function (not a copy of it)
     import geoexp.inference._draws as draws_module
-    import geoexp.inference._inversion as inversion_module
+    import geoexp.inference._models as inversion_module
     import geoexp.power._simulate as power_module
 
     for module in (draws_module, inversion_module, power_module):
@@ -471,3 +472,86 @@ def test_batched_tests_equal_one_test_per_contrast():
         constant_effect_tests(
             design, cond, y, probs, [specs[0], ContrastSpec(0, 2, halves[0])], effects
         )
+
+
+@pytest.mark.parametrize("max_bytes", [1, None])
+def test_shared_draws_give_each_test_its_own_result(max_bytes):
+    # One set of draws serves several tests: each result must be the very result of its
+    # stand-alone function with the same seed, whether the columns go through in one pass or
+    # (max_bytes=1) in one pass each over the same draws redrawn from the same seed.
+    from geoexp.errors import InputError
+    from geoexp.inference import (
+        MAX_COLUMN_BYTES,
+        SharedDraws,
+        constant_effect_tests,
+        fisher_test,
+        rate_ratio_tests,
+    )
+
+    design = lattice_design(n_eligible=80, m=30)
+    mapping = design.mapping
+    probs = exposure_probabilities(design.sampler, design.graph, mapping, 2000, rng=1).probabilities
+    rng = np.random.default_rng(4)
+    treated = design.sampler.draw(77)
+    cond = assign_conditions(design.graph, mapping, treated)
+    pre = rng.poisson(6.0, design.units.n).astype(float)
+    post = rng.poisson(6.0 * np.where(cond == 1, 1.3, np.where(cond == 0, 0.8, 1.0)))
+    y = post - pre
+    direct = ContrastSpec(0, 2, design.eligible)
+    bands = [ContrastSpec(1, 2, m) for m in (design.eligible, ~design.eligible)]
+    effects = np.array([-1.0, 0.5, 0.0])
+    ratios = np.array([0.8, 1.2, 1.0])
+    shared = SharedDraws(design, 400, 9, max_bytes=max_bytes or MAX_COLUMN_BYTES)
+    add_band = shared.additive(cond, y, probs, bands, effects, scales=[0.5, 2.0])
+    add_direct = shared.additive(cond, y, probs, [direct], effects)
+    rate_band = shared.rate_ratio(cond, post, probs, bands, ratios, baselines=[pre, None])
+    fisher = shared.fisher(cond, y, probs, direct, null="no effect at all")
+    cols = np.column_stack([pre, post]).astype(float)
+    sums = shared.sums(cols)
+    with pytest.raises(InputError):
+        fisher.result()  # not run yet
+    shared.run()
+    with pytest.raises(InputError):
+        shared.fisher(cond, y, probs, direct, null="too late")
+    alone = constant_effect_tests(
+        design, cond, y, probs, bands, effects, n_draws=400, rng=9, scales=[0.5, 2.0]
+    )
+    for got, want in zip(add_band.result(), alone, strict=True):
+        assert (got.estimate, got.ci_low, got.ci_high, got.test.p_value) == (
+            want.estimate,
+            want.ci_low,
+            want.ci_high,
+            want.test.p_value,
+        )
+    want = constant_effect_tests(design, cond, y, probs, [direct], effects, n_draws=400, rng=9)[0]
+    got = add_direct.result()[0]
+    assert (got.ci_low, got.ci_high, got.test.p_value) == (
+        want.ci_low,
+        want.ci_high,
+        want.test.p_value,
+    )
+    alone_r = rate_ratio_tests(
+        design, cond, post, probs, bands, ratios, n_draws=400, rng=9, baselines=[pre, None]
+    )
+    for got, want in zip(rate_band.result(), alone_r, strict=True):
+        assert (got.estimate, got.ci_low, got.ci_high, got.test.p_value) == (
+            want.estimate,
+            want.ci_low,
+            want.ci_high,
+            want.test.p_value,
+        )
+    f_alone = fisher_test(design, cond, y, probs, direct, n_draws=400, rng=9)
+    assert fisher.result().p_value == f_alone.p_value
+    assert fisher.result().statistic == f_alone.statistic
+    # the plain sums are the exposure engine's covariate sums over the same draws
+    frame = pd.DataFrame(cols, index=design.graph.ids)
+    ref = exposure_probabilities(
+        design.sampler, design.graph, mapping, 400, rng=9, covariates=frame
+    )
+    np.testing.assert_array_equal(sums.result(), ref.covariate_sums)
+    # and the draws are the design's: over every draw, each condition's sums of the constant
+    # column add up to the expected number of units in it times the draws (linearity of
+    # expectation: E[sum_i 1{D_i = c}] = sum_i pi_i(c); loose by Monte Carlo error)
+    totals = ref.covariate_sums[:, :, 0].sum(axis=0) / 400
+    expected = (probs * pre[:, None]).sum(axis=0)
+    np.testing.assert_allclose(totals, expected, rtol=0.05)

@@ -32,9 +32,8 @@ from geoexp.inference import (
     MIN_FOCAL,
     ContrastSpec,
     InvertedTest,
-    constant_effect_tests,
-    fisher_test,
-    rate_ratio_tests,
+    Pending,
+    SharedDraws,
     spillover_test,
 )
 from geoexp.outcomes import OutcomeTable, load_outcomes
@@ -116,6 +115,12 @@ def analyse(
     test of no effect at all is reported once for the whole trial. The
     weighted displacement quotient of Bowers & Johnson (2003) is descriptive,
     read only when the treated row shows a clear reduction.
+
+    Every test that draws the design itself (the additive and rate-ratio tests
+    and their intervals, Fisher's test, the spillover tests on units that are
+    never treated, the quotient's spread) reads one shared set of ``n_draws``
+    draws (:class:`geoexp.inference.SharedDraws`): each stays exact, and one
+    pass of the exposure engine serves them all.
 
     Parameters
     ----------
@@ -219,67 +224,71 @@ def analyse(
             plug[k] = e.estimate if np.isfinite(e.estimate) else 0.0
             ratio = _hajek_rate_ratio(obs, probs, k, pc, est.units)
             ratios[k] = ratio if np.isfinite(ratio) and ratio > 0 else 1.0
-    # rows of the same condition share their streams of draws: one pass serves them all
-    adds: dict[int, InvertedTest] = {}
-    rates: dict[int, InvertedTest] = {}
-    for k in sorted({k for k, _, _ in plan}):
+    # Every test that draws the whole design reads the same draws: the additive and rate-ratio
+    # tests of every row, Fisher's test and the spread of the displacement quotient. One pass
+    # of the exposure engine serves them all (see geoexp.inference.SharedDraws).
+    shared = SharedDraws(design, n_draws, design.stream(Stream.ROW_TESTS))
+    adds: dict[int, Pending[list[InvertedTest]]] = {}
+    rates: dict[int, Pending[list[InvertedTest]]] = {}
+    conditions = sorted({k for k, _, _ in plan})
+    for k in conditions:
         at = [i for i, (kk, _, _) in enumerate(plan) if kk == k]
         specs = [ContrastSpec(k, pc, plan[i][1].units) for i in at]
         wheres = [f"{labels[k]} units ({plan[i][1].who})" for i in at]
         fits = [effects[i][0] for i in at]
-        adds.update(
-            zip(
-                at,
-                constant_effect_tests(
-                    design,
-                    observed,
-                    y,
-                    probs,
-                    specs,
-                    plug,
-                    n_draws=n_draws,
-                    level=level,
-                    centers=[e.estimate if np.isfinite(e.estimate) else 0.0 for e in fits],
-                    scales=[
-                        max(e.std_error, 1e-6) if np.isfinite(e.std_error) else 1.0 for e in fits
-                    ],
-                    nulls=[
-                        f"no additive effect on {w}, other effects at their estimates"
-                        for w in wheres
-                    ],
-                    interval=intervals,
-                ),
-                strict=True,
-            )
+        adds[k] = shared.additive(
+            observed,
+            y,
+            probs,
+            specs,
+            plug,
+            level=level,
+            centers=[e.estimate if np.isfinite(e.estimate) else 0.0 for e in fits],
+            scales=[max(e.std_error, 1e-6) if np.isfinite(e.std_error) else 1.0 for e in fits],
+            nulls=[f"no additive effect on {w}, other effects at their estimates" for w in wheres],
+            interval=intervals,
         )
-        rates.update(
-            zip(
-                at,
-                rate_ratio_tests(
-                    design,
-                    observed,
-                    post,
-                    probs,
-                    specs,
-                    ratios,
-                    n_draws=n_draws,
-                    level=level,
-                    nulls=[f"rate ratio 1 on {w}, other ratios at their estimates" for w in wheres],
-                    interval=intervals,
-                    baselines=[pre if (pre[plan[i][1].units] > 0).any() else None for i in at],
-                ),
-                strict=True,
-            )
+        rates[k] = shared.rate_ratio(
+            observed,
+            post,
+            probs,
+            specs,
+            ratios,
+            level=level,
+            nulls=[f"rate ratio 1 on {w}, other ratios at their estimates" for w in wheres],
+            interval=intervals,
+            baselines=[pre if (pre[plan[i][1].units] > 0).any() else None for i in at],
         )
+    direct_spec = ContrastSpec(0, pc, plan[0][1].units)
+    fisher = shared.fisher(
+        observed,
+        y,
+        probs,
+        direct_spec,
+        null=f"no effect at all ({labels[0]} vs {labels[pc]} statistic)",
+    )
+    # the exact test of no spillover on focal units that are never treated draws the design
+    # itself (Athey, Eckles & Imbens 2018), so it shares the draws too
+    spills = {
+        i: shared.spillover(observed, y, probs, k, focal)
+        for i, (k, _, focal) in enumerate(plan)
+        if focal is not None and not design.eligible[focal].any()
+    }
+    wdq_sums = shared.sums(_wdq_columns(obs, ratios)) if intervals and pc > 1 else None
+    shared.run()
+    add_of: dict[int, InvertedTest] = {}
+    rate_of: dict[int, InvertedTest] = {}
+    for k in conditions:
+        at = [i for i, (kk, _, _) in enumerate(plan) if kk == k]
+        add_of.update(zip(at, adds[k].result(), strict=True))
+        rate_of.update(zip(at, rates[k].result(), strict=True))
     rows: list[ContrastResult] = []
-    fisher0 = None
+    fisher0 = fisher.result()
     for i, ((k, est, focal), (e, e_other)) in enumerate(zip(plan, effects, strict=True)):
-        spec = ContrastSpec(k, pc, est.units)
-        add, rate = adds[i], rates[i]
-        exact = None
-        if k == 0 and fisher0 is None:
-            fisher0 = fisher_test(design, observed, y, probs, spec, n_draws=n_draws)
-        elif focal is not None:
+        add, rate = add_of[i], rate_of[i]
+        exact = spills[i].result() if i in spills else None
+        if focal is not None and exact is None:
+            # eligible focal units: the design conditional on their assignment
             exact = spillover_test(
                 design, observed, assignment.treated, y, probs, k, focal=focal, n_draws=n_draws
             )
@@ -338,10 +347,8 @@ def analyse(
             )
         except InputError as err:
             notes.append(f"no displacement quotient for {mapping.labels[k]}: {err}")
-    if displacement and intervals:
-        displacement = _wdq_intervals(
-            design, obs, ratios, displacement, n_draws=n_draws, level=level
-        )
+    if displacement and wdq_sums is not None:
+        displacement = _wdq_intervals(design, ratios, displacement, wdq_sums.result(), level=level)
     tne, trend = float("nan"), float("nan")
     if displacement:
         d0 = displacement[0]
@@ -395,41 +402,37 @@ def analyse(
     )
 
 
+def _wdq_columns(obs: Observed, ratios: np.ndarray) -> np.ndarray:
+    """The columns whose per-draw sums give the displacement quotient of every draw.
+
+    The pre-period counts, and the post-period counts imputed under the fitted
+    rate ratios (the rows' estimates) for the pure-control condition:
+    Y_i(pure control) = post_i / rho_{d_i}.
+    """
+    return np.column_stack([obs.pre, obs.post / ratios[obs.conditions]]).astype(float)
+
+
 def _wdq_intervals(
     design: Design,
-    obs: Observed,
     ratios: np.ndarray,
     indices: list[DisplacementIndex],
+    sums: np.ndarray,
     *,
-    n_draws: int,
     level: float,
 ) -> list[DisplacementIndex]:
     """Each quotient with the spread it has over the design's own assignments.
 
-    Outcomes are imputed under the fitted rate ratios (the rows' estimates):
-    Y_i(pure control) = post_i / rho_{d_i}. For every draw of the design the
-    counts of the target, each buffer and the control area are those the draw
-    would have produced, and the quotient of Bowers & Johnson (2003) is
-    recomputed; the interval holds the central ``level`` share of those
-    quotients. It shows how much the quotient moves with which units happen to
-    be treated, which the published quotient does not report; it is a
-    randomization interval under the fitted model, not a test.
+    ``sums`` are the per-draw sums by condition of :func:`_wdq_columns`. For
+    every draw of the design the counts of the target, each buffer and the
+    control area are those the draw would have produced under the fitted rate
+    ratios, and the quotient of Bowers & Johnson (2003) is recomputed; the
+    interval holds the central ``level`` share of those quotients. It shows how
+    much the quotient moves with which units happen to be treated, which the
+    published quotient does not report; it is a randomization interval under
+    the fitted model, not a test.
     """
-    from geoexp.exposure import exposure_probabilities
-
     mapping = design.mapping
     pc = mapping.pure_control
-    base = obs.post / ratios[obs.conditions]
-    cols = pd.DataFrame({"pre": obs.pre, "base": base}, index=design.graph.ids)
-    sums = exposure_probabilities(
-        design.sampler,
-        design.graph,
-        mapping,
-        n_draws,
-        design.stream(Stream.DISPLACEMENT),
-        covariates=cols,
-    ).covariate_sums
-    assert sums is not None  # covariates were given, so their sums per draw are returned
     before = sums[:, :, 0]
     after = sums[:, :, 1] * ratios[None, :]
     with np.errstate(invalid="ignore", divide="ignore"):

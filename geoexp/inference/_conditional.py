@@ -176,16 +176,7 @@ def spillover_test(
         than complete randomization.
     """
     y = np.asarray(y, dtype=float)
-    pc = design.mapping.pure_control
-    focal = default_focal_units(design, probabilities, band) if focal is None else np.asarray(focal)
-    if focal.size < MIN_FOCAL:
-        raise InputError(
-            f"only {focal.size} focal units can be both in {design.mapping.labels[band]} and pure "
-            f"controls; the spillover test needs at least {MIN_FOCAL}"
-        )
-    mask = np.zeros(design.units.n, dtype=bool)
-    mask[focal] = True
-    spec = ContrastSpec(band, pc, mask)
+    spec, focal, null = spillover_contrast(design, probabilities, band, focal)
     sampler: Sampler | FixedFocalSampler = design.sampler
     if design.eligible[focal].any():
         if not isinstance(sampler, CompleteSampler):
@@ -203,7 +194,7 @@ def spillover_test(
         observed,
         probabilities,
         spec,
-        null=f"no spillover into {design.mapping.labels[band]} (focal units)",
+        null=null,
         estimator=estimator,
         n_draws=n_draws,
         rng=design.stream(Stream.SPILLOVER_TEST, band) if rng is None else rng,
@@ -211,3 +202,27 @@ def spillover_test(
         n_focal=int(focal.size),
         keep_null=keep_null,
     )
+
+
+def spillover_contrast(
+    design: Design, probabilities: np.ndarray, band: int, focal: np.ndarray | None
+) -> tuple[ContrastSpec, np.ndarray, str]:
+    """The contrast of the spillover test on ``focal`` units (default
+    :func:`default_focal_units`), the focal positions and the null in words.
+
+    Raises
+    ------
+    geoexp.errors.InputError
+        Fewer than :data:`MIN_FOCAL` focal units.
+    """
+    pc = design.mapping.pure_control
+    focal = default_focal_units(design, probabilities, band) if focal is None else np.asarray(focal)
+    if focal.size < MIN_FOCAL:
+        raise InputError(
+            f"only {focal.size} focal units can be both in {design.mapping.labels[band]} and pure "
+            f"controls; the spillover test needs at least {MIN_FOCAL}"
+        )
+    mask = np.zeros(design.units.n, dtype=bool)
+    mask[focal] = True
+    null = f"no spillover into {design.mapping.labels[band]} (focal units)"
+    return ContrastSpec(band, pc, mask), focal, null

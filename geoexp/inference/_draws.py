@@ -106,6 +106,21 @@ def contrast_test(
     from one pass of the exposure engine over the draws.
     """
     y = np.asarray(y, dtype=float)
+    cols, t_obs, n = sharp_null_columns(y, observed, probabilities, spec, estimator)
+    sums = draw_sums(sampler, graph, mapping, cols, n_draws, rng)
+    return null_test_from_sums(
+        sums, spec, t_obs, n, null, estimator, n_draws, alternative, n_focal, keep_null
+    )
+
+
+def sharp_null_columns(
+    y: np.ndarray,
+    observed: np.ndarray,
+    probabilities: np.ndarray,
+    spec: ContrastSpec,
+    estimator: Statistic,
+) -> tuple[np.ndarray, float, int]:
+    """The weight columns of a sharp-null test, its observed statistic and its number of units."""
     cols = weight_columns(y, probabilities, spec)
     n = int(population(probabilities, spec).sum())
     t_obs = float(
@@ -116,7 +131,22 @@ def contrast_test(
             n,
         )
     )
-    sums = draw_sums(sampler, graph, mapping, cols, n_draws, rng)
+    return cols, t_obs, n
+
+
+def null_test_from_sums(
+    sums: np.ndarray,
+    spec: ContrastSpec,
+    t_obs: float,
+    n: int,
+    null: str,
+    estimator: Statistic,
+    n_draws: int,
+    alternative: Alternative,
+    n_focal: int = 0,
+    keep_null: bool = False,
+) -> RandomizationTest:
+    """A sharp-null test from the per-draw sums (R, C, q) of its :func:`sharp_null_columns`."""
     draws = statistic_from_sums(sums[:, spec.k, :], sums[:, spec.l, :], estimator, n)
     p, mc, undefined = significance(t_obs, draws, alternative)
     return RandomizationTest(
