@@ -155,10 +155,10 @@ def _instrument_analysis() -> tuple[dict[str, float], dict[str, float], dict[str
     run.SharedDraws.run = shared_run  # type: ignore[method-assign]
     original_enqueue = run.SharedDraws._enqueue
 
-    def enqueue(self, columns, finish, _f=original_enqueue):
+    def enqueue(self, blocks, finish, _f=original_enqueue):
         # every queued test's columns, for the one-pass-per-test baseline
-        QUEUED.append(np.array(columns, copy=True))
-        return _f(self, columns, finish)
+        QUEUED.append(np.hstack([np.asarray(b, dtype=float) for b in blocks]))
+        return _f(self, blocks, finish)
 
     run.SharedDraws._enqueue = enqueue  # type: ignore[method-assign]
     return spent, cpu, peak
@@ -201,7 +201,7 @@ def _shared_baseline(trial_path: Path, n_draws: int, stages: Stages) -> None:
     d = design
     stages.done("rebuild the design for the shared-draws comparison")
     columns = np.hstack(QUEUED)
-    keep, _ = _distinct_columns(columns)
+    keep, _ = _distinct_columns(list(columns.T))
     shared = draw_sums(d.sampler, d.graph, d.mapping, columns[:, keep], n_draws, seq)
     stages.done(
         f"  {len(QUEUED)} tests, {columns.shape[1]} columns ({keep.size} distinct): one shared pass"

@@ -255,7 +255,7 @@ def exposure_probabilities(
     n_draws: int = 10_000,
     rng: RngLike = None,
     *,
-    covariates: pd.DataFrame | None = None,
+    covariates: pd.DataFrame | np.ndarray | None = None,
     engine: Literal["auto", "numba", "numpy"] = "auto",
 ) -> ExposureProbabilities:
     """Estimate every unit's exposure probabilities from ``n_draws`` draws of the sampler.
@@ -281,7 +281,9 @@ def exposure_probabilities(
         Seed or generator; the same seed gives the same probabilities.
     covariates
         Optional per-unit covariates (indexed by unit id) whose per-draw sums
-        by condition are kept for balance checks.
+        by condition are kept for balance checks; or a float array
+        (n_units, q) in the graph's order of units, used without a copy
+        (the randomization tests sum their weight columns this way).
     engine
         ``"numba"`` (compiled) or ``"numpy"``; both give identical counts.
 
@@ -298,7 +300,17 @@ def exposure_probabilities(
     reach = BandedReach.of(graph, mapping)
     cov = None
     names: tuple[str, ...] = ()
-    if covariates is not None:
+    if isinstance(covariates, np.ndarray):
+        if covariates.ndim != 2 or covariates.shape[0] != graph.n:
+            raise InputError(
+                f"covariates as an array need one row per unit ({graph.n}), got shape "
+                f"{covariates.shape}"
+            )
+        cov = np.ascontiguousarray(covariates, dtype=np.float64)
+        if not np.isfinite(cov).all():
+            raise InputError("covariates have missing or infinite values")
+        names = tuple(str(j) for j in range(cov.shape[1]))
+    elif covariates is not None:
         aligned = covariates.reindex(graph.ids)
         missing = aligned.index[aligned.isna().any(axis=1)]
         if len(missing):

@@ -5,7 +5,6 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-import pandas as pd
 
 from geoexp._engine import Engine
 from geoexp._rng import RngLike
@@ -73,9 +72,8 @@ def draw_sums(
     sampler, graph, mapping, cols: np.ndarray, n_draws: int, rng: RngLike, engine: Engine = "auto"
 ) -> np.ndarray:
     """Per-draw sums of every column over the units in each condition: (R, C, q)."""
-    frame = pd.DataFrame(cols, index=graph.ids)
     probs = exposure_probabilities(
-        sampler, graph, mapping, n_draws, rng, covariates=frame, engine=engine
+        sampler, graph, mapping, n_draws, rng, covariates=np.asarray(cols), engine=engine
     )
     # covariates were given, so the sums are there
     assert probs.covariate_sums is not None

@@ -132,8 +132,7 @@ def _search(
 
 def _additive(
     design: Design,
-    observed: np.ndarray,
-    cols: np.ndarray,
+    observed_sums: tuple[np.ndarray, np.ndarray],
     sums: np.ndarray,
     k: int,
     l: int,
@@ -147,8 +146,7 @@ def _additive(
 ) -> InvertedTest:
     """One contrast's additive test and interval from its columns and their per-draw sums."""
     n_cond = design.mapping.n_conditions
-    obs_k = cols[observed == k].sum(axis=0)
-    obs_l = cols[observed == l].sum(axis=0)
+    obs_k, obs_l = observed_sums
     tau_hat = float(contrast_statistic(obs_k[0], obs_k[1], obs_l[2], obs_l[3]))
     sk, sl = sums[:, k, :], sums[:, l, :]
 
@@ -207,8 +205,7 @@ def _ratio_columns(
 
 def _ratio(
     design: Design,
-    observed: np.ndarray,
-    cols: np.ndarray,
+    observed_sums: tuple[np.ndarray, np.ndarray],
     sums: np.ndarray,
     k: int,
     l: int,
@@ -220,8 +217,7 @@ def _ratio(
 ) -> InvertedTest:
     """One contrast's rate-ratio test and interval from its columns and their per-draw sums."""
     n_cond = design.mapping.n_conditions
-    obs_k = cols[observed == k].sum(axis=0)
-    obs_l = cols[observed == l].sum(axis=0)
+    obs_k, obs_l = observed_sums
     with np.errstate(invalid="ignore", divide="ignore"):
         ratio = float((obs_k[2 + k] / obs_k[0]) / (obs_l[2 + n_cond + l] / obs_l[1]))
     sk, sl = sums[:, k, :], sums[:, l, :]

@@ -73,8 +73,14 @@ class Pending(Generic[T]):
 
 @dataclass(eq=False)
 class _Queued:
-    columns: np.ndarray
+    """A queued test: its blocks of weight columns (n_units, q_b) and what to do with their sums."""
+
+    blocks: list[np.ndarray]
     finish: Callable[[np.ndarray], None]
+
+    @property
+    def width(self) -> int:
+        return sum(b.shape[1] for b in self.blocks)
 
 
 @dataclass(eq=False)
@@ -110,10 +116,10 @@ class SharedDraws:
     _queue: list[_Queued] = field(default_factory=list)
     _ran: bool = False
 
-    def _enqueue(self, columns: np.ndarray, finish: Callable[[np.ndarray], None]) -> None:
+    def _enqueue(self, blocks: list[np.ndarray], finish: Callable[[np.ndarray], None]) -> None:
         if self._ran:
             raise InputError("these shared draws have already been run; queue tests before run()")
-        self._queue.append(_Queued(np.ascontiguousarray(columns, dtype=np.float64), finish))
+        self._queue.append(_Queued([np.asarray(b, dtype=np.float64) for b in blocks], finish))
 
     def additive(
         self,
@@ -145,32 +151,19 @@ class SharedDraws:
         out: Pending[list[InvertedTest]] = Pending()
         design, n_draws = self.design, self.n_draws
 
+        seen = [_observed_sums(cols, observed, k, l) for cols in blocks]
+        widths = [cols.shape[1] for cols in blocks]
+
         def finish(sums: np.ndarray) -> None:
-            parts = _split(sums, blocks)
+            parts = _split(sums, widths)
             out._set(
                 [
-                    _additive(
-                        design,
-                        observed,
-                        cols,
-                        s,
-                        k,
-                        l,
-                        effects,
-                        n_draws,
-                        level,
-                        c,
-                        sc,
-                        nu,
-                        interval,
-                    )
-                    for cols, s, c, sc, nu in zip(
-                        blocks, parts, centers, scales, nulls, strict=True
-                    )
+                    _additive(design, o, s, k, l, effects, n_draws, level, c, sc, nu, interval)
+                    for o, s, c, sc, nu in zip(seen, parts, centers, scales, nulls, strict=True)
                 ]
             )
 
-        self._enqueue(np.hstack(blocks), finish)
+        self._enqueue(blocks, finish)
         return out
 
     def rate_ratio(
@@ -211,16 +204,19 @@ class SharedDraws:
         out: Pending[list[InvertedTest]] = Pending()
         design, n_draws = self.design, self.n_draws
 
+        seen = [_observed_sums(cols, observed, k, l) for cols in blocks]
+        widths = [cols.shape[1] for cols in blocks]
+
         def finish(sums: np.ndarray) -> None:
-            parts = _split(sums, blocks)
+            parts = _split(sums, widths)
             out._set(
                 [
-                    _ratio(design, observed, cols, s, k, l, ratios, n_draws, level, nu, interval)
-                    for cols, s, nu in zip(blocks, parts, nulls, strict=True)
+                    _ratio(design, o, s, k, l, ratios, n_draws, level, nu, interval)
+                    for o, s, nu in zip(seen, parts, nulls, strict=True)
                 ]
             )
 
-        self._enqueue(np.hstack(blocks), finish)
+        self._enqueue(blocks, finish)
         return out
 
     def fisher(
@@ -263,7 +259,7 @@ class SharedDraws:
                 )
             )
 
-        self._enqueue(cols, finish)
+        self._enqueue([cols], finish)
         return out
 
     def spillover(
@@ -311,7 +307,7 @@ class SharedDraws:
     def sums(self, columns: np.ndarray) -> Pending[np.ndarray]:
         """Queue plain per-draw sums of ``columns`` (n_units, q) by condition: (R, C, q)."""
         out: Pending[np.ndarray] = Pending()
-        self._enqueue(np.asarray(columns, dtype=float).reshape(self.design.graph.n, -1), out._set)
+        self._enqueue([np.asarray(columns, dtype=float).reshape(self.design.graph.n, -1)], out._set)
         return out
 
     def run(self) -> None:
@@ -328,37 +324,42 @@ class SharedDraws:
         seq = as_seed_sequence(self.rng)
         d = self.design
         for group in _passes(self._queue, self.max_bytes, d.graph.n):
-            columns = np.hstack([q.columns for q in group])
             # Only distinct columns that are not all zero go through the engine (a band's rows
             # over units that are never treated have all-zero columns for the treated
             # condition; Fisher's columns repeat those of the direct row's additive test). A
             # column's sums do not depend on the others, so this changes no number.
+            columns = [c for q in group for b in q.blocks for c in b.T]
             keep, source = _distinct_columns(columns)
-            sums = np.zeros((self.n_draws, d.mapping.n_conditions, columns.shape[1]))
+            unique = np.empty((d.graph.n, keep.size))
+            for j, c in enumerate(keep):
+                unique[:, j] = columns[c]
+            del columns
+            for q in group:
+                q.blocks = [np.empty((0, b.shape[1])) for b in q.blocks]  # let the columns go
+            sums = np.zeros((self.n_draws, d.mapping.n_conditions, source.size))
             if keep.size:
-                unique = draw_sums(
-                    d.sampler, d.graph, d.mapping, columns[:, keep], self.n_draws, seq
-                )
+                found = draw_sums(d.sampler, d.graph, d.mapping, unique, self.n_draws, seq)
                 has = source >= 0
-                sums[:, :, has] = unique[:, :, source[has]]
-            for q, part in zip(group, _split(sums, [q.columns for q in group]), strict=True):
+                sums[:, :, has] = found[:, :, source[has]]
+            del unique
+            for q, part in zip(group, _split(sums, [q.width for q in group]), strict=True):
                 q.finish(part)
         self._queue.clear()
 
 
-def _distinct_columns(columns: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+def _distinct_columns(columns: Sequence[np.ndarray]) -> tuple[np.ndarray, np.ndarray]:
     """The first of each set of identical columns that are not all zero, and for every column
     the position of its copy among those (-1 for an all-zero column)."""
-    q = columns.shape[1]
+    q = len(columns)
     source = np.full(q, -1)
     keep: list[int] = []
     seen: dict[bytes, list[int]] = {}  # digest -> positions in keep
     for j in range(q):
-        col = columns[:, j]
+        col = columns[j]
         if not col.any():
             continue
-        key = hashlib.blake2b(col.tobytes(), digest_size=16).digest()
-        same = [u for u in seen.get(key, []) if np.array_equal(columns[:, keep[u]], col)]
+        key = hashlib.blake2b(np.ascontiguousarray(col).tobytes(), digest_size=16).digest()
+        same = [u for u in seen.get(key, []) if np.array_equal(columns[keep[u]], col)]
         if same:
             source[j] = same[0]
             continue
@@ -368,9 +369,16 @@ def _distinct_columns(columns: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     return np.asarray(keep, dtype=np.int64), source
 
 
-def _split(sums: np.ndarray, blocks: Sequence[np.ndarray]) -> list[np.ndarray]:
-    """The per-draw sums (R, C, q) cut into the blocks of columns they were summed from."""
-    edges = np.cumsum([0] + [b.shape[1] for b in blocks])
+def _observed_sums(
+    cols: np.ndarray, observed: np.ndarray, k: int, l: int
+) -> tuple[np.ndarray, np.ndarray]:
+    """Column sums over the units observed in ``k`` and in ``l``."""
+    return cols[observed == k].sum(axis=0), cols[observed == l].sum(axis=0)
+
+
+def _split(sums: np.ndarray, widths: Sequence[int]) -> list[np.ndarray]:
+    """The per-draw sums (R, C, q) cut into consecutive blocks of ``widths`` columns."""
+    edges = np.cumsum([0, *widths])
     return [
         np.ascontiguousarray(sums[:, :, a:b]) for a, b in zip(edges[:-1], edges[1:], strict=True)
     ]
@@ -381,7 +389,7 @@ def _passes(queue: list[_Queued], max_bytes: int, n_units: int) -> list[list[_Qu
     groups: list[list[_Queued]] = [[]]
     used = 0
     for q in queue:
-        size = n_units * q.columns.shape[1] * 8
+        size = n_units * q.width * 8
         if groups[-1] and used + size > max_bytes:
             groups.append([])
             used = 0
