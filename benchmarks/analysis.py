@@ -118,7 +118,7 @@ def _instrument_analysis() -> tuple[dict[str, float], dict[str, float], dict[str
     parts = {
         "condition_bits": "joint-probability bits (condition_bits)",
         "_near_pairs": "linked pairs (dependence_pairs)",
-        "estimate_contrast": "estimates + Aronow-Samii variances",
+        "estimate_contrasts": "estimates + Aronow-Samii variances",
         "fisher_test": "Fisher tests",
         "spillover_test": "conditional spillover tests",
         "constant_effect_tests": "additive tests + inverted intervals",
