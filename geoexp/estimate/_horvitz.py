@@ -433,10 +433,12 @@ def estimate_contrasts(
 
     Parameters
     ----------
-    y, observed, probabilities, k, l, bits, labels, outcome, level, bit_rows, near, units, units_words
+    y, observed, probabilities, k, l, bits, labels
         As for :func:`estimate_contrast`.
     estimators
         The estimators, each ``"hajek"`` or ``"horvitz-thompson"``.
+    outcome, level, bit_rows, near, units, units_words
+        As for :func:`estimate_contrast`.
     engine
         "auto", "numba" or "numpy": the kernel of the linked-pairs sums
         (:mod:`geoexp._engine`); the same numbers either way.

@@ -149,7 +149,21 @@ def _popcounts(a_bits: np.ndarray, b_bits: np.ndarray, a: np.ndarray, b: np.ndar
     return out
 
 
-def _pair_terms_numpy(first, second, where, code, rows, bits_k, bits_l, pk, pl, ys, n_draws, block):
+def _pair_terms_numpy(
+    first: np.ndarray,
+    second: np.ndarray,
+    where: np.ndarray,
+    code: np.ndarray,
+    rows: np.ndarray,
+    bits_k: np.ndarray,
+    bits_l: np.ndarray,
+    pk: np.ndarray,
+    pl: np.ndarray,
+    ys: np.ndarray,
+    n_draws: int,
+    block: int,
+) -> PairTerms:
+    """The numpy twin of the kernel: the pairs in blocks, the same expressions in the same order."""
     n = code.size
     m = ys.shape[0]
     zero_k = np.zeros(n, dtype=np.int64)
