@@ -122,7 +122,7 @@ def _instrument_analysis() -> tuple[dict[str, float], dict[str, float], dict[str
     parts = {
         "condition_bits": "joint-probability bits (condition_bits)",
         "_near_pairs": "linked pairs (dependence_pairs)",
-        "estimate_contrast": "estimates + Aronow-Samii variances",
+        "estimate_contrasts": "estimates + Aronow-Samii variances",
         "spillover_test": "conditional spillover tests (eligible focal units)",
     }
     for attr, label in parts.items():

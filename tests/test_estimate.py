@@ -359,3 +359,142 @@ def test_variance_step_runs_on_one_blas_thread(monkeypatch):
     d = conds[4]
     estimate_contrast(po[np.arange(6), d], d, bits.probabilities(), 2, 3, bits, labels=LABELS)
     assert seen and all(t == 1 for t in seen)
+
+
+def line_trial(n: int = 40, m: int = 8, draws: int = 300, seed: int = 0):
+    """Complete randomization of m of n units on a line; four conditions as in path_enumeration.
+
+    Returns the draws' conditions, an observed assignment, a Poisson outcome and linked pairs
+    (units at most three apart, both orders, in shuffled order).
+    """
+    rng = np.random.default_rng(seed)
+    z = np.zeros((draws, n), dtype=bool)
+    np.put_along_axis(z, rng.random((draws, n)).argsort(axis=1)[:, :m], True, axis=1)
+    nb = np.zeros((draws, n), dtype=int)
+    nb[:, 1:] += z[:, :-1]
+    nb[:, :-1] += z[:, 1:]
+    conds = np.where(z, np.where(nb > 0, 1, 0), np.where(nb > 0, 2, 3))
+    d = conds[0]
+    y = rng.poisson(np.array([2.0, 3.0, 5.0, 4.0])[d]).astype(float)
+    i, j = np.nonzero(np.abs(np.subtract.outer(np.arange(n), np.arange(n))) <= 3)
+    off = i != j
+    order = rng.permutation(int(off.sum()))
+    return conds, d, y, (i[off][order], j[off][order])
+
+
+@pytest.mark.parametrize("engine", ["numba", "numpy"])
+@pytest.mark.parametrize("limit", [None, 0], ids=["all pairs", "linked pairs"])
+def test_shared_estimators_equal_separate_calls(monkeypatch, engine, limit):
+    # both estimators of a contrast from one visit of the pairs: to the last digit the numbers
+    # of one estimate_contrast call per estimator, on the dense and the linked-pairs paths
+    from geoexp.estimate import estimate_contrasts
+
+    if limit is not None:
+        monkeypatch.setattr(_horvitz, "DENSE_LIMIT", limit)
+    conds, d, y, near = line_trial()
+    bits = bits_of(conds, 4)
+    pi = bits.probabilities()
+    checked = 0
+    for k in (0, 1, 2):
+        both = estimate_contrasts(
+            y, d, pi, k, 3, bits, labels=LABELS, near=near, engine=engine, units=pi[:, 0] < 1
+        )
+        assert [e.estimator for e in both] == ["hajek", "horvitz-thompson"]
+        for shared in both:
+            alone = estimate_contrast(
+                y,
+                d,
+                pi,
+                k,
+                3,
+                bits,
+                labels=LABELS,
+                estimator=shared.estimator,
+                near=near,
+                units=pi[:, 0] < 1,
+            )
+            assert shared == alone
+            assert ("linked" in shared.joint) == (limit == 0)
+            checked += shared.std_error > 0
+    assert checked == 6
+
+
+def test_shared_estimators_match_the_textbook_variance(monkeypatch):
+    # [A] Aronow & Samii (2017) conservative variance written out pair by pair: with every pair
+    # linked, the shared linked-pairs sums give it for the raw outcome (Horvitz-Thompson) and
+    # for the residuals from each condition's Hajek mean (the linearized Hajek variance)
+    from geoexp.estimate import estimate_contrasts
+
+    conds, po = path_enumeration()
+    bits = bits_of(conds, 4)
+    pi = bits.probabilities()
+    indicator = np.stack([(conds == c) for c in range(4)]).astype(float)
+
+    def joint(p, q):
+        return indicator[p].T @ indicator[q] / conds.shape[0]
+
+    a, b = np.array([(i, j) for i in range(6) for j in range(6) if i != j]).T
+    monkeypatch.setattr(_horvitz, "DENSE_LIMIT", 0)
+    for d in conds:
+        y = po[np.arange(6), d]
+        hajek, ht = estimate_contrasts(y, d, pi, 0, 3, bits, labels=LABELS, near=(a, b))
+        assert ht.std_error**2 == pytest.approx(textbook_variance(0, 3, y, d, pi, joint), rel=1e-10)
+        # residuals from each condition's Hajek mean, zero outside the two conditions
+        resid = np.where(
+            d == 0, y - hajek.mean_exposure, np.where(d == 3, y - hajek.mean_reference, 0.0)
+        )
+        assert hajek.std_error**2 == pytest.approx(
+            textbook_variance(0, 3, resid, d, pi, joint), rel=1e-10, abs=1e-12
+        )
+
+
+@pytest.mark.parametrize("limit", [None, 0], ids=["all pairs", "linked pairs"])
+def test_variance_columns_equal_one_call_per_column(monkeypatch, limit):
+    # several outcome vectors at once: each column's terms are the floats of a call with it alone;
+    # pairs given as positions of all units with a map give those of the pairs restricted first
+    if limit is not None:
+        monkeypatch.setattr(_horvitz, "DENSE_LIMIT", limit)
+    conds, d, y, (a, b) = line_trial(seed=3)
+    bits = bits_of(conds, 4)
+    pi = bits.probabilities()
+    pop = np.flatnonzero((pi[:, 1] > 0) & (pi[:, 3] > 0) & (np.arange(y.size) % 5 != 2))
+    where = np.full(y.size, -1)
+    where[pop] = np.arange(pop.size)
+    inside = (where[a] >= 0) & (where[b] >= 0)
+    restricted = (where[a[inside]], where[b[inside]])
+    ys = np.column_stack([y[pop], y[pop] - 3.5, np.sqrt(y[pop])])
+    args = (d[pop], 1, 3, pi[pop, 1], pi[pop, 3], bits, pop)
+    vk, vl, cov, joint = _horvitz.variance_terms(ys, *args, (a, b), near_map=where, columns=True)
+    assert vk.shape == vl.shape == cov.shape == (3,)
+    for c in range(3):
+        one = _horvitz.variance_terms(ys[:, c], *args, restricted)
+        assert one == (vk[c], vl[c], cov[c], joint)
+
+
+def test_pair_terms_engines_and_threads_agree_exactly():
+    # the numba kernel and its numpy twin give the same numbers, on one thread or several,
+    # for pairs in any order, some of them outside the population, with zero joint probabilities
+    from geoexp._engine import limit_threads
+    from geoexp.estimate._pair_terms import pair_terms
+
+    conds, d, y, (a, b) = line_trial(n=60, m=15, draws=130, seed=5)
+    bits = bits_of(conds, 4)
+    pi = bits.probabilities()
+    pop = np.flatnonzero((pi[:, 0] > 0) & (pi[:, 3] > 0) & (np.arange(y.size) % 7 != 0))
+    where = np.full(y.size, -1)
+    where[pop] = np.arange(pop.size)
+    code = np.select([d[pop] == 0, d[pop] == 3], [0, 1], 2)
+    ys = np.stack([y[pop], y[pop] - y[pop].mean()])
+    args = (a, b, where, code, pop, bits.bits[0], bits.bits[3], pi[pop, 0], pi[pop, 3], ys, 130)
+    numpy = pair_terms(*args, engine="numpy", block=97)
+    with limit_threads(1):
+        one = pair_terms(*args, engine="numba")
+    for result in (pair_terms(*args, engine="numba"), one):
+        for name in ("kk", "ll", "kl", "zero_k", "zero_l", "zero_kl_first", "zero_kl_second"):
+            np.testing.assert_array_equal(getattr(result, name), getattr(numpy, name))
+    # [A] there are zero joint probabilities to count: two adjacent units are never both
+    # "treated, none", nor "treated, none" beside "control, none"
+    assert (
+        numpy.zero_k.sum() > 0 and numpy.zero_kl_first.sum() > 0 and numpy.zero_kl_second.sum() > 0
+    )
+    assert numpy.kk.shape[0] == 2 and numpy.kk.shape[1] > 0 and numpy.kl.shape[1] > 0

@@ -23,7 +23,7 @@ from geoexp.estimate import (
     Estimand,
     adjusted_contrast,
     contrast_units,
-    estimate_contrast,
+    estimate_contrasts,
     saturation_effects,
     weighted_displacement_quotient,
 )
@@ -197,15 +197,16 @@ def analyse(
     labels = mapping.labels
     plan = _plan_rows(design, probs, floor, notes)
 
-    def estimate(est: Estimand, which: Estimator) -> ContrastEstimate:
-        return estimate_contrast(
+    def estimate(est: Estimand) -> tuple[ContrastEstimate, ...]:
+        # both estimators of a row share its linked pairs and joint probabilities
+        return estimate_contrasts(
             y,
             observed,
             probs,
             est.exposure,
             pc,
             bits,
-            estimator=which,
+            estimators=(estimator, other),
             labels=labels,
             outcome=words,
             level=level,
@@ -215,7 +216,7 @@ def analyse(
         )
 
     other: Estimator = "horvitz-thompson" if estimator == "hajek" else "hajek"
-    effects = [(estimate(est, estimator), estimate(est, other)) for _, est, _ in plan]
+    effects = [estimate(est) for _, est, _ in plan]
     # the other conditions' effects in each test's model: the main rows' estimates
     plug = np.zeros(mapping.n_conditions)
     ratios = np.ones(mapping.n_conditions)

@@ -8,7 +8,12 @@ quotient of Bowers & Johnson (2003).
 
 from geoexp.estimate._adjusted import adjusted_contrast
 from geoexp.estimate._displacement import DisplacementIndex, weighted_displacement_quotient
-from geoexp.estimate._horvitz import DENSE_LIMIT, ContrastEstimate, estimate_contrast
+from geoexp.estimate._horvitz import (
+    DENSE_LIMIT,
+    ContrastEstimate,
+    estimate_contrast,
+    estimate_contrasts,
+)
 from geoexp.estimate._neyman import difference_in_means
 from geoexp.estimate._saturation import saturation_effects
 from geoexp.exposure import DEFAULT_FLOOR, Estimand, contrast_units, kish_ess
@@ -24,6 +29,7 @@ __all__ = [
     "DisplacementIndex",
     "difference_in_means",
     "estimate_contrast",
+    "estimate_contrasts",
     "saturation_effects",
     "weighted_displacement_quotient",
 ]

@@ -3,15 +3,17 @@ variance estimator of Aronow & Samii (2017)."""
 
 from __future__ import annotations
 
+from collections.abc import Sequence
 from dataclasses import dataclass
-from typing import Literal
+from typing import Literal, overload
 
 import numpy as np
 import pandas as pd
 from scipy.stats import norm
 
-from geoexp._engine import compute_threads
+from geoexp._engine import Engine, compute_threads
 from geoexp.errors import InputError
+from geoexp.estimate._pair_terms import pair_terms
 from geoexp.exposure import ConditionBits, kish_ess
 
 Estimator = Literal["hajek", "horvitz-thompson"]
@@ -87,6 +89,7 @@ def _structural_zeros(near: tuple[np.ndarray, np.ndarray] | None, n: int):
     return sp.csr_array((np.ones(a.size, dtype=bool), (a, b)), shape=(n, n))
 
 
+@overload
 def variance_terms(
     y: np.ndarray,
     observed: np.ndarray,
@@ -97,7 +100,46 @@ def variance_terms(
     bits: ConditionBits,
     rows: np.ndarray,
     near: tuple[np.ndarray, np.ndarray] | None = None,
-) -> tuple[float, float, float, str]:
+    *,
+    near_map: np.ndarray | None = None,
+    engine: Engine = "auto",
+    columns: Literal[False] = False,
+) -> tuple[float, float, float, str]: ...
+
+
+@overload
+def variance_terms(
+    y: np.ndarray,
+    observed: np.ndarray,
+    k: int,
+    l: int,
+    pk: np.ndarray,
+    pl: np.ndarray,
+    bits: ConditionBits,
+    rows: np.ndarray,
+    near: tuple[np.ndarray, np.ndarray] | None = None,
+    *,
+    near_map: np.ndarray | None = None,
+    engine: Engine = "auto",
+    columns: Literal[True],
+) -> tuple[np.ndarray, np.ndarray, np.ndarray, str]: ...
+
+
+def variance_terms(
+    y: np.ndarray,
+    observed: np.ndarray,
+    k: int,
+    l: int,
+    pk: np.ndarray,
+    pl: np.ndarray,
+    bits: ConditionBits,
+    rows: np.ndarray,
+    near: tuple[np.ndarray, np.ndarray] | None = None,
+    *,
+    near_map: np.ndarray | None = None,
+    engine: Engine = "auto",
+    columns: bool = False,
+) -> tuple[float, float, float, str] | tuple[np.ndarray, np.ndarray, np.ndarray, str]:
     """V[T(k)], V[T(l)] and C[T(k), T(l)] of Aronow & Samii (2017), conservative form.
 
     All arrays are over the contrast's population U (units with both
@@ -106,176 +148,169 @@ def variance_terms(
     the unidentified covariance (pi_ii(k, l) = 0 for k != l always counts).
 
     When the dense blocks of joint probabilities would exceed
-    :data:`DENSE_LIMIT` entries, only the pairs listed in ``near`` (positions
-    into U, both orders; see :func:`geoexp.exposure.dependence_pairs`) enter
-    the pairwise terms, and the other pairs are taken as independent
-    (pi_ij = pi_i pi_j). Those pairs depend on each other only through the
-    design's fixed totals. For the Horvitz–Thompson estimator of counts the
-    dropped terms are negative for designs that fix the number treated, so the
-    variance stays conservative; for the Hajek estimator (residuals summing to
-    zero) the dropped terms add up to a small positive amount, of relative size
-    about one over the number of units in a condition.
+    :data:`DENSE_LIMIT` entries, only the pairs listed in ``near`` (both
+    orders; see :func:`geoexp.exposure.dependence_pairs`) enter the pairwise
+    terms, and the other pairs are taken as independent (pi_ij = pi_i pi_j).
+    Those pairs depend on each other only through the design's fixed totals.
+    For the Horvitz–Thompson estimator of counts the dropped terms are negative
+    for designs that fix the number treated, so the variance stays
+    conservative; for the Hajek estimator (residuals summing to zero) the
+    dropped terms add up to a small positive amount, of relative size about
+    one over the number of units in a condition.
+
+    With ``columns=True``, ``y`` holds several outcome vectors as columns (n, m)
+    (the Hajek residuals and the raw outcome of the Horvitz–Thompson estimator,
+    say) and the three terms come back as arrays of m: every joint probability,
+    the linked pairs in U and the zero counts are found once for all of them,
+    and each column's terms are the very numbers a call with that column alone
+    gives.
+
+    ``near`` holds positions into U, or, with ``near_map`` (the position in U
+    of every unit, -1 outside U), positions into all units: then the pairs are
+    read where they are and no restricted copy is made. ``engine`` chooses the
+    kernel of the linked-pairs sums (:mod:`geoexp._engine`; the same numbers
+    either way).
     """
+    ys = np.asarray(y, dtype=np.float64)
+    if not columns:
+        ys = ys[:, None]
+    if ys.ndim != 2:
+        raise InputError(f"y must be one outcome vector or a matrix of columns, got {ys.shape}")
+    # one contiguous row per outcome vector, so that every sum below reads its values in the
+    # order a single vector would
+    ys = np.ascontiguousarray(ys.T)
+    m, n = ys.shape
     sk = np.flatnonzero(observed == k)
     sl = np.flatnonzero(observed == l)
-    n = y.size
-    wk = y[sk] / pk[sk]
-    wl = y[sl] / pl[sl]
-    vk = float(((1 - pk[sk]) * wk**2).sum())
-    vl = float(((1 - pl[sl]) * wl**2).sum())
+    vk = np.array([float(((1 - pk[sk]) * (yo[sk] / pk[sk]) ** 2).sum()) for yo in ys])
+    vl = np.array([float(((1 - pl[sl]) * (yo[sl] / pl[sl]) ** 2).sum()) for yo in ys])
+    cov = np.zeros(m)
     dense = n * max(sk.size, sl.size, 1) <= DENSE_LIMIT
     if dense:
         joint = "all pairs"
-        everyone = rows
-        # With the design's linked pairs known, a zero joint probability of an unlinked pair
-        # is Monte Carlo noise, not a structural zero: such pairs get no Young's term (they
-        # are taken as independent). Without them, every zero counts, as published.
-        structural = _structural_zeros(near, n)
-
-        def zero_mask(block: np.ndarray, r: np.ndarray, c: np.ndarray) -> np.ndarray:
-            zeros = block == 0
-            if structural is not None:
-                zeros &= structural[r][:, c].toarray()
-            return zeros
-
-        for s, p, w, c in ((sk, pk, wk, k), (sl, pl, wl, l)):
-            if not s.size:
-                continue
-            jj = bits.joint_block(c, rows[s], c, rows[s]).copy()
-            np.fill_diagonal(jj, np.nan)
-            prod = np.outer(p[s], p[s])
-            with np.errstate(invalid="ignore", divide="ignore"):
-                term = np.where(jj > 0, (jj - prod) / jj, 0.0) * np.outer(w, w)
-            pair = float(np.nansum(term))
-            # the unit with itself has pi_ii(k,k) = pi_i(k) > 0: never a zero
-            zero = zero_mask(bits.joint_block(c, rows[s], c, everyone), s, np.arange(n)).sum(1)
-            young = float((y[s] ** 2 / p[s] * zero).sum())
-            if c == k:
-                vk += pair + young
-            else:
-                vl += pair + young
-        cov = 0.0
-        if sk.size and sl.size:
-            jkl = bits.joint_block(k, rows[sk], l, rows[sl])
-            prod = np.outer(pk[sk], pl[sl])
-            with np.errstate(invalid="ignore", divide="ignore"):
-                cov += float(
-                    np.where(jkl > 0, (jkl - prod) / jkl, 0.0).__mul__(np.outer(wk, wl)).sum()
-                )
-        if sk.size:
-            zk = zero_mask(bits.joint_block(k, rows[sk], l, everyone), sk, np.arange(n)).sum(1)
-            cov -= float((y[sk] ** 2 / (2 * pk[sk]) * zk).sum())
-        if sl.size:
-            zl = zero_mask(bits.joint_block(l, rows[sl], k, everyone), sl, np.arange(n)).sum(1)
-            cov -= float((y[sl] ** 2 / (2 * pl[sl]) * zl).sum())
-        return vk, vl, cov, joint
-
-    if near is None:
+        _dense_terms(ys, sk, sl, k, l, pk, pl, bits, rows, near, near_map, vk, vl, cov)
+    elif near is None:
         raise InputError(
             f"{n} units are too many for all-pairs joint probabilities; pass the near pairs"
         )
-    joint = "linked pairs only; the others taken as independent"
-    a, b = near
-    pos_k = np.full(n, -1)
-    pos_k[sk] = np.arange(sk.size)
-    pos_l = np.full(n, -1)
-    pos_l[sl] = np.arange(sl.size)
-    # The pairs go through in blocks (memory: a few arrays of one block). Counts add up
-    # exactly; the pair terms are kept in order and summed once, so every sum is the very
-    # same floating-point sum as over all pairs at once.
-    terms = np.empty(a.size, dtype=np.float64)
-    for s, p, c, pos in ((sk, pk, k, pos_k), (sl, pl, l, pos_l)):
+    else:
+        joint = "linked pairs only; the others taken as independent"
+        _linked_terms(ys, sk, sl, k, l, pk, pl, bits, rows, near, near_map, engine, vk, vl, cov)
+    if columns:
+        return vk, vl, cov, joint
+    return float(vk[0]), float(vl[0]), float(cov[0]), joint
+
+
+def _dense_terms(ys, sk, sl, k, l, pk, pl, bits, rows, near, near_map, vk, vl, cov) -> None:
+    """The pair and Young's terms from dense blocks of joint probabilities, added in place."""
+    n = ys.shape[1]
+    everyone = rows
+    # With the design's linked pairs known, a zero joint probability of an unlinked pair
+    # is Monte Carlo noise, not a structural zero: such pairs get no Young's term (they
+    # are taken as independent). Without them, every zero counts, as published.
+    if near is not None and near_map is not None:
+        near = _near_in_population(near, near_map)
+    structural = _structural_zeros(near, n)
+
+    def zero_mask(block: np.ndarray, r: np.ndarray, c: np.ndarray) -> np.ndarray:
+        zeros = block == 0
+        if structural is not None:
+            zeros &= structural[r][:, c].toarray()
+        return zeros
+
+    for s, p, c, v in ((sk, pk, k, vk), (sl, pl, l, vl)):
         if not s.size:
             continue
-        zero = np.zeros(n, dtype=np.int64)
-        filled = 0
-        for ba, bb in _blocks(a, b):
-            # one popcount pass over the pairs leaving s serves both sums below
-            sel = pos[ba] >= 0
-            ia, ib = ba[sel], bb[sel]
-            jz = bits.joint_pairs(c, rows[ia], c, rows[ib])
-            zero += np.bincount(ia[jz == 0], minlength=n)
-            both = pos[ib] >= 0
-            ia, ib, jj = ia[both], ib[both], jz[both]
-            prod = p[ia] * p[ib]
-            with np.errstate(invalid="ignore", divide="ignore"):
-                term = np.where(jj > 0, (jj - prod) / jj, 0.0) * (y[ia] / p[ia]) * (y[ib] / p[ib])
-            terms[filled : filled + term.size] = term
-            filled += term.size
-        young = float((y[s] ** 2 / p[s] * zero[s]).sum())
-        if c == k:
-            vk += float(terms[:filled].sum()) + young
-        else:
-            vl += float(terms[:filled].sum()) + young
-    cov = 0.0
-    # pi_ij(k, l) once for every near pair with i in k or j in l; the sums take subsets
-    zk = np.zeros(n, dtype=np.int64)
-    zl = np.zeros(n, dtype=np.int64)
-    filled = 0
-    for ba, bb in _blocks(a, b):
-        in_k, in_l = pos_k[ba] >= 0, pos_l[bb] >= 0
-        either = np.flatnonzero(in_k | in_l)
-        j_either = bits.joint_pairs(k, rows[ba[either]], l, rows[bb[either]])
-        sel = in_k[either] & in_l[either]
-        ia, ib = ba[either[sel]], bb[either[sel]]
-        jkl = j_either[sel]
+        jj = bits.joint_block(c, rows[s], c, rows[s]).copy()
+        np.fill_diagonal(jj, np.nan)
+        prod = np.outer(p[s], p[s])
         with np.errstate(invalid="ignore", divide="ignore"):
-            term = (
-                np.where(jkl > 0, (jkl - pk[ia] * pl[ib]) / jkl, 0.0)
-                * y[ia]
-                / pk[ia]
-                * y[ib]
-                / pl[ib]
-            )
-        terms[filled : filled + term.size] = term
-        filled += term.size
-        # zero joint probabilities of near pairs
-        sel = in_k[either]
-        zk += np.bincount(ba[either[sel]][j_either[sel] == 0], minlength=n)
-        sel = in_l[either]
-        zl += np.bincount(bb[either[sel]][j_either[sel] == 0], minlength=n)
-    cov += float(terms[:filled].sum())
-    del terms
-    # plus the unit with itself (pi_ii(k, l) = 0)
-    zk = zk[sk] + 1
-    cov -= float((y[sk] ** 2 / (2 * pk[sk]) * zk).sum())
-    zl = zl[sl] + 1
-    cov -= float((y[sl] ** 2 / (2 * pl[sl]) * zl).sum())
-    return vk, vl, cov, joint
+            coef = np.where(jj > 0, (jj - prod) / jj, 0.0)
+        # the unit with itself has pi_ii(k,k) = pi_i(k) > 0: never a zero
+        zero = zero_mask(bits.joint_block(c, rows[s], c, everyone), s, np.arange(n)).sum(1)
+        for o, yo in enumerate(ys):
+            w = yo[s] / p[s]
+            pair = float(np.nansum(coef * np.outer(w, w)))
+            young = float((yo[s] ** 2 / p[s] * zero).sum())
+            v[o] += pair + young
+    if sk.size and sl.size:
+        jkl = bits.joint_block(k, rows[sk], l, rows[sl])
+        prod = np.outer(pk[sk], pl[sl])
+        with np.errstate(invalid="ignore", divide="ignore"):
+            coef = np.where(jkl > 0, (jkl - prod) / jkl, 0.0)
+        for o, yo in enumerate(ys):
+            cov[o] += float(coef.__mul__(np.outer(yo[sk] / pk[sk], yo[sl] / pl[sl])).sum())
+    if sk.size:
+        zk = zero_mask(bits.joint_block(k, rows[sk], l, everyone), sk, np.arange(n)).sum(1)
+        for o, yo in enumerate(ys):
+            cov[o] -= float((yo[sk] ** 2 / (2 * pk[sk]) * zk).sum())
+    if sl.size:
+        zl = zero_mask(bits.joint_block(l, rows[sl], k, everyone), sl, np.arange(n)).sum(1)
+        for o, yo in enumerate(ys):
+            cov[o] -= float((yo[sl] ** 2 / (2 * pl[sl]) * zl).sum())
 
 
-def _blocks(a: np.ndarray, b: np.ndarray):
-    """The pairs (a, b) in consecutive blocks of :data:`NEAR_BLOCK`."""
-    for s in range(0, a.size, NEAR_BLOCK):
-        yield a[s : s + NEAR_BLOCK], b[s : s + NEAR_BLOCK]
+def _linked_terms(
+    ys, sk, sl, k, l, pk, pl, bits, rows, near, near_map, engine, vk, vl, cov
+) -> None:
+    """The pair and Young's terms over the linked pairs only, added in place."""
+    n = ys.shape[1]
+    code = np.full(n, 2, dtype=np.int8)
+    code[sk] = 0
+    code[sl] = 1
+    where = np.arange(n) if near_map is None else near_map
+    # one pass over the pairs for every outcome vector; the pair terms come back in pair
+    # order and are summed once, so every sum is the very same floating-point sum as over
+    # the pairs restricted to U first
+    terms = pair_terms(
+        near[0],
+        near[1],
+        where,
+        code,
+        rows,
+        bits.bits[k],
+        bits.bits[l],
+        pk,
+        pl,
+        ys,
+        bits.n_draws,
+        engine=engine,
+        block=NEAR_BLOCK,
+    )
+    for o, yo in enumerate(ys):
+        if sk.size:
+            young = float((yo[sk] ** 2 / pk[sk] * terms.zero_k[sk]).sum())
+            vk[o] += float(terms.kk[o].sum()) + young
+        if sl.size:
+            young = float((yo[sl] ** 2 / pl[sl] * terms.zero_l[sl]).sum())
+            vl[o] += float(terms.ll[o].sum()) + young
+        cov[o] += float(terms.kl[o].sum())
+        # plus the unit with itself (pi_ii(k, l) = 0)
+        zk = terms.zero_kl_first[sk] + 1
+        cov[o] -= float((yo[sk] ** 2 / (2 * pk[sk]) * zk).sum())
+        zl = terms.zero_kl_second[sl] + 1
+        cov[o] -= float((yo[sl] ** 2 / (2 * pl[sl]) * zl).sum())
 
 
 def _near_in_population(
-    near: tuple[np.ndarray, np.ndarray], pop: np.ndarray, n_units: int
+    near: tuple[np.ndarray, np.ndarray], where: np.ndarray
 ) -> tuple[np.ndarray, np.ndarray]:
-    """The near pairs with both units in ``pop``, as positions into ``pop`` (int32 when it fits).
+    """The near pairs with both units in the population, as positions into it.
 
-    Two passes over blocks of pairs (count, then fill), so that the only
-    full-length arrays are the result.
+    ``where`` gives each unit's position in the population (-1 outside). One
+    pass over blocks of pairs, reading the second unit only where the first
+    is in; memory is the pairs kept.
     """
-    dtype = np.int32 if n_units < 2**31 else np.int64
-    where = np.full(n_units, -1, dtype=dtype)
-    where[pop] = np.arange(pop.size, dtype=dtype)
     first, second = near
-    total = 0
-    for ba, bb in _blocks(first, second):
-        total += int(np.count_nonzero((where[ba] >= 0) & (where[bb] >= 0)))
-    out_a = np.empty(total, dtype=dtype)
-    out_b = np.empty(total, dtype=dtype)
-    filled = 0
-    for ba, bb in _blocks(first, second):
-        wa, wb = where[ba], where[bb]
-        keep = (wa >= 0) & (wb >= 0)
-        m = int(np.count_nonzero(keep))
-        out_a[filled : filled + m] = wa[keep]
-        out_b[filled : filled + m] = wb[keep]
-        filled += m
-    return out_a, out_b
+    out_a, out_b = [np.zeros(0, dtype=np.int64)], [np.zeros(0, dtype=np.int64)]
+    for s in range(0, first.size, NEAR_BLOCK):
+        wa = where[first[s : s + NEAR_BLOCK]]
+        at = np.flatnonzero(wa >= 0)
+        wb = where[second[s : s + NEAR_BLOCK][at]]
+        keep = wb >= 0
+        out_a.append(wa[at[keep]])
+        out_b.append(wb[keep])
+    return np.concatenate(out_a), np.concatenate(out_b)
 
 
 def estimate_contrast(
@@ -302,6 +337,8 @@ def estimate_contrast(
     variance is their conservative estimator with joint probabilities from the
     design's own draws; for Hajek it is applied to the residuals from each
     condition's Hajek mean (linearization). Intervals are normal approximations.
+    For both estimators of one contrast, :func:`estimate_contrasts` shares the
+    joint probabilities between them.
 
     Parameters
     ----------
@@ -348,10 +385,81 @@ def estimate_contrast(
     each side's weights 1/pi at the observed assignment: far below the number of
     units observed in a condition, it says that a few units carry the estimate.
     """
+    (only,) = estimate_contrasts(
+        y,
+        observed,
+        probabilities,
+        k,
+        l,
+        bits,
+        labels=labels,
+        estimators=(estimator,),
+        outcome=outcome,
+        level=level,
+        bit_rows=bit_rows,
+        near=near,
+        units=units,
+        units_words=units_words,
+    )
+    return only
+
+
+def estimate_contrasts(
+    y: np.ndarray,
+    observed: np.ndarray,
+    probabilities: np.ndarray,
+    k: int,
+    l: int,
+    bits: ConditionBits,
+    *,
+    labels: tuple[str, ...],
+    estimators: Sequence[Estimator] = ("hajek", "horvitz-thompson"),
+    outcome: str = "outcome",
+    level: float = 0.95,
+    bit_rows: np.ndarray | None = None,
+    near: tuple[np.ndarray, np.ndarray] | None = None,
+    units: np.ndarray | None = None,
+    units_words: str | None = None,
+    engine: Engine = "auto",
+) -> tuple[ContrastEstimate, ...]:
+    """Estimate tau = mu(k) - mu(l) with several estimators that share their joint probabilities.
+
+    The same estimates as one call of :func:`estimate_contrast` per estimator
+    (Aronow & Samii 2017; to the last digit), computed together: the
+    estimators of one contrast share its population, its linked pairs and
+    every joint probability, and differ only in the outcome vector of the
+    variance (the Hajek residuals, or the raw outcome for Horvitz–Thompson),
+    so the pairs are visited once for all of them.
+
+    Parameters
+    ----------
+    y, observed, probabilities, k, l, bits, labels
+        As for :func:`estimate_contrast`.
+    estimators
+        The estimators, each ``"hajek"`` or ``"horvitz-thompson"``.
+    outcome, level, bit_rows, near, units, units_words
+        As for :func:`estimate_contrast`.
+    engine
+        "auto", "numba" or "numpy": the kernel of the linked-pairs sums
+        (:mod:`geoexp._engine`); the same numbers either way.
+
+    Returns
+    -------
+    tuple of ContrastEstimate
+        One estimate per estimator, in the order asked.
+
+    Raises
+    ------
+    geoexp.errors.InputError
+        ``y`` has missing values, or an estimator is not one of the two.
+    """
     y = np.asarray(y, dtype=np.float64)
     observed = np.asarray(observed)
     if np.isnan(y).any():
         raise InputError("the outcome has missing values; every unit needs one")
+    for estimator in estimators:
+        if estimator not in ("hajek", "horvitz-thompson"):
+            raise InputError(f"estimator must be 'hajek' or 'horvitz-thompson', got {estimator!r}")
     pk, pl = probabilities[:, k], probabilities[:, l]
     eligible = (pk > 0) & (pl > 0)
     # units that can be exposed but never be in the reference condition: positivity losses
@@ -367,46 +475,68 @@ def estimate_contrast(
     in_k, in_l = d == k, d == l
     tk = (yk[in_k] / qk[in_k]).sum()
     tl = (yk[in_l] / ql[in_l]).sum()
-    if estimator == "horvitz-thompson":
-        mk, ml = tk / max(n, 1), tl / max(n, 1)
-        resid = yk
-    elif estimator == "hajek":
-        nk = (1 / qk[in_k]).sum()
-        nl = (1 / ql[in_l]).sum()
-        mk = tk / nk if nk > 0 else np.nan
-        ml = tl / nl if nl > 0 else np.nan
-        resid = np.where(in_k, yk - mk, np.where(in_l, yk - ml, 0.0))
-    else:
-        raise InputError(f"estimator must be 'hajek' or 'horvitz-thompson', got {estimator!r}")
-    near_pop = None
+    means, resids = [], []
+    for estimator in estimators:
+        if estimator == "horvitz-thompson":
+            mk, ml = tk / max(n, 1), tl / max(n, 1)
+            resid = yk
+        else:
+            nk = (1 / qk[in_k]).sum()
+            nl = (1 / ql[in_l]).sum()
+            mk = tk / nk if nk > 0 else np.nan
+            ml = tl / nl if nl > 0 else np.nan
+            resid = np.where(in_k, yk - mk, np.where(in_l, yk - ml, 0.0))
+        means.append((mk, ml))
+        resids.append(resid)
+    # the linked pairs are read in place, through each unit's position in the population
+    near_map = None
     if near is not None:
-        near_pop = _near_in_population(near, pop, y.size)
+        near_map = np.full(y.size, -1, dtype=np.int64)
+        near_map[pop] = np.arange(n)
     # many small matrix products of joint-probability blocks: one BLAS thread, so a busy
     # machine (or several workers on it) is not oversubscribed
     with compute_threads():
-        vk, vl, cov, joint = variance_terms(resid, d, k, l, qk, ql, bits, rows, near_pop)
-    var = max((vk + vl - 2 * cov) / max(n, 1) ** 2, 0.0)
-    est = mk - ml
-    se = float(np.sqrt(var))
+        vk, vl, cov, joint = variance_terms(
+            np.column_stack(resids) if resids else np.zeros((n, 0)),
+            d,
+            k,
+            l,
+            qk,
+            ql,
+            bits,
+            rows,
+            near,
+            near_map=near_map,
+            engine=engine,
+            columns=True,
+        )
     z = norm.ppf(0.5 + level / 2)
-    return ContrastEstimate(
-        exposure=labels[k],
-        reference=labels[l],
-        estimator=estimator,
-        outcome=outcome,
-        estimate=float(est),
-        std_error=se,
-        ci_low=float(est - z * se),
-        ci_high=float(est + z * se),
-        mean_exposure=float(mk),
-        mean_reference=float(ml),
-        n_units=int(n),
-        n_exposure=int(in_k.sum()),
-        n_reference=int(in_l.sum()),
-        n_excluded=int(lost.sum()),
-        level=level,
-        joint=joint,
-        units=units_words or "every unit with positive probability of both conditions",
-        ess_exposure=float(kish_ess(1 / qk[in_k])) if in_k.any() else 0.0,
-        ess_reference=float(kish_ess(1 / ql[in_l])) if in_l.any() else 0.0,
-    )
+    out = []
+    for o, (estimator, (mk, ml)) in enumerate(zip(estimators, means, strict=True)):
+        var = max((float(vk[o]) + float(vl[o]) - 2 * float(cov[o])) / max(n, 1) ** 2, 0.0)
+        est = mk - ml
+        se = float(np.sqrt(var))
+        out.append(
+            ContrastEstimate(
+                exposure=labels[k],
+                reference=labels[l],
+                estimator=estimator,
+                outcome=outcome,
+                estimate=float(est),
+                std_error=se,
+                ci_low=float(est - z * se),
+                ci_high=float(est + z * se),
+                mean_exposure=float(mk),
+                mean_reference=float(ml),
+                n_units=int(n),
+                n_exposure=int(in_k.sum()),
+                n_reference=int(in_l.sum()),
+                n_excluded=int(lost.sum()),
+                level=level,
+                joint=joint,
+                units=units_words or "every unit with positive probability of both conditions",
+                ess_exposure=float(kish_ess(1 / qk[in_k])) if in_k.any() else 0.0,
+                ess_reference=float(kish_ess(1 / ql[in_l])) if in_l.any() else 0.0,
+            )
+        )
+    return tuple(out)
