@@ -197,9 +197,10 @@ def analyse(
     labels = mapping.labels
     plan = _plan_rows(design, probs, floor, notes)
 
-    def estimate(est: Estimand) -> tuple[ContrastEstimate, ...]:
-        # both estimators of a row share its linked pairs and joint probabilities
-        return estimate_contrasts(
+    other: Estimator = "horvitz-thompson" if estimator == "hajek" else "hajek"
+    # both estimators of a row share its linked pairs and joint probabilities
+    effects: list[tuple[ContrastEstimate, ...]] = [
+        estimate_contrasts(
             y,
             observed,
             probs,
@@ -214,9 +215,11 @@ def analyse(
             units=est.units,
             units_words=est.who,
         )
-
-    other: Estimator = "horvitz-thompson" if estimator == "hajek" else "hajek"
-    effects = [estimate(est) for _, est, _ in plan]
+        for _, est, _ in plan
+    ]
+    # the linked pairs and the joint-probability bits serve the variances only: let them go
+    # before the tests' pass over the draws, so that the two peaks of memory do not add up
+    del near, bits
     # the other conditions' effects in each test's model: the main rows' estimates
     plug = np.zeros(mapping.n_conditions)
     ratios = np.ones(mapping.n_conditions)
