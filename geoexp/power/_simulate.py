@@ -167,10 +167,13 @@ def _num(value: float, digits: int) -> str:
 def _sim_conditions(bits: np.ndarray, n_sims: int) -> np.ndarray:
     """Condition code of every held unit in draws 0 .. n_sims - 1: (n_held, n_sims), int8."""
     n_words = -(-n_sims // _WORD)
-    out = np.zeros((bits.shape[1], n_sims), dtype=np.int8)
-    for c in range(bits.shape[0]):
-        out[unpack_bits(bits[c][:, :n_words])[:, :n_sims].astype(bool)] = c
-    return out
+    out = np.zeros((bits.shape[1], n_sims), dtype=np.uint8)
+    # the largest code whose bit is set (the conditions of a draw are exclusive), in place
+    for c in range(1, bits.shape[0]):
+        on = unpack_bits(bits[c][:, :n_words])[:, :n_sims]
+        np.multiply(on, np.uint8(c), out=on)
+        np.maximum(out, on, out=out)
+    return out.view(np.int8)
 
 
 def _ordered_blocks(work: Callable[[int], T], n_blocks: int) -> Iterator[T]:
