@@ -53,6 +53,8 @@ T = TypeVar("T")
 # unpacked bits and their products are float64: significance() counts ties within a
 # relative 1e-9, which float32 sums of thousands of weights would not honour
 _BLOCK_BYTES = 32 * 2**20
+# fewest units in a block of the reference draws' products
+_MIN_BLOCK_UNITS = 256
 
 
 @dataclass(frozen=True)
@@ -244,7 +246,7 @@ def _contrast_draws(
     first, end = n_sims, n_sims + n_draws
     w0, w1 = first // _WORD, -(-end // _WORD)
     lo = first - w0 * _WORD
-    step = max(256, _BLOCK_BYTES // (8 * max(n_cols, (w1 - w0) * _WORD)))
+    step = max(_MIN_BLOCK_UNITS, _BLOCK_BYTES // (8 * max(n_cols, (w1 - w0) * _WORD)))
     starts = range(0, rows.size, step)
 
     def block(i: int) -> np.ndarray:
@@ -521,7 +523,8 @@ def simulate_power(
     Memory: bits of every condition for the units in some contrast over R
     draws (n_conditions * n_units_used * R / 8 bytes), outcomes and weights
     (about 3 * n_units_in_contrast * n_sims * 8 bytes), the reference statistics
-    (n_sims * n_draws * 8 bytes), and blocks of unpacked bits of at most 32 MB.
+    (n_sims * n_draws * 8 bytes), and one block of about 32 MB (unpacked bits and columns) per
+    thread.
 
     Parameters
     ----------
