@@ -521,6 +521,14 @@ def test_outcomes_do_not_depend_on_the_number_of_threads(lattice, monkeypatch):
     with limit_threads(1):
         _, one = _simulate(lattice, model, **common)
     np.testing.assert_array_equal(many["outcomes"], one["outcomes"])
+    # the reference draws' sums, block products added in block order, are the same too
+    monkeypatch.setattr(engine, "_MIN_BLOCK_UNITS", 8)
+    _, many = _simulate(lattice, model, coverage=("treated",), **common)
+    with limit_threads(1):
+        _, one = _simulate(lattice, model, coverage=("treated",), **common)
+    assert many["treated"]["rows"].size > 3 * 8  # several blocks
+    for key in ("null", "u", "v", "low", "high"):
+        np.testing.assert_array_equal(many["treated"][key], one["treated"][key])
     # [A] the blocks are independent streams: no two blocks repeat each other's draws
     y = one["outcomes"]
     assert not any(np.array_equal(y[0:16], y[b : b + 16]) for b in range(16, y.shape[0] - 15, 16))

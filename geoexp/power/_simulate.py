@@ -22,14 +22,16 @@ columns per simulation in the same products (:func:`inverted_intervals`).
 
 from __future__ import annotations
 
+from collections import deque
+from collections.abc import Callable, Iterator
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
-from typing import TYPE_CHECKING, Literal
+from typing import TYPE_CHECKING, Literal, TypeVar
 
 import numpy as np
 import pandas as pd
 
-from geoexp._engine import matrix_threads, thread_count
+from geoexp._engine import compute_threads, thread_count
 from geoexp._rng import RngLike, Stream, as_seed_sequence, child_sequence
 from geoexp.errors import InputError
 from geoexp.estimate import contrast_units
@@ -47,9 +49,12 @@ if TYPE_CHECKING:
     from geoexp.design import Design
 
 _WORD = 64
+T = TypeVar("T")
 # unpacked bits and their products are float64: significance() counts ties within a
 # relative 1e-9, which float32 sums of thousands of weights would not honour
 _BLOCK_BYTES = 32 * 2**20
+# fewest units in a block of the reference draws' products
+_MIN_BLOCK_UNITS = 256
 
 
 @dataclass(frozen=True)
@@ -164,10 +169,35 @@ def _num(value: float, digits: int) -> str:
 def _sim_conditions(bits: np.ndarray, n_sims: int) -> np.ndarray:
     """Condition code of every held unit in draws 0 .. n_sims - 1: (n_held, n_sims), int8."""
     n_words = -(-n_sims // _WORD)
-    out = np.zeros((bits.shape[1], n_sims), dtype=np.int8)
-    for c in range(bits.shape[0]):
-        out[unpack_bits(bits[c][:, :n_words])[:, :n_sims].astype(bool)] = c
-    return out
+    out = np.zeros((bits.shape[1], n_sims), dtype=np.uint8)
+    # the largest code whose bit is set (the conditions of a draw are exclusive), in place
+    for c in range(1, bits.shape[0]):
+        on = unpack_bits(bits[c][:, :n_words])[:, :n_sims]
+        np.multiply(on, np.uint8(c), out=on)
+        np.maximum(out, on, out=out)
+    return out.view(np.int8)
+
+
+def _ordered_blocks(work: Callable[[int], T], n_blocks: int) -> Iterator[T]:
+    """``work(b)`` for b = 0 .. n_blocks - 1, yielded in that order, on the engine's threads.
+
+    At most one block per thread is in flight, so memory stays within a few
+    blocks; the caller adds the results in block order, so its sums do not
+    depend on the number of threads.
+    """
+    n_threads = min(thread_count(), n_blocks)
+    if n_threads <= 1:
+        for b in range(n_blocks):
+            yield work(b)
+        return
+    with ThreadPoolExecutor(n_threads) as pool:
+        pending: deque = deque()
+        for b in range(n_blocks):
+            pending.append(pool.submit(work, b))
+            if len(pending) >= n_threads:
+                yield pending.popleft().result()
+        while pending:
+            yield pending.popleft().result()
 
 
 def _contrast_draws(
@@ -197,10 +227,14 @@ def _contrast_draws(
     (plug of k and l taken as 0) give the statistic ``u[s, r] - x * v[s, r]``,
     returned as (u, v), each (n_sims, n_draws).
 
-    The sums over the units of each draw's conditions are matrix products of
-    unpacked bits (draws x units) with one weight matrix holding every
-    simulation's columns, accumulated over blocks of units so that memory
-    stays within a few blocks of about 32 MB whatever the number of units.
+    The sums over the units of each draw's conditions are one matrix product
+    per block of units: the draws' indicators of k and of l, each unit's
+    scaled by its 1 / pi (units x 2 n_draws), times one matrix of every
+    simulation's columns (y_s, 1, and with ``plug`` each unit's plugged
+    effect and its indicator of k in trial s). The blocks run on the
+    engine's threads, BLAS on one thread each, and are added in block order,
+    so the result is the same on any number of threads; memory stays within
+    a few blocks of about 32 MB whatever the number of units.
     """
     n_cols = n_sims + 1 + (0 if plug is None else 2 * n_sims)
     a, b = n_sims + 1, 2 * n_sims + 1
@@ -208,39 +242,36 @@ def _contrast_draws(
         plug = plug.copy()
         plug[[k, l]] = 0.0
         plug = np.nan_to_num(plug, nan=0.0)
-    sums_k = np.zeros((n_draws, n_cols))
-    sums_l = np.zeros((n_draws, n_cols))
+        choices = [row[None, :] for row in plug]
     first, end = n_sims, n_sims + n_draws
     w0, w1 = first // _WORD, -(-end // _WORD)
     lo = first - w0 * _WORD
-    step = max(256, _BLOCK_BYTES // (8 * max(n_cols, (w1 - w0) * _WORD)))
-    sims = np.arange(n_sims)
-    with matrix_threads():
-        for start in range(0, rows.size, step):
-            rr = rows[start : start + step]
-            qk, ql = 1 / pk[start : start + step], 1 / pl[start : start + step]
-            ys, cs = y[rr], cond[rr]
-            wk = np.empty((rr.size, n_cols))
-            wl = np.empty((rr.size, n_cols))
-            wk[:, :n_sims] = ys * qk[:, None]
-            wk[:, n_sims] = qk
-            wl[:, :n_sims] = ys * ql[:, None]
-            wl[:, n_sims] = ql
-            if plug is not None:
-                shift = plug[cs, sims]
-                wk[:, a:b] = shift * qk[:, None]
-                wl[:, a:b] = shift * ql[:, None]
-                on_k = cs == k
-                wk[:, b:] = on_k * qk[:, None]
-                wl[:, b:] = on_k * ql[:, None]
-                del shift, on_k
-            del ys, cs
-            uk = unpack_bits(bits[k][rr, w0:w1], np.float64)[:, lo : lo + n_draws]
-            sums_k += uk.T @ wk
-            del uk
-            ul = unpack_bits(bits[l][rr, w0:w1], np.float64)[:, lo : lo + n_draws]
-            sums_l += ul.T @ wl
-            del ul, wk, wl
+    step = max(_MIN_BLOCK_UNITS, _BLOCK_BYTES // (8 * max(n_cols, (w1 - w0) * _WORD)))
+    starts = range(0, rows.size, step)
+
+    def block(i: int) -> np.ndarray:
+        start = starts[i]
+        rr = rows[start : start + step]
+        scaled = np.empty((rr.size, 2 * n_draws))
+        for side, (c, p) in enumerate(((k, pk), (l, pl))):
+            on = unpack_bits(bits[c][rr, w0:w1])[:, lo : lo + n_draws]
+            np.divide(
+                on, p[start : start + step, None], out=scaled[:, side * n_draws :][:, :n_draws]
+            )
+        cols = np.empty((rr.size, n_cols))
+        cols[:, :n_sims] = y[rr]
+        cols[:, n_sims] = 1.0
+        if plug is not None:
+            cs = cond[rr]
+            np.choose(cs, choices, out=cols[:, a:b])
+            np.equal(cs, k, out=cols[:, b:], casting="unsafe")
+        return scaled.T @ cols
+
+    sums = np.zeros((2 * n_draws, n_cols))
+    with compute_threads():
+        for part in _ordered_blocks(block, len(starts)):
+            sums += part
+    sums_k, sums_l = sums[:n_draws], sums[n_draws:]
     nk, nl = sums_k[:, [n_sims]], sums_l[:, [n_sims]]
     null = np.ascontiguousarray(
         contrast_statistic(sums_k[:, :n_sims], nk, sums_l[:, :n_sims], nl).T
@@ -492,7 +523,8 @@ def simulate_power(
     Memory: bits of every condition for the units in some contrast over R
     draws (n_conditions * n_units_used * R / 8 bytes), outcomes and weights
     (about 3 * n_units_in_contrast * n_sims * 8 bytes), the reference statistics
-    (n_sims * n_draws * 8 bytes), and blocks of unpacked bits of at most 32 MB.
+    (n_sims * n_draws * 8 bytes), and one block of about 32 MB (unpacked bits and columns) per
+    thread.
 
     Parameters
     ----------
