@@ -62,6 +62,10 @@ def test_caveat_quotes_the_summary_numbers_and_reads_them_against_the_target():
     # printed in a table cell: no hyphen or slash for a line to break a word at
     assert "/" not in text and not re.search(r"\w-\w", text), text
     assert ("too narrow" in text) == (low < TARGET_COVERAGE)
+    if low < TARGET_COVERAGE:
+        # the caveat names the design where the lowest coverage was measured
+        at = min(cells, key=lambda c: c["lowest"])["lowest_at"].split(", ")
+        assert f"{at[0]} design" in text, text
 
 
 def test_caveat_follows_the_numbers_it_is_given():
@@ -72,7 +76,12 @@ def test_caveat_follows_the_numbers_it_is_given():
         "trials_with_intervals": 200,
         "level": 0.95,
         "coverage": {
-            "spillover, additive": {"lowest": 0.9, "lowest_mc_se": 0.021, "highest": 0.96},
+            "spillover, additive": {
+                "lowest": 0.9,
+                "lowest_mc_se": 0.021,
+                "lowest_at": "saturation, null, spillover 0-150 m",
+                "highest": 0.96,
+            },
             "spillover, rate ratio": {"lowest": 0.94, "lowest_mc_se": 0.017, "highest": 0.97},
             "direct, additive": {"lowest": 0.95, "lowest_mc_se": 0.015, "highest": 0.96},
         },
@@ -80,6 +89,9 @@ def test_caveat_follows_the_numbers_it_is_given():
     low = interval_caveat("spillover", fake)
     assert "90.0% (± 2.1, one Monte Carlo standard error) to 97.0% of trials" in low
     assert "too narrow" in low and "abc1234" in low and "1 January 2000" in low
+    # the lowest cell is named, its band without a hyphen for a printed line to break at
+    assert "(lowest: the additive interval of the spillover 0 to 150 m row, " in low
+    assert "saturation design, under no effect)" in low
     fine = interval_caveat("direct", fake)
-    assert "95.0% (± 1.5" in fine and "too narrow" not in fine
+    assert "95.0% (± 1.5" in fine and "too narrow" not in fine and "lowest:" not in fine
     assert interval_caveat("spillover", {}) == ""

@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import datetime as dt
 import json
+import re
 from functools import lru_cache
 from importlib import resources
 from typing import Literal
@@ -63,14 +64,16 @@ def interval_caveat(kind: RowKind, summary: dict | None = None) -> str:
         The coverage range measured for the additive and rate-ratio intervals of
         that kind of row, with the trials, designs, commit and date behind it,
         and, when the lowest is below :data:`TARGET_COVERAGE`, the reading that
-        the intervals are somewhat too narrow; empty when nothing was measured.
+        the intervals are somewhat too narrow, naming the interval, row, design
+        and scenario of the lowest; empty when nothing was measured.
     """
     summary = calibration_summary() if summary is None else summary
-    cells = [v for key, v in summary.get("coverage", {}).items() if key.startswith(f"{kind}, ")]
-    if not cells:
+    found = {k: v for k, v in summary.get("coverage", {}).items() if k.startswith(f"{kind}, ")}
+    if not found:
         return ""
-    low = min(cells, key=lambda c: c["lowest"])
-    high = max(c["highest"] for c in cells)
+    low_key = min(found, key=lambda k: found[k]["lowest"])
+    low = found[low_key]
+    high = max(c["highest"] for c in found.values())
     level = int(round(100 * summary.get("level", 0.95)))
     rows = "the treated row" if kind == "direct" else "spillover rows"
     text = (
@@ -84,4 +87,23 @@ def interval_caveat(kind: RowKind, summary: dict | None = None) -> str:
     )
     if low["lowest"] < TARGET_COVERAGE:
         text += ": read them as somewhat too narrow"
+        if low.get("lowest_at"):
+            text += f" (lowest: {_where(low_key.split(', ', 1)[1], low['lowest_at'])})"
     return text
+
+
+_SCENARIOS = {"null": "no effect", "additive": "additive effects", "rate ratio": "rate ratios"}
+
+
+def _where(interval: str, at: str) -> str:
+    """Where the lowest coverage was, in words for a table cell (no hyphen to break a line at).
+
+    ``"rate ratio"`` and ``"saturation, null, spillover 0-150 m"`` read "the rate
+    ratio interval of the spillover 0 to 150 m row, saturation design, under no effect".
+    """
+    design, scenario, row = (part.strip() for part in at.split(",", 2))
+    row = re.sub(r"(\d)-(\d)", r"\1 to \2", row)
+    return (
+        f"the {interval} interval of the {row} row, {design} design, under "
+        f"{_SCENARIOS.get(scenario, scenario)}"
+    )
