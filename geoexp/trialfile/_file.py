@@ -6,7 +6,7 @@ import json
 import os
 import shutil
 import sqlite3
-from collections.abc import Callable, Iterator
+from collections.abc import Callable, Iterator, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import TYPE_CHECKING
@@ -224,6 +224,24 @@ class TrialFile:
         if self.id_column in frame.columns:
             frame = frame.set_index(self.id_column)
         return frame
+
+    def read_columns(self, layer: str, columns: Sequence[str]) -> pd.DataFrame:
+        """Some columns of a layer, without its geometry, indexed by unit id.
+
+        Much faster than :meth:`read` on a large layer when the geometry is
+        not needed (parsing the geometry is most of a read).
+        """
+        if layer not in self.layers:
+            raise InputError(f"trial file {str(self.path)!r} has no layer {layer!r} yet")
+        wanted = [self.id_column, *(c for c in columns if c != self.id_column)]
+        present = set(pyogrio.read_info(self.path, layer=layer)["fields"])
+        missing = [c for c in wanted if c not in present]
+        if missing:
+            raise InputError(
+                f"trial file {str(self.path)!r}, layer {layer!r}: no column(s) {missing}"
+            )
+        frame = pyogrio.read_dataframe(self.path, layer=layer, columns=wanted, read_geometry=False)
+        return pd.DataFrame(frame).set_index(self.id_column)[list(wanted[1:])]
 
     def _is_spatial(self, layer: str) -> bool:
         for row in pyogrio.list_layers(self.path):
