@@ -438,3 +438,28 @@ def test_arrow_writes_store_what_the_row_writer_stores(tmp_path):
     info = [pyogrio.read_info(tmp_path / f, layer="units") for f in ("arrow.gpkg", "rows.gpkg")]
     assert list(info[0]["dtypes"]) == list(info[1]["dtypes"])
     assert info[0]["geometry_type"] == info[1]["geometry_type"] == "LineString"
+
+
+def test_shared_reads_read_a_layer_once_and_see_writes(drawn, monkeypatch):
+    from geoexp.trialfile import shared_reads
+
+    path, _ = drawn
+    tf = TrialFile.open(path)
+    calls = []
+    real = gpd.read_file
+    monkeypatch.setattr(
+        gpd, "read_file", lambda *a, **k: calls.append(k.get("layer")) or real(*a, **k)
+    )
+    alone = tf.units()
+    with shared_reads():
+        first = tf.units()
+        first["baseline_copy"] = 1  # a caller's change stays in its own frame
+        second = TrialFile.open(path).units()
+        assert calls.count("units") == 2  # once outside, once inside
+        pd.testing.assert_frame_equal(pd.DataFrame(second), pd.DataFrame(alone))
+        assert "baseline_copy" not in second.columns
+        tf.write_layers({"notes": pd.DataFrame({"key": ["a"], "value": ["b"]})})
+        TrialFile.open(path).units()  # the file was replaced: read again
+        assert calls.count("units") == 3
+    TrialFile.open(path).units()
+    assert calls.count("units") == 4

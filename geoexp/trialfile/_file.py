@@ -1,6 +1,7 @@
 from __future__ import annotations
 
 import contextlib
+import contextvars
 import datetime as dt
 import json
 import os
@@ -34,6 +35,27 @@ SUPERSEDED_ASSIGNMENTS = "superseded_assignments"
 SUPERSEDED_OUTCOMES = "superseded_outcomes"
 SUPERSEDED_RESULTS = "superseded_results"
 SUPERSEDED_META = "superseded_meta"
+
+
+# Layers read inside shared_reads(): (path, layer, inode, size, mtime) -> frame
+_SHARED_READS: contextvars.ContextVar[dict | None] = contextvars.ContextVar(
+    "geoexp_shared_trial_reads", default=None
+)
+
+
+@contextlib.contextmanager
+def shared_reads() -> Iterator[None]:
+    """Inside, each layer of a trial file is read from disk once while the file is unchanged.
+
+    For work that reads the same large layer in several places (a report reads
+    the units for its map and for its unit flow). A write replaces the file,
+    so a later read sees the new layer. The frames are released on exit.
+    """
+    token = _SHARED_READS.set({})
+    try:
+        yield
+    finally:
+        _SHARED_READS.reset(token)
 
 
 def _now() -> str:
@@ -235,9 +257,21 @@ class TrialFile:
         )
 
     def read(self, layer: str) -> pd.DataFrame:
-        """A layer indexed by unit id (if it has the id column)."""
+        """A layer indexed by unit id (if it has the id column).
+
+        Inside :func:`shared_reads`, a layer of an unchanged file is read from
+        disk once and handed out again (as a copy) to later reads.
+        """
         if layer not in self.layers:
             raise InputError(f"trial file {str(self.path)!r} has no layer {layer!r} yet")
+        shared = _SHARED_READS.get()
+        key = None
+        if shared is not None:
+            stat = self.path.stat()
+            key = (str(self.path.resolve()), layer, stat.st_ino, stat.st_size, stat.st_mtime_ns)
+            if key in shared:
+                # pandas copies on write: the caller may change its copy, never the shared one
+                return shared[key].copy(deep=False)
         frame = (
             gpd.read_file(self.path, layer=layer, engine="pyogrio")
             if self._is_spatial(layer)
@@ -245,6 +279,9 @@ class TrialFile:
         )
         if self.id_column in frame.columns:
             frame = frame.set_index(self.id_column)
+        if shared is not None:
+            shared[key] = frame
+            return frame.copy(deep=False)
         return frame
 
     def read_columns(self, layer: str, columns: Sequence[str]) -> pd.DataFrame:
