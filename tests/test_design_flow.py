@@ -64,3 +64,20 @@ def test_recorded_eligibility_is_one_box(demo_design):
     assert flow.recorded
     assert [s.label for s in flow.steps] == ["All units in the layer", "Eligible (as recorded)"]
     assert flow.steps[-1].n_units == int(other.sum())
+
+
+def test_flow_of_units_is_the_design_flow(demo_design):
+    # The flow from spec, units and eligibility alone (no graph) is the design's flow.
+    from geoexp.design import unit_flow_of
+
+    design, assignment = demo_design
+    full = unit_flow(design, assignment, n_analysed=design.units.n - 3)
+    alone = unit_flow_of(
+        design.spec,
+        design.units,
+        design.eligible,
+        n_treated=assignment.n_treated,
+        n_analysed=design.units.n - 3,
+    )
+    assert alone == full
+    assert unit_flow_of(design.spec, design.units, design.eligible) == unit_flow(design)

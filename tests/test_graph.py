@@ -59,11 +59,12 @@ def _mixed_layer(seed: int, n: int = 120) -> np.ndarray:
 # ---------------------------------------------------------------- euclidean
 
 
+@pytest.mark.parametrize("engine", ["numba", "numpy"])
 @pytest.mark.parametrize("seed", [0, 1])
 @pytest.mark.parametrize("max_distance", [5.0, 40.0])
-def test_euclidean_matches_brute_force_shapely(seed, max_distance):
+def test_euclidean_matches_brute_force_shapely(seed, max_distance, engine):
     geoms = _mixed_layer(seed)
-    graph = ExposureGraph.from_geometries(geoms, max_distance)
+    graph = ExposureGraph.from_geometries(geoms, max_distance, engine=engine)
     got = _pair_dict(graph)
     # Reference: shapely.distance over all pairs (GEOS), no spatial index.
     want = _brute_force(geoms, max_distance)
@@ -85,10 +86,11 @@ def test_euclidean_size_buckets_match_brute_force(monkeypatch):
     geoms = np.concatenate([small, big])
     bounds = shapely.bounds(geoms)
     assert len(_euclidean._size_buckets(np.hypot(*(bounds[:, 2:] - bounds[:, :2]).T))) > 1
-    graph = ExposureGraph.from_geometries(geoms, 60.0)
-    got, want = _pair_dict(graph), _brute_force(geoms, 60.0)
-    assert got.keys() == want.keys()
-    np.testing.assert_allclose([got[k] for k in want], list(want.values()), atol=1e-9)
+    want = _brute_force(geoms, 60.0)
+    for engine in ("numba", "numpy"):  # the box screen's two twins
+        got = _pair_dict(ExposureGraph.from_geometries(geoms, 60.0, engine=engine))
+        assert got.keys() == want.keys()
+        np.testing.assert_allclose([got[k] for k in want], list(want.values()), atol=1e-9)
 
 
 def test_points_match_libpysal_distance_band():

@@ -654,3 +654,33 @@ def test_observed_points_read_every_date_format_as_the_count_does(units, region)
         frame, pre=YEAR_2024, post=YEAR_2025, type_column="incident_type", keep_types=[some]
     ).points(units.crs)
     assert len(only) == int((frame["incident_type"] == some).sum())
+
+
+def test_snap_matches_nearest_query_with_id_tie_break():
+    # Reference: shapely's STRtree.query_nearest(max_distance, all_matches=True) gives every
+    # unit at the nearest distance (within the tolerance, inclusive); the pick is the smallest
+    # id among them, and a tie is more than one. Lines of a lattice make ties at the nodes.
+    from geoexp.outcomes._snap import id_rank, snap
+
+    rng = np.random.default_rng(5)
+    nodes = [(i * 100.0, j * 100.0) for i in range(6) for j in range(6)]
+    lines = [shapely.LineString([(x, y), (x + 100.0, y)]) for x, y in nodes if x < 500]
+    lines += [shapely.LineString([(x, y), (x, y + 100.0)]) for x, y in nodes if y < 500]
+    lines += [shapely.LineString(rng.uniform(0, 500, (3, 2))) for _ in range(20)]
+    geometry = np.asarray(lines, dtype=object)
+    ids = rng.permutation(len(lines)) * 3 + 1
+    xy = np.vstack([rng.uniform(-40, 540, (400, 2)), np.asarray(nodes), [[50.0, 30.0]]])
+    got = snap(xy[:, 0], xy[:, 1], geometry, id_rank(ids), 30.0)
+    tree = shapely.STRtree(geometry)
+    (p, u), d = tree.query_nearest(
+        shapely.points(xy), max_distance=30.0, all_matches=True, return_distance=True
+    )
+    for k in range(len(xy)):
+        mine = u[p == k]
+        if mine.size == 0:
+            assert got.unit[k] == -1 and np.isnan(got.distance[k]) and not got.tied[k]
+            continue
+        assert got.unit[k] == mine[np.argmin(ids[mine])]
+        assert got.distance[k] == d[p == k][0]
+        assert got.tied[k] == (mine.size > 1)
+    assert got.tied.sum() >= 30 and (got.unit == -1).sum() > 0

@@ -81,3 +81,27 @@ def test_user_text_with_math_characters_is_drawn_as_text(odd_trial, analysis, tm
     page, markdown = write_report(odd, tmp_path / "report.html", trial=odd_trial)
     assert ODD_NAME in page.read_text(encoding="utf-8")
     assert f"# {ODD_NAME}: results" in markdown.read_text(encoding="utf-8")
+
+
+def test_plan_flow_is_the_flow_of_the_rebuilt_design(analysis, trial):
+    # The report counts its flow from the stored units without rebuilding the exposure graph;
+    # it must be the flow of the design rebuilt in full (design_from_trial, the analysis' own).
+    from geoexp.design import unit_flow
+    from geoexp.report._plan import plan_facts
+    from geoexp.trialfile import design_from_trial
+
+    design, drawn = design_from_trial(trial)
+    analysed = int(analysis.per_unit["post"].notna().sum())
+    _, flow = plan_facts(analysis, trial)
+    assert flow == unit_flow(design, drawn, n_analysed=analysed)
+    assert flow.n_treated == int(drawn.treated.sum()) > 0
+
+
+def test_read_columns_is_read_without_geometry(trial):
+    whole = trial.assignment()
+    some = trial.read_columns("assignment", ["treated", "eligible"])
+    assert list(some.columns) == ["treated", "eligible"]
+    assert some.index.equals(whole.index)
+    assert (some["treated"] == whole["treated"]).all()
+    with pytest.raises(ValueError, match="no column"):
+        trial.read_columns("assignment", ["no_such_column"])

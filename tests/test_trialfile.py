@@ -405,3 +405,61 @@ def test_removed_units_are_named(drawn):
     assert any("unit ids" in p and "2 removed (3, 4)" in p for p in found.problems)
     with pytest.raises(TrialIntegrityError, match="unit ids of the units layer changed"):
         verify_trial(path)
+
+
+def test_arrow_writes_store_what_the_row_writer_stores(tmp_path):
+    # Layers of numbers, booleans, text and geometry go through Arrow; read back, they must be
+    # what geopandas' own writer (GDAL feature by feature) stores, value for value.
+    from geoexp.trialfile._file import _arrow_safe, _write
+
+    frame = gpd.GeoDataFrame(
+        {
+            "unit_id": np.arange(5, dtype=np.int64) * 7,
+            "name": pd.array(["a", "é", None, "Straße", ""], dtype="str"),
+            "rate": [1.5, np.nan, 3.0, np.inf, -2.25],
+            "small": np.arange(5, dtype=np.int32),
+            "treated": [True, False, True, False, False],
+        },
+        geometry=[shapely.LineString([(i, 0.5), (i + 0.25, 1)]) for i in range(5)],
+        crs="EPSG:32633",
+    )
+    assert _arrow_safe(frame)
+    assert not _arrow_safe(frame.set_index("unit_id"))  # an index column: the row writer
+    assert not _arrow_safe(frame.assign(when=pd.Timestamp("2026-01-01")))
+    _write(tmp_path / "arrow.gpkg", frame, "units")
+    frame.to_file(tmp_path / "rows.gpkg", layer="units", driver="GPKG", engine="pyogrio")
+    a = pyogrio.read_dataframe(tmp_path / "arrow.gpkg", layer="units")
+    b = pyogrio.read_dataframe(tmp_path / "rows.gpkg", layer="units")
+    pd.testing.assert_frame_equal(
+        pd.DataFrame(a.drop(columns="geometry")), pd.DataFrame(b.drop(columns="geometry"))
+    )
+    assert (a.geometry.to_wkb() == b.geometry.to_wkb()).all()
+    assert a.crs == b.crs
+    info = [pyogrio.read_info(tmp_path / f, layer="units") for f in ("arrow.gpkg", "rows.gpkg")]
+    assert list(info[0]["dtypes"]) == list(info[1]["dtypes"])
+    assert info[0]["geometry_type"] == info[1]["geometry_type"] == "LineString"
+
+
+def test_shared_reads_read_a_layer_once_and_see_writes(drawn, monkeypatch):
+    from geoexp.trialfile import shared_reads
+
+    path, _ = drawn
+    tf = TrialFile.open(path)
+    calls = []
+    real = gpd.read_file
+    monkeypatch.setattr(
+        gpd, "read_file", lambda *a, **k: calls.append(k.get("layer")) or real(*a, **k)
+    )
+    alone = tf.units()
+    with shared_reads():
+        first = tf.units()
+        first["baseline_copy"] = 1  # a caller's change stays in its own frame
+        second = TrialFile.open(path).units()
+        assert calls.count("units") == 2  # once outside, once inside
+        pd.testing.assert_frame_equal(pd.DataFrame(second), pd.DataFrame(alone))
+        assert "baseline_copy" not in second.columns
+        tf.write_layers({"notes": pd.DataFrame({"key": ["a"], "value": ["b"]})})
+        TrialFile.open(path).units()  # the file was replaced: read again
+        assert calls.count("units") == 3
+    TrialFile.open(path).units()
+    assert calls.count("units") == 4

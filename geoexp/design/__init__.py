@@ -29,7 +29,7 @@ from geoexp.design._fingerprint import (
     zone_digest,
 )
 from geoexp.design._floor import PureControlFloor
-from geoexp.design._flow import FlowStep, UnitFlow, unit_flow
+from geoexp.design._flow import FlowStep, UnitFlow, unit_flow, unit_flow_of
 from geoexp.design._limits import MAX_DRAWS, check_draws, memory_cap_bytes, monte_carlo_bytes
 from geoexp.design._network_check import network_check, refuse_sparse_network
 from geoexp.design._protocol import Sampler, fixed_treated
@@ -71,6 +71,7 @@ __all__ = [
     "build_sampler",
     "check_draws",
     "unit_flow",
+    "unit_flow_of",
     "FlowStep",
     "UnitFlow",
     "eligible_for",

@@ -20,6 +20,8 @@ from geoexp.errors import DesignError
 if TYPE_CHECKING:
     from geoexp.design._assignment import Assignment
     from geoexp.design._design import Design
+    from geoexp.design._spec import DesignSpec
+    from geoexp.units import UnitSet
 
 
 @dataclass(frozen=True)
@@ -112,13 +114,56 @@ def unit_flow(
     DesignError
         If the recomputed steps do not end at the design's eligible units.
     """
+    return unit_flow_of(
+        design.spec,
+        design.units,
+        design.eligible,
+        n_treated=None if assignment is None else assignment.n_treated,
+        n_analysed=n_analysed,
+    )
+
+
+def unit_flow_of(
+    spec: DesignSpec,
+    units: UnitSet,
+    eligible: np.ndarray,
+    *,
+    n_treated: int | None = None,
+    n_analysed: int | None = None,
+) -> UnitFlow:
+    """The flow of :func:`unit_flow` from a spec, its units and eligible mask, without a design.
+
+    A report of a stored trial needs only these (not the exposure graph that
+    building a :class:`~geoexp.design.Design` costs).
+
+    Parameters
+    ----------
+    spec : DesignSpec
+        The design spec whose eligibility steps are recomputed.
+    units : UnitSet
+        The spec's units.
+    eligible : numpy.ndarray of bool
+        The design's eligible units (a mask over ``units``).
+    n_treated : int, optional
+        Treated units of the drawn assignment, for the randomized box.
+    n_analysed : int, optional
+        Units with outcomes in the analysis, for the last box.
+
+    Returns
+    -------
+    UnitFlow
+
+    Raises
+    ------
+    DesignError
+        If the recomputed steps do not end at the eligible units.
+    """
     from geoexp.design._build import eligible_for
 
-    spec = design.spec
-    units = design.units
+    eligible = np.asarray(eligible, dtype=bool)
     e = spec.eligible
     n_all = units.n
-    n_eligible = int(design.eligible.sum())
+    n_eligible = int(eligible.sum())
     steps = [FlowStep("All units in the layer", n_all, 0, Path(str(units.source)).name)]
     tied_dropped = 0
     recorded = False
@@ -156,7 +201,7 @@ def unit_flow(
             )
             current = after
         recomputed = np.asarray(units.ids.isin(eligible_for(spec, units).ids))
-        recorded = not np.array_equal(recomputed, design.eligible)
+        recorded = not np.array_equal(recomputed, eligible)
     except (ValueError, OSError):
         recorded = True
     if recorded or steps[-1].n_units != n_eligible:
@@ -165,9 +210,8 @@ def unit_flow(
         recorded = True
     elif len(steps) == 1:
         steps.append(FlowStep("Eligible", n_eligible, 0, "every unit"))
-    n_treated = None
-    if assignment is not None:
-        n_treated = assignment.n_treated
+    if n_treated is not None:
+        n_treated = int(n_treated)
         steps.append(
             FlowStep(
                 "Randomized",

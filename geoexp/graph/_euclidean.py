@@ -18,7 +18,7 @@ import numpy as np
 import shapely
 from scipy.spatial import cKDTree
 
-from geoexp._engine import compute_threads
+from geoexp._engine import Engine, compute_threads, jit, resolve_engine
 
 # Candidate pairs per chunk; bounds the chunk's temporary arrays (~100 bytes a pair).
 CHUNK_CANDIDATES = 1_500_000
@@ -28,12 +28,14 @@ MAX_BUCKETS = 5
 
 
 def euclidean_pairs(
-    geoms: np.ndarray, max_distance: float, scale: float
+    geoms: np.ndarray, max_distance: float, scale: float, engine: Engine = "auto"
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Undirected pairs ``(i, j, metres)`` with ``i < j`` and distance <= ``max_distance``.
 
     ``geoms`` are shapely geometries in a projected CRS whose length unit is
     ``scale`` metres; ``max_distance`` is in metres. Positions refer to ``geoms``.
+    ``engine`` runs the box screen of the candidates in numba or numpy (the
+    same pairs either way).
     """
     n = len(geoms)
     empty = (np.empty(0, np.int64), np.empty(0, np.int64), np.empty(0, np.float64))
@@ -55,7 +57,8 @@ def euclidean_pairs(
             reach = d_crs + radius[src].max() + radius[dst].max() + slack
             jobs.append((src, dst, p == q, reach))
 
-    context = (geoms, centre, half, d_crs + slack, scale, max_distance)
+    used = resolve_engine(engine)
+    context = (geoms, centre, half, d_crs + slack, scale, max_distance, used)
     tasks: list[tuple[cKDTree, np.ndarray, np.ndarray, bool, float]] = []
     for src, dst, same, reach in jobs:
         tree = cKDTree(centre[dst])
@@ -109,24 +112,68 @@ def _chunks(tree: cKDTree, points: np.ndarray, reach: float) -> list[tuple[int, 
     return [(s, min(s + size, n)) for s in range(0, n, size)]
 
 
-def _measure_chunk(tree, src, dst, same, reach, context):
-    geoms, centre, half, d_crs, scale, max_distance = context
-    local = cKDTree(centre[src])
-    cand = local.sparse_distance_matrix(tree, reach, output_type="ndarray")
-    i = src[cand["i"]]
-    j = dst[cand["j"]]
-    del cand
+def _screen_impl(ci, cj, src, dst, same, centre, half, d_crs, out_i, out_j):
+    """Candidate pairs whose boxes lie within ``d_crs``, as positions; returns how many.
+
+    ``ci``, ``cj`` index ``src`` and ``dst``; with ``same`` only pairs ``i < j``
+    are kept. The numba twin of the numpy screen in :func:`_screen_numpy`.
+    """
+    n = 0
+    for k in range(ci.shape[0]):
+        i = src[ci[k]]
+        j = dst[cj[k]]
+        if same and j <= i:
+            continue
+        gap_x = abs(centre[i, 0] - centre[j, 0]) - half[i, 0] - half[j, 0]
+        gap_y = abs(centre[i, 1] - centre[j, 1]) - half[i, 1] - half[j, 1]
+        if gap_x < 0.0:
+            gap_x = 0.0
+        if gap_y < 0.0:
+            gap_y = 0.0
+        if gap_x * gap_x + gap_y * gap_y <= d_crs * d_crs:
+            out_i[n] = i
+            out_j[n] = j
+            n += 1
+    return n
+
+
+def _screen_numpy(ci, cj, src, dst, same, centre, half, d_crs):
+    i = src[ci]
+    j = dst[cj]
     if same:
         keep = j > i
         i, j = i[keep], j[keep]
-    # Box-to-box distance: exact lower bound of the geometry distance, cheap in numpy.
     gap_x = np.abs(centre[i, 0] - centre[j, 0]) - half[i, 0] - half[j, 0]
     gap_y = np.abs(centre[i, 1] - centre[j, 1]) - half[i, 1] - half[j, 1]
     np.maximum(gap_x, 0.0, out=gap_x)
     np.maximum(gap_y, 0.0, out=gap_y)
-    keep = np.hypot(gap_x, gap_y, out=gap_x) <= d_crs
-    del gap_y
-    i, j = i[keep], j[keep]
+    np.multiply(gap_x, gap_x, out=gap_x)
+    np.multiply(gap_y, gap_y, out=gap_y)
+    keep = gap_x + gap_y <= d_crs * d_crs
+    return i[keep], j[keep]
+
+
+def _screen(ci, cj, src, dst, same, centre, half, d_crs, engine):
+    """Box-to-box distance: an exact lower bound of the geometry distance, cheap to compute.
+
+    The squared distances are compared, so both engines keep the same pairs.
+    """
+    if engine == "numpy":
+        return _screen_numpy(ci, cj, src, dst, same, centre, half, d_crs)
+    out_i = np.empty(ci.shape[0], dtype=src.dtype)
+    out_j = np.empty(ci.shape[0], dtype=dst.dtype)
+    n = jit(_screen_impl)(ci, cj, src, dst, same, centre, half, d_crs, out_i, out_j)
+    return out_i[:n].copy(), out_j[:n].copy()
+
+
+def _measure_chunk(tree, src, dst, same, reach, context):
+    geoms, centre, half, d_crs, scale, max_distance, engine = context
+    local = cKDTree(centre[src])
+    cand = local.sparse_distance_matrix(tree, reach, output_type="ndarray")
+    ci, cj = cand["i"], cand["j"]
+    del cand
+    i, j = _screen(ci, cj, src, dst, same, centre, half, d_crs, engine)
+    del ci, cj
     dist = shapely.distance(geoms[i], geoms[j])
     dist *= scale
     keep = dist <= max_distance

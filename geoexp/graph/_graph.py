@@ -256,7 +256,9 @@ class ExposureGraph:
         inner = geoms[order]
         info = None
         if metric == "euclidean":
-            first, second, dist = _euclidean.euclidean_pairs(inner, float(max_distance), scale)
+            first, second, dist = _euclidean.euclidean_pairs(
+                inner, float(max_distance), scale, engine=engine
+            )
         else:
             marks = None
             if grade_separated is not None:

@@ -59,7 +59,9 @@ def _parts(geoms: np.ndarray) -> tuple[list[np.ndarray], np.ndarray, bool]:
             "and not points"
         )
     coords, index = shapely.get_coordinates(parts, return_index=True)
-    return np.split(coords, np.flatnonzero(np.diff(index)) + 1), owner, polygonal
+    # slices of one array (what np.split gives, without its per-piece overhead)
+    cuts = np.r_[0, np.flatnonzero(np.diff(index)) + 1, len(index)].tolist()
+    return [coords[a:b] for a, b in zip(cuts[:-1], cuts[1:], strict=True)], owner, polygonal
 
 
 def _scaled_dashes(dash: tuple[float, ...], width: float):
@@ -127,9 +129,10 @@ def result_map_static(
 def _draw(analysis, trial, ax, districts):
     import matplotlib.pyplot as plt
     from matplotlib.cm import ScalarMappable
-    from matplotlib.collections import LineCollection, PolyCollection
-    from matplotlib.colors import Normalize, to_rgba
+    from matplotlib.collections import PolyCollection
+    from matplotlib.colors import Normalize, to_rgba, to_rgba_array
     from matplotlib.patches import Patch
+    from matplotlib.path import Path
 
     data = gather(analysis, trial)
     if ax is None:
@@ -192,7 +195,10 @@ def _draw(analysis, trial, ax, districts):
             )
 
     limit = change_limit(data.change)
-    colours = change_colours(data.change, limit)
+    # RGBA per unit from the few distinct colours: matplotlib reads a colour name per
+    # part otherwise (same colours, one lookup per distinct one)
+    names, which = np.unique(change_colours(data.change, limit).astype(str), return_inverse=True)
+    colours = to_rgba_array(names)[which.ravel()]
     conditions = data.per_unit["condition"].astype(str).to_numpy()
     geoms = np.asarray(units.geometry.array, dtype=object)
     estimates = {code: (effect, verdict) for code, effect, verdict in data.rows}
@@ -205,7 +211,7 @@ def _draw(analysis, trial, ax, districts):
         casing_width = width + (1.6 if code == "treated" else 0.9)
         casing_colour = TREATED_CASING if code == "treated" else CASING_COLOUR
         z = 3 + depth
-        part_colours = colours[members][owner].tolist()
+        part_colours = colours[members][owner]
         if polygonal:
             # Parcels: fill with the change, outline in the condition's width and dash.
             coll = PolyCollection(
@@ -219,7 +225,11 @@ def _draw(analysis, trial, ax, districts):
             coll.set_gid(f"units:{code}")
             ax.add_collection(coll)
         else:
-            casing = LineCollection(
+            # One Path per part, made once and shared by the casing, the line and the stripe
+            # (a LineCollection would make its own from the coordinates each time: at a
+            # million units that is most of the map's time).
+            paths = [Path(p) for p in paths]
+            casing = _lines(
                 paths,
                 colors=casing_colour,
                 linewidths=casing_width,
@@ -228,8 +238,8 @@ def _draw(analysis, trial, ax, districts):
                 zorder=z,
             )
             casing.set_gid(f"casing:{code}")
-            ax.add_collection(casing)
-            coll = LineCollection(
+            ax.add_collection(casing, autolim=False)
+            coll = _lines(
                 paths,
                 colors=part_colours,
                 linewidths=width,
@@ -238,11 +248,11 @@ def _draw(analysis, trial, ax, districts):
                 zorder=z + 0.5,
             )
             coll.set_gid(f"units:{code}")
-            ax.add_collection(coll)
+            ax.add_collection(coll, autolim=False)
             # A white centre stripe over units whose count fell: the sign survives greyscale.
             fell = np.flatnonzero(data.change[members][owner] < 0)
             if fell.size:
-                stripe = LineCollection(
+                stripe = _lines(
                     [paths[i] for i in fell],
                     colors="white",
                     linewidths=max(0.5, 0.35 * width),
@@ -251,7 +261,7 @@ def _draw(analysis, trial, ax, districts):
                     zorder=z + 0.6,
                 )
                 stripe.set_gid(f"decrease:{code}")
-                ax.add_collection(stripe)
+                ax.add_collection(stripe, autolim=False)
     condition_handles = []
     for code in data.codes:
         style = condition_style(code)
@@ -324,6 +334,15 @@ def _draw(analysis, trial, ax, districts):
         bbox={"boxstyle": "round,pad=0.5", "facecolor": "white", "edgecolor": "0.5", "lw": 0.6},
     )
     return ax
+
+
+def _lines(paths: list, **style):
+    """A LineCollection over ready-made Paths (LineCollection's own setter would copy them)."""
+    from matplotlib.collections import Collection, LineCollection
+
+    coll = LineCollection([], **style)
+    Collection.set_paths(coll, paths)
+    return coll
 
 
 def _legend_line(width: float, dash: tuple[float, ...], label: str):

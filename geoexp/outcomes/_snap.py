@@ -1,12 +1,12 @@
 """Snap incident points to the nearest unit within a tolerance.
 
-Method: one spatial-index query (shapely ``STRtree.query`` with the
-``dwithin`` predicate) finds every unit within the tolerance of each point;
-the exact point-to-geometry distances of those pairs (``shapely.distance``)
-decide the nearest. This gives the same answer as
-``STRtree.query_nearest(..., max_distance=...)`` or geopandas
-``sjoin_nearest(max_distance=...)`` (both count a unit at exactly the
-tolerance as within it), and on street layers it is several times faster,
+Method: one spatial-index query (shapely ``STRtree.query`` with a square of
+half-side the tolerance around each point) finds every unit that may lie
+within the tolerance; the exact point-to-geometry distances of those pairs
+(``shapely.distance``) keep the units within it and decide the nearest.
+This gives the same answer as ``STRtree.query_nearest(..., max_distance=...)``
+or geopandas ``sjoin_nearest(max_distance=...)`` (both count a unit at exactly
+the tolerance as within it), and on street layers it is several times faster,
 because the index only has to visit the units near each point.
 
 Ties: a point whose nearest distance is shared by two or more units (a point
@@ -92,20 +92,39 @@ def snap(
         return Snapped(unit, distance, tied)
     tree = shapely.STRtree(geometry) if tree is None else tree
     located = np.flatnonzero(np.isfinite(x) & np.isfinite(y))
+    # Snap in the order of square cells a few tolerances wide, not in the file's order: nearby
+    # points then visit the same branches of the index and the same units, which the processor
+    # finds in its cache. Each point's answer is written back to its own row.
+    cell = 8.0 * max(tolerance, 1e-9)
+    located = located[np.lexsort((x[located] // cell, y[located] // cell))]
+    no_rank = np.iinfo(np.int64).max
     for start in range(0, len(located), _BATCH):
         rows = located[start : start + _BATCH]
-        points = shapely.points(x[rows], y[rows])
-        p, u = tree.query(points, predicate="dwithin", distance=tolerance)
+        xs, ys = x[rows], y[rows]
+        # Candidates: units whose box meets the square of half-side ``tolerance`` around the
+        # point (every unit within the tolerance does); the exact distance then decides. The
+        # index answers a box query faster than a distance query, and each distance is
+        # computed once.
+        boxes = shapely.box(xs - tolerance, ys - tolerance, xs + tolerance, ys + tolerance)
+        p, u = tree.query(boxes)
+        del boxes
         if len(p) == 0:
             continue
-        d = shapely.distance(points[p], geometry[u])
-        # Sort each point's candidates by distance, then by id: the first is the pick.
-        order = np.lexsort((rank[u], d, p))
-        p, u, d = p[order], u[order], d[order]
+        d = shapely.distance(shapely.points(xs, ys)[p], geometry[u])
+        keep = d <= tolerance
+        p, u, d = p[keep], u[keep], d[keep]
+        if len(p) == 0:
+            continue
+        if np.any(p[1:] < p[:-1]):
+            order = np.argsort(p, kind="stable")
+            p, u, d = p[order], u[order], d[order]
+        # Per point: the smallest distance, then among the units at it the smallest id rank.
         first = np.flatnonzero(np.r_[True, p[1:] != p[:-1]])
-        best = np.repeat(d[first], np.diff(np.r_[first, len(p)]))
-        n_best = np.bincount(p[d == best], minlength=len(rows))
-        unit[rows[p[first]]] = u[first]
-        distance[rows[p[first]]] = d[first]
-        tied[rows] = n_best > 1
+        size = np.diff(np.r_[first, len(p)])
+        at_best = d == np.repeat(np.minimum.reduceat(d, first), size)
+        r = np.where(at_best, rank[u], no_rank)
+        pick = np.flatnonzero(at_best & (r == np.repeat(np.minimum.reduceat(r, first), size)))
+        unit[rows[p[pick]]] = u[pick]
+        distance[rows[p[pick]]] = d[pick]
+        tied[rows[p[first]]] = np.add.reduceat(at_best.astype(np.int64), first) > 1
     return Snapped(unit, distance, tied)

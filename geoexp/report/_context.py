@@ -308,6 +308,33 @@ def report_context(
         Everything the HTML, Markdown and PDF reports show, figures rendered
         as PNG.
     """
+    from geoexp.trialfile import shared_reads
+
+    # the map and the unit flow both read the unit layer: from disk once
+    with shared_reads():
+        return _report_context(
+            analysis,
+            report_path=report_path,
+            trial=trial,
+            extra_figures=extra_figures,
+            result_map_html=result_map_html,
+            static_map=static_map,
+            districts=districts,
+            over_time=over_time,
+        )
+
+
+def _report_context(
+    analysis: Analysis,
+    *,
+    report_path: str | Path,
+    trial: TrialFile | None,
+    extra_figures: dict[str, Callable] | None,
+    result_map_html: str | Path | None,
+    static_map: bool,
+    districts,
+    over_time: OverTimeSection | str | None,
+) -> ReportContext:
     figures = [
         ReportFigure(
             "Effect by distance",

@@ -43,12 +43,13 @@ def plan_facts(analysis: Analysis, trial: TrialFile) -> tuple[pd.DataFrame, Unit
     inputs (such as zone files) are gone, the flow shows the eligible units as
     recorded.
     """
-    from geoexp.design import tool_version, unit_flow
-    from geoexp.trialfile import design_from_trial
+    from geoexp.design import tool_version, unit_flow_of
+    from geoexp.units import UnitSet
 
     spec = trial.spec()
     meta = trial.meta
-    assignment = trial.assignment()
+    # the counts need two columns: reading the layer's geometry would be most of the work
+    assignment = trial.read_columns("assignment", ["treated", "eligible"])
     n_treated = int(assignment["treated"].astype(bool).sum())
     n_eligible = int(assignment["eligible"].astype(bool).sum())
     gap = spec.assignment.gap_m
@@ -64,12 +65,20 @@ def plan_facts(analysis: Analysis, trial: TrialFile) -> tuple[pd.DataFrame, Unit
         + f" m ({spec.exposure.metric})",
         "geoexp version": f"{tool_version()} (design drawn with {meta.get('tool_version', '?')})",
     }
-    flow = None
+    # The flow needs the spec, the units and their eligibility, not the design's exposure graph
+    # (the costliest part of rebuilding the design): the analysis being reported has already
+    # checked the stored assignment against its spec and seed.
     try:
-        design, drawn = design_from_trial(trial)
-    except ValueError:
-        design = None
-    if design is not None:
+        frame = trial.units()
+        units = UnitSet.from_frame(
+            frame.drop(columns=["eligible"]), None, source=f"{trial.path} (units layer)"
+        )
+        eligible = frame["eligible"].astype(bool).to_numpy()
+        treated = assignment["treated"].astype(bool).reindex(units.ids).to_numpy()
         analysed = int(analysis.per_unit["post"].notna().sum())
-        flow = unit_flow(design, drawn, n_analysed=analysed)
+        flow = unit_flow_of(
+            spec, units, eligible, n_treated=int(treated.sum()), n_analysed=analysed
+        )
+    except ValueError:
+        flow = None
     return pd.DataFrame({"value": rows}), flow

@@ -20,7 +20,7 @@ design and outcomes fingerprints from what the file holds and says what
 changed.
 """
 
-from geoexp.trialfile._file import TrialFile, export_assignment_csv, write_trial
+from geoexp.trialfile._file import TrialFile, export_assignment_csv, shared_reads, write_trial
 from geoexp.trialfile._integrity import (
     TrialIntegrity,
     outcomes_fingerprint,
@@ -41,6 +41,7 @@ __all__ = [
     "lock_path",
     "outcomes_fingerprint",
     "results_fingerprint",
+    "shared_reads",
     "store_outcomes",
     "store_results",
     "trial_lock",

@@ -1,17 +1,19 @@
 from __future__ import annotations
 
 import contextlib
+import contextvars
 import datetime as dt
 import json
 import os
 import shutil
 import sqlite3
-from collections.abc import Callable, Iterator
+from collections.abc import Callable, Iterator, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import TYPE_CHECKING
 
 import geopandas as gpd
+import numpy as np
 import pandas as pd
 import pyogrio
 import pyogrio.errors
@@ -35,12 +37,54 @@ SUPERSEDED_RESULTS = "superseded_results"
 SUPERSEDED_META = "superseded_meta"
 
 
+# Layers read inside shared_reads(): (path, layer, inode, size, mtime) -> frame
+_SHARED_READS: contextvars.ContextVar[dict | None] = contextvars.ContextVar(
+    "geoexp_shared_trial_reads", default=None
+)
+
+
+@contextlib.contextmanager
+def shared_reads() -> Iterator[None]:
+    """Inside, each layer of a trial file is read from disk once while the file is unchanged.
+
+    For work that reads the same large layer in several places (a report reads
+    the units for its map and for its unit flow). A write replaces the file,
+    so a later read sees the new layer. The frames are released on exit.
+    """
+    token = _SHARED_READS.set({})
+    try:
+        yield
+    finally:
+        _SHARED_READS.reset(token)
+
+
 def _now() -> str:
     return dt.datetime.now(dt.UTC).replace(microsecond=0).isoformat()
 
 
+def _arrow_safe(frame: pd.DataFrame) -> bool:
+    """True when writing through Arrow stores exactly what the row-by-row writer stores.
+
+    That holds for numbers, booleans, text and the geometry with a plain row index
+    (checked by reading both back); any other column (object, dates, categories)
+    keeps the row-by-row writer, whose conversions the trial files were made with.
+    """
+    if not (isinstance(frame.index, pd.RangeIndex) and frame.index.name is None):
+        return False
+    for dtype in frame.dtypes:
+        if isinstance(dtype, gpd.array.GeometryDtype | pd.StringDtype):
+            continue
+        if not (isinstance(dtype, np.dtype) and dtype.kind in "iufb"):
+            return False
+    return True
+
+
 def _write(path: Path, frame: pd.DataFrame, layer: str, append: bool = False) -> None:
-    if isinstance(frame, gpd.GeoDataFrame):
+    if not append and _arrow_safe(frame):
+        # Arrow hands the columns over whole: at a million units it halves a layer's write
+        # (text columns most of all)
+        pyogrio.write_dataframe(frame, path, layer=layer, driver="GPKG", use_arrow=True)
+    elif isinstance(frame, gpd.GeoDataFrame):
         frame.to_file(path, layer=layer, driver="GPKG", engine="pyogrio", append=append)
     else:
         pyogrio.write_dataframe(frame, path, layer=layer, driver="GPKG", append=append)
@@ -213,9 +257,21 @@ class TrialFile:
         )
 
     def read(self, layer: str) -> pd.DataFrame:
-        """A layer indexed by unit id (if it has the id column)."""
+        """A layer indexed by unit id (if it has the id column).
+
+        Inside :func:`shared_reads`, a layer of an unchanged file is read from
+        disk once and handed out again (as a copy) to later reads.
+        """
         if layer not in self.layers:
             raise InputError(f"trial file {str(self.path)!r} has no layer {layer!r} yet")
+        shared = _SHARED_READS.get()
+        key = None
+        if shared is not None:
+            stat = self.path.stat()
+            key = (str(self.path.resolve()), layer, stat.st_ino, stat.st_size, stat.st_mtime_ns)
+            if key in shared:
+                # pandas copies on write: the caller may change its copy, never the shared one
+                return shared[key].copy(deep=False)
         frame = (
             gpd.read_file(self.path, layer=layer, engine="pyogrio")
             if self._is_spatial(layer)
@@ -223,7 +279,28 @@ class TrialFile:
         )
         if self.id_column in frame.columns:
             frame = frame.set_index(self.id_column)
+        if shared is not None:
+            shared[key] = frame
+            return frame.copy(deep=False)
         return frame
+
+    def read_columns(self, layer: str, columns: Sequence[str]) -> pd.DataFrame:
+        """Some columns of a layer, without its geometry, indexed by unit id.
+
+        Much faster than :meth:`read` on a large layer when the geometry is
+        not needed (parsing the geometry is most of a read).
+        """
+        if layer not in self.layers:
+            raise InputError(f"trial file {str(self.path)!r} has no layer {layer!r} yet")
+        wanted = [self.id_column, *(c for c in columns if c != self.id_column)]
+        present = set(pyogrio.read_info(self.path, layer=layer)["fields"])
+        missing = [c for c in wanted if c not in present]
+        if missing:
+            raise InputError(
+                f"trial file {str(self.path)!r}, layer {layer!r}: no column(s) {missing}"
+            )
+        frame = pyogrio.read_dataframe(self.path, layer=layer, columns=wanted, read_geometry=False)
+        return pd.DataFrame(frame).set_index(self.id_column)[list(wanted[1:])]
 
     def _is_spatial(self, layer: str) -> bool:
         for row in pyogrio.list_layers(self.path):

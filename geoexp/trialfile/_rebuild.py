@@ -42,7 +42,8 @@ def design_from_trial(trial: TrialFile | str | os.PathLike[str]) -> tuple[Design
         frame.drop(columns=["eligible"]), None, source=f"{tf.path} (units layer)"
     )
     design = Design.from_spec(tf.spec(), units=units, eligible=eligible)
-    stored = tf.assignment().reindex(units.ids)
+    # only the treated column is compared: reading the layer's geometry would be most of the read
+    stored = tf.read_columns("assignment", ["treated"]).reindex(units.ids)
     treated = stored["treated"].astype(bool).to_numpy()
     again = design.draw()
     if not np.array_equal(again.treated, treated):
