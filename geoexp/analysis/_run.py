@@ -41,6 +41,7 @@ from geoexp.trialfile import (
     TrialFile,
     design_from_trial,
     outcomes_fingerprint,
+    shared_reads,
     store_results,
     verify_trial,
 )
@@ -150,8 +151,10 @@ def analyse(
         fingerprints of the design and outcomes analysed.
     """
     tf = trial if isinstance(trial, TrialFile) else TrialFile.open(trial)
-    integrity = verify_trial(tf)  # refuses a trial whose design or outcomes changed
-    design, assignment = design_from_trial(tf)
+    # the check and the rebuild read the same layers: from disk once
+    with shared_reads():
+        integrity = verify_trial(tf)  # refuses a trial whose design or outcomes changed
+        design, assignment = design_from_trial(tf)
     outcomes_fp = integrity.outcomes_fingerprint if outcomes is None else ""
     outcomes = load_outcomes(tf) if outcomes is None else outcomes
     if not outcomes_fp:
