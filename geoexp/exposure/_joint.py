@@ -310,6 +310,8 @@ def _condition_bits(
 MAX_DEPENDENT_PAIRS = 300_000_000
 # Rows of units whose linked pairs are found at once.
 _DEPENDENCE_ROWS = 8_192
+# Every this many rows, one row's linked pairs size the arrays that hold them all.
+_SAMPLE_STEP = 16
 
 
 def _grown(array: np.ndarray, size: int, used: int) -> np.ndarray:
@@ -401,10 +403,15 @@ def dependence_pairs(
     # rows in blocks, so that the sparse products never hold more than a block's pairs
     a_t = a.T.tocsr()
     index_type = np.int32 if n < 2**31 else np.int64
-    # the pairs go straight into one pair of arrays, sized from the first block and grown
-    # when a later block needs more, so that memory is the pairs once plus one block
-    first = np.zeros(0, index_type)
-    second = np.zeros(0, index_type)
+    # The pairs go straight into one pair of arrays, so that memory is the pairs once plus
+    # one block. The arrays are sized from every 16th row's pairs (a sixteenth of the work,
+    # spread over the whole layer: the first rows of a layer sorted in space say little
+    # about the rest) and grown only if a later block needs more than that estimate.
+    sample = np.arange(0, n, _SAMPLE_STEP)
+    estimate = int((a[sample] @ link @ a_t).nnz) * n / max(sample.size, 1)
+    size = min(int(estimate * 1.05) + 1024, MAX_DEPENDENT_PAIRS)
+    first = np.empty(size, index_type)
+    second = np.empty(size, index_type)
     total = 0
     for start in range(0, n, _DEPENDENCE_ROWS):
         block = (a[start : start + _DEPENDENCE_ROWS] @ link @ a_t).tocoo()
